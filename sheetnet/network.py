@@ -1,0 +1,309 @@
+"""Feed-forward network math: activations, output heads, forward and backward passes.
+
+Pure NumPy, no I/O. A network with layer sizes ``(n0, n1, ..., nL)`` has, for
+each layer ``l``, weights ``W_l`` of shape ``(n_{l-1}, n_l)`` and biases ``b_l``
+of shape ``(n_l,)``. Rows are samples, so ``Z_l = A_{l-1} @ W_l + b_l`` adds
+the bias along contiguous memory. All parameters travel as one flat vector
+laid out ``[W_1, b_1, W_2, b_2, ...]`` (each ``W`` row-major); `unpack` gives
+views into it, so optimizers see a single vector and nothing is copied.
+
+The training objective on ``m`` rows of a table with ``N`` training rows is::
+
+    J(theta) = (1/m) * sum_i loss_i + decay / (2N) * sum_l ||W_l||^2
+
+(biases are not penalised; with ``m == N`` this is the summed loss plus the
+L2 penalty, divided by ``N``).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Callable, Sequence
+
+import numpy as np
+from scipy.special import expit, logsumexp
+
+Array = np.ndarray
+
+
+# --- hidden activations: forward (in place) beside its derivative ---------------------------
+# The derivative is written in terms of the activation's *output* a, so the
+# backward pass needs no stored pre-activations.
+
+@dataclass(frozen=True)
+class Activation:
+    name: str
+    forward: Callable[[Array], None]  # z -> a, in place
+    scale_by_derivative: Callable[[Array, Array, Array], None]  # delta *= f'(z) given a; scratch buffer
+
+
+def _logistic_forward(z: Array) -> None:
+    expit(z, out=z)
+
+
+def _logistic_derivative(delta: Array, a: Array, scratch: Array) -> None:
+    np.subtract(1.0, a, out=scratch)  # f' = a (1 - a)
+    scratch *= a
+    delta *= scratch
+
+
+def _tanh_forward(z: Array) -> None:
+    np.tanh(z, out=z)
+
+
+def _tanh_derivative(delta: Array, a: Array, scratch: Array) -> None:
+    np.multiply(a, a, out=scratch)  # f' = 1 - a^2
+    np.subtract(1.0, scratch, out=scratch)
+    delta *= scratch
+
+
+def _relu_forward(z: Array) -> None:
+    np.maximum(z, 0.0, out=z)
+
+
+def _relu_derivative(delta: Array, a: Array, scratch: Array) -> None:
+    np.greater(a, 0.0, out=scratch)  # f' = 1 where a > 0
+    delta *= scratch
+
+
+def _identity_forward(z: Array) -> None:
+    return None
+
+
+def _identity_derivative(delta: Array, a: Array, scratch: Array) -> None:
+    return None
+
+
+ACTIVATIONS: dict[str, Activation] = {
+    "logistic": Activation("logistic", _logistic_forward, _logistic_derivative),
+    "tanh": Activation("tanh", _tanh_forward, _tanh_derivative),
+    "relu": Activation("relu", _relu_forward, _relu_derivative),
+    "identity": Activation("identity", _identity_forward, _identity_derivative),
+}
+
+
+# --- output heads: output function paired with its loss ------------------------------------
+# For each canonical pairing the gradient of the summed loss with respect to
+# the output layer's pre-activation z is simply (a - y).
+
+@dataclass(frozen=True)
+class Head:
+    name: str
+    output: Callable[[Array, Array], None]  # (z, out) -> out = f(z)
+    summed_loss: Callable[[Array, Array, Array], float]  # (z, a, y) -> sum over rows, float64
+
+
+def _linear_output(z: Array, out: Array) -> None:
+    np.copyto(out, z)
+
+
+def _squared_error(z: Array, a: Array, y: Array) -> float:
+    diff = a - y
+    return 0.5 * float(np.dot(diff.ravel(), diff.ravel()))
+
+
+def _logistic_output(z: Array, out: Array) -> None:
+    expit(z, out=out)
+
+
+def _binary_cross_entropy(z: Array, a: Array, y: Array) -> float:
+    # -y log s(z) - (1-y) log(1-s(z)) = softplus(z) - y z, stable for any z
+    return float(np.sum(np.logaddexp(0.0, z), dtype=np.float64) - np.sum(y * z, dtype=np.float64))
+
+
+def _softmax_output(z: Array, out: Array) -> None:
+    np.subtract(z, z.max(axis=1, keepdims=True), out=out)
+    np.exp(out, out=out)
+    out /= out.sum(axis=1, keepdims=True)
+
+
+def _cross_entropy(z: Array, a: Array, y: Array) -> float:
+    return float(np.sum(logsumexp(z, axis=1), dtype=np.float64) - np.sum(y * z, dtype=np.float64))
+
+
+HEADS: dict[str, Head] = {
+    "squared_error": Head("squared_error", _linear_output, _squared_error),
+    "binary_cross_entropy": Head("binary_cross_entropy", _logistic_output, _binary_cross_entropy),
+    "cross_entropy": Head("cross_entropy", _softmax_output, _cross_entropy),
+}
+
+
+# --- parameter layout ---------------------------------------------------------------------
+
+def layout(sizes: Sequence[int]) -> list[tuple[slice, tuple[int, int], slice]]:
+    """Where each layer's weights and biases sit in the flat vector.
+
+    Returns one ``(weight_slice, weight_shape, bias_slice)`` per layer.
+
+    >>> layout((2, 3, 1))[1]
+    (slice(9, 12, None), (3, 1), slice(12, 13, None))
+    """
+    places = []
+    start = 0
+    for n_in, n_out in zip(sizes[:-1], sizes[1:]):
+        w = slice(start, start + n_in * n_out)
+        b = slice(w.stop, w.stop + n_out)
+        places.append((w, (n_in, n_out), b))
+        start = b.stop
+    return places
+
+
+def parameter_count(sizes: Sequence[int]) -> int:
+    """Number of weights and biases of a network with these layer sizes."""
+    return sum(n_in * n_out + n_out for n_in, n_out in zip(sizes[:-1], sizes[1:]))
+
+
+def unpack(theta: Array, sizes: Sequence[int]) -> list[tuple[Array, Array]]:
+    """Views ``[(W_1, b_1), ...]`` into the flat parameter vector (no copies)."""
+    return [(theta[w].reshape(shape), theta[b]) for w, shape, b in layout(sizes)]
+
+
+def pack(params: Sequence[tuple[Array, Array]]) -> Array:
+    """The flat float64 vector of ``[(W_1, b_1), ...]``; inverse of `unpack`."""
+    return np.concatenate([np.concatenate([np.ravel(w), np.ravel(b)]) for w, b in params]).astype(np.float64)
+
+
+def initial_parameters(sizes: Sequence[int], activation: str, rng: np.random.Generator) -> Array:
+    """Glorot-uniform weights (Glorot & Bengio 2010) and zero biases.
+
+    The bound is ``sqrt(6 / (fan_in + fan_out))``, times 4 for the logistic
+    activation (as that paper recommends) and times sqrt(2) for ReLU (He et al. 2015).
+    """
+    gain = {"logistic": 4.0, "relu": np.sqrt(2.0)}.get(activation, 1.0)
+    theta = np.zeros(parameter_count(sizes))
+    for w, (n_in, n_out), _ in layout(sizes):
+        bound = gain * np.sqrt(6.0 / (n_in + n_out))
+        theta[w] = rng.uniform(-bound, bound, n_in * n_out)
+    return theta
+
+
+# --- prediction ---------------------------------------------------------------------------
+
+def forward(theta: Array, sizes: Sequence[int], activation: str, head: str, X: Array) -> Array:
+    """Output of the network for rows ``X`` of shape ``(n, sizes[0])``: shape ``(n, sizes[-1])``.
+
+    Runs in the dtype of ``X`` (float64 for predictions).
+    """
+    act = ACTIVATIONS[activation]
+    a = X
+    params = unpack(theta.astype(X.dtype, copy=False), sizes)
+    for w, b in params[:-1]:
+        a = a @ w
+        a += b
+        act.forward(a)
+    w, b = params[-1]
+    z = a @ w
+    z += b
+    HEADS[head].output(z, z)
+    return z
+
+
+# --- training objective with preallocated buffers -----------------------------------------
+
+class Objective:
+    """Loss and gradient of the training objective over a table of rows.
+
+    Holds the rows in the compute dtype and every buffer the forward and
+    backward passes need, so an evaluation allocates almost nothing. Call it
+    as ``loss, grad = objective(theta)`` for all rows or
+    ``objective(theta, start, stop)`` for the contiguous batch of rows
+    ``start:stop``; `shuffle` reorders the rows in place between epochs.
+    ``grad`` is a fresh float64 array; ``loss`` is a Python float summed in
+    float64 whatever the compute dtype.
+    """
+
+    def __init__(
+        self,
+        sizes: Sequence[int],
+        activation: str,
+        head: str,
+        X: Array,
+        Y: Array,
+        decay: float,
+        dtype: type = np.float64,
+        batch_rows: int | None = None,
+    ) -> None:
+        self.sizes = tuple(int(s) for s in sizes)
+        self.activation = ACTIVATIONS[activation]
+        self.head = HEADS[head]
+        self.dtype = np.dtype(dtype)
+        self.X = np.ascontiguousarray(X, dtype=self.dtype)
+        self.Y = np.ascontiguousarray(Y, dtype=self.dtype).reshape(len(self.X), self.sizes[-1])
+        self.n_rows = len(self.X)
+        self.decay = float(decay)
+        rows = self.n_rows if not batch_rows else min(int(batch_rows), self.n_rows)
+        self._layout = layout(self.sizes)
+        self._a = [np.empty((rows, n), self.dtype) for n in self.sizes[1:]]  # activated outputs
+        self._z_out = np.empty((rows, self.sizes[-1]), self.dtype)  # output pre-activation
+        self._delta = [np.empty((rows, n), self.dtype) for n in self.sizes[1:]]
+        self._scratch = [np.empty((rows, n), self.dtype) for n in self.sizes[1:]]
+        self._theta = np.empty(parameter_count(self.sizes), self.dtype)
+        self._grad = np.empty(parameter_count(self.sizes), self.dtype)
+        self._weight_mask = np.zeros(parameter_count(self.sizes), bool)
+        for w, _, _ in self._layout:
+            self._weight_mask[w] = True
+
+    def shuffle(self, rng: np.random.Generator) -> None:
+        """Reorder the rows (inputs and targets together) for the next epoch."""
+        order = rng.permutation(self.n_rows)
+        self.X[:] = self.X[order]
+        self.Y[:] = self.Y[order]
+
+    def penalty(self, theta: Array) -> float:
+        w = theta[self._weight_mask]
+        return 0.5 * self.decay * float(np.dot(w, w))
+
+    def _forward(self, rows: int, start: int, stop: int) -> tuple[Array, Array]:
+        params = [(self._theta[w].reshape(shape), self._theta[b]) for w, shape, b in self._layout]
+        a_prev = self.X[start:stop]
+        last = len(params) - 1
+        for l, (w, b) in enumerate(params):
+            out = self._z_out[:rows] if l == last else self._a[l][:rows]
+            np.matmul(a_prev, w, out=out)
+            out += b
+            if l != last:
+                self.activation.forward(out)
+            a_prev = out
+        z = self._z_out[:rows]
+        a = self._a[last][:rows]
+        self.head.output(z, a)
+        return z, a
+
+    def data_loss(self, theta: Array, start: int = 0, stop: int | None = None) -> float:
+        """Mean loss per row without the penalty (used for validation curves)."""
+        stop = self.n_rows if stop is None else stop
+        rows = stop - start
+        self._theta[:] = theta
+        z, a = self._forward(rows, start, stop)
+        return self.head.summed_loss(z, a, self.Y[start:stop]) / rows
+
+    def __call__(self, theta: Array, start: int = 0, stop: int | None = None) -> tuple[float, Array]:
+        stop = self.n_rows if stop is None else stop
+        rows = stop - start
+        self._theta[:] = theta
+        params = [(self._theta[w].reshape(shape), self._theta[b]) for w, shape, b in self._layout]
+        grads = [(self._grad[w].reshape(shape), self._grad[b]) for w, shape, b in self._layout]
+        z, a = self._forward(rows, start, stop)
+        y = self.Y[start:stop]
+        loss = self.head.summed_loss(z, a, y)
+
+        last = len(params) - 1
+        delta = self._delta[last][:rows]
+        np.subtract(a, y, out=delta)
+        for l in range(last, -1, -1):
+            a_prev = self.X[start:stop] if l == 0 else self._a[l - 1][:rows]
+            gw, gb = grads[l]
+            np.matmul(a_prev.T, delta, out=gw)
+            np.sum(delta, axis=0, out=gb)
+            if l > 0:
+                delta_prev = self._delta[l - 1][:rows]
+                np.matmul(delta, params[l][0].T, out=delta_prev)
+                self.activation.scale_by_derivative(delta_prev, a_prev, self._scratch[l - 1][:rows])
+                delta = delta_prev
+
+        grad = self._grad.astype(np.float64)
+        grad /= rows
+        # the penalty is spread over all N training rows, so batches estimate it without bias
+        scale = self.decay / self.n_rows
+        grad[self._weight_mask] += scale * theta[self._weight_mask]
+        return loss / rows + self.penalty(theta) / self.n_rows, grad

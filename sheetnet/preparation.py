@@ -1,0 +1,461 @@
+"""Preparation of inputs and targets, learned on training rows only.
+
+Numeric inputs are standardised (mean 0, population standard deviation 1);
+text inputs become one-hot columns, one per category seen in training.
+Regression targets are standardised too and the scaling is undone on
+prediction; class labels may be of any type and are kept as given.
+
+Tables arrive as a NumPy array, a pandas DataFrame (columns matched by name
+at prediction) or a list of rows. Rows in messages count data rows from 1.
+"""
+
+from __future__ import annotations
+
+import math
+import numbers
+from dataclasses import dataclass
+from typing import Any, Sequence
+
+import numpy as np
+
+from .errors import (
+    BadValueError,
+    ConstantColumnError,
+    InputError,
+    LengthMismatchError,
+    UnknownCategoryError,
+    UnknownColumnError,
+)
+
+# spreadsheet error values as they reach Python in text form
+SPREADSHEET_ERRORS = frozenset(
+    {"#N/A", "#VALUE!", "#REF!", "#DIV/0!", "#NUM!", "#NAME?", "#NULL!", "#SPILL!", "#CALC!", "#GETTING_DATA", "#FIELD!", "#BLOCKED!", "#CONNECT!", "#BUSY!", "#UNKNOWN!"}
+)
+MAX_CLASSES_FOR_NUMBERS = 10  # integer targets with at most this many values are classes
+
+
+# --- reading tables -----------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class RawTable:
+    names: tuple[str, ...]
+    columns: tuple[np.ndarray, ...]  # one 1-D array per column, numeric dtype or object
+    named: bool  # True when the names came with the data (a DataFrame)
+
+    @property
+    def n_rows(self) -> int:
+        return len(self.columns[0]) if self.columns else 0
+
+
+def read_table(X: Any) -> RawTable:
+    """Split a table into named columns without interpreting the cells yet."""
+    try:
+        import pandas as pd
+    except ImportError:  # pragma: no cover - pandas is a dependency
+        pd = None
+    if pd is not None and isinstance(X, pd.DataFrame):
+        names = tuple(str(c) for c in X.columns)
+        if len(set(names)) != len(names):
+            duplicate = next(n for n in names if names.count(n) > 1)
+            raise InputError(f"the table has two columns named '{duplicate}'; give each column its own name")
+        columns = tuple(_column_array(X.iloc[:, j].to_numpy()) for j in range(X.shape[1]))
+        return RawTable(names, columns, True)
+    if pd is not None and isinstance(X, pd.Series):
+        return RawTable((str(X.name or "x1"),), (_column_array(X.to_numpy()),), X.name is not None)
+    if isinstance(X, np.ndarray):
+        array = X
+    else:
+        rows = list(X)
+        if rows and not isinstance(rows[0], (list, tuple, np.ndarray)):
+            rows = [[value] for value in rows]  # a plain list is one column
+        widths = {len(r) for r in rows}
+        if len(widths) > 1:
+            first = len(rows[0])
+            bad = next(i for i, r in enumerate(rows) if len(r) != first)
+            raise InputError(f"row {bad + 1} has {len(rows[bad])} cells but row 1 has {first}; give every row the same number of cells")
+        array = np.empty((len(rows), widths.pop() if widths else 0), dtype=object)
+        for i, r in enumerate(rows):
+            array[i, :] = list(r)
+    if array.ndim == 1:
+        array = array.reshape(-1, 1)
+    if array.ndim != 2:
+        raise InputError(f"the inputs have {array.ndim} dimensions; pass a table of rows and columns")
+    names = tuple(f"x{j + 1}" for j in range(array.shape[1]))
+    columns = tuple(_column_array(array[:, j]) for j in range(array.shape[1]))
+    return RawTable(names, columns, False)
+
+
+def _column_array(values: np.ndarray) -> np.ndarray:
+    if values.dtype.kind in "fiub":
+        return values
+    if values.dtype.kind in "US":
+        return values.astype(object)
+    return np.asarray(values, dtype=object)
+
+
+def _cell_kind(value: Any) -> str:
+    """'number', 'text', 'blank' or 'error' for one cell."""
+    if value is None:
+        return "blank"
+    if isinstance(value, (bool, np.bool_)):
+        return "number"
+    if isinstance(value, numbers.Real):
+        return "blank" if math.isnan(float(value)) else "number"
+    if isinstance(value, str):
+        text = value.strip()
+        if not text:
+            return "blank"
+        return "error" if text.upper() in SPREADSHEET_ERRORS else "text"
+    return "text"
+
+
+def _bad_cell(column: str, row: int, value: Any, kind: str, numeric: bool) -> BadValueError:
+    if kind == "blank":
+        return BadValueError(column, row, value, "the cell is blank or not a number", "fill it in or remove the row")
+    if kind == "error":
+        return BadValueError(column, row, value, "the cell holds a spreadsheet error value", "fix the formula that produced it or remove the row")
+    if kind == "infinite":
+        return BadValueError(column, row, value, "the value is infinite", "replace it with a finite number or remove the row")
+    if numeric:
+        return BadValueError(column, row, value, "text in a numeric column", "type a number, or clear the text and remove the row")
+    return BadValueError(column, row, value, "a number in a text column", "type the category as text")
+
+
+def numbers_of(column: str, values: np.ndarray) -> np.ndarray:
+    """The column as float64, or a `BadValueError` naming the first bad cell."""
+    if values.dtype.kind in "fiub":
+        numbers_ = values.astype(np.float64, copy=False)
+        finite = np.isfinite(numbers_)
+        if not finite.all():
+            row = int(np.argmin(finite))
+            kind = "blank" if np.isnan(numbers_[row]) else "infinite"
+            raise _bad_cell(column, row + 1, numbers_[row], kind, True)
+        return numbers_
+    result = np.empty(len(values), dtype=np.float64)
+    for i, value in enumerate(values):
+        kind = _cell_kind(value)
+        if kind != "number":
+            raise _bad_cell(column, i + 1, value, kind, True)
+        result[i] = float(value)
+        if not math.isfinite(result[i]):
+            raise _bad_cell(column, i + 1, value, "infinite", True)
+    return result
+
+
+def category_text(value: Any) -> str:
+    """How a cell reads as a category: whole numbers lose their '.0'."""
+    if isinstance(value, (bool, np.bool_)):
+        return "TRUE" if value else "FALSE"
+    if isinstance(value, numbers.Real) and float(value).is_integer():
+        return str(int(value))
+    return str(value).strip()
+
+
+def texts_of(column: str, values: np.ndarray) -> np.ndarray:
+    """The column as category texts, or a `BadValueError` for blanks and error values."""
+    result = np.empty(len(values), dtype=object)
+    for i, value in enumerate(values):
+        kind = _cell_kind(value)
+        if kind in ("blank", "error"):
+            raise _bad_cell(column, i + 1, value, kind, False)
+        result[i] = category_text(value)
+    return result.astype(str)
+
+
+def looks_like_categories(values: np.ndarray) -> bool:
+    """True when most filled cells hold text: the column is read as categories."""
+    if values.dtype.kind in "fiub":
+        return False
+    kinds = [_cell_kind(v) for v in values]
+    text = kinds.count("text")
+    return text > 0 and text >= kinds.count("number")
+
+
+# --- inputs -------------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class NumericInput:
+    name: str
+    mean: float
+    scale: float  # population standard deviation on training rows
+    low: float  # smallest and largest training value, for the out-of-range flag
+    high: float
+
+    @property
+    def width(self) -> int:
+        return 1
+
+
+@dataclass(frozen=True)
+class CategoryInput:
+    name: str
+    categories: tuple[str, ...]  # sorted; one one-hot column each
+
+    @property
+    def width(self) -> int:
+        return len(self.categories)
+
+
+InputSpec = NumericInput | CategoryInput
+
+
+@dataclass(frozen=True)
+class Preparation:
+    """How raw input columns become the network's input matrix."""
+
+    inputs: tuple[InputSpec, ...]
+    named: bool  # match columns by name at prediction
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        return tuple(spec.name for spec in self.inputs)
+
+    @property
+    def width(self) -> int:
+        return sum(spec.width for spec in self.inputs)
+
+    @property
+    def all_numeric(self) -> bool:
+        return all(isinstance(spec, NumericInput) for spec in self.inputs)
+
+    def encoded_names(self) -> tuple[str, ...]:
+        """One name per network input: the column, or 'column=category' for one-hot columns."""
+        out: list[str] = []
+        for spec in self.inputs:
+            if isinstance(spec, NumericInput):
+                out.append(spec.name)
+            else:
+                out.extend(f"{spec.name}={c}" for c in spec.categories)
+        return tuple(out)
+
+    def columns_in_order(self, X: Any) -> list[np.ndarray]:
+        """The raw columns of ``X`` in training order (matched by name when the model has names)."""
+        table = read_table(X)
+        if self.named and table.named:
+            where = {name: j for j, name in enumerate(table.names)}
+            missing = [name for name in self.names if name not in where]
+            if missing:
+                raise UnknownColumnError(
+                    f"the table has no column named {', '.join(repr(m) for m in missing)}; "
+                    f"the model needs the columns {', '.join(self.names)}"
+                )
+            return [table.columns[where[name]] for name in self.names]
+        if len(table.names) != len(self.inputs):
+            raise LengthMismatchError(
+                f"the table has {len(table.names)} columns but the model was trained on {len(self.inputs)} "
+                f"({', '.join(self.names)}); pass the same columns in the same order"
+            )
+        return list(table.columns)
+
+    def transform(self, X: Any) -> np.ndarray:
+        """The network input matrix for ``X``: shape (rows, `width`), float64.
+
+        >>> prep = fit_preparation(read_table([[1.0], [3.0]]))
+        >>> prep.transform([[2.0], [3.0]]).ravel().tolist()
+        [0.0, 1.0]
+        """
+        if self.all_numeric and isinstance(X, np.ndarray) and X.dtype.kind in "fiu" and X.ndim == 2:
+            return self._transform_numeric_array(X)
+        return self.transform_columns(self.columns_in_order(X))
+
+    def _transform_numeric_array(self, X: np.ndarray) -> np.ndarray:
+        # fast path for the common case: one vectorised check and one affine map
+        if X.shape[1] != len(self.inputs):
+            raise LengthMismatchError(
+                f"the table has {X.shape[1]} columns but the model was trained on {len(self.inputs)} "
+                f"({', '.join(self.names)}); pass the same columns in the same order"
+            )
+        mean, scale = self._affine()
+        out = (X - mean) / scale
+        if not np.isfinite(out).all():
+            row, col = np.argwhere(~np.isfinite(out))[0]
+            numbers_of(self.inputs[col].name, X[:, col])  # raises with the row named
+        return out
+
+    def _affine(self) -> tuple[np.ndarray, np.ndarray]:
+        cached = self.__dict__.get("_affine_cache")
+        if cached is None:
+            mean = np.array([s.mean for s in self.inputs])  # type: ignore[union-attr]
+            scale = np.array([s.scale for s in self.inputs])  # type: ignore[union-attr]
+            cached = (mean, scale)
+            object.__setattr__(self, "_affine_cache", cached)
+        return cached
+
+    def transform_columns(self, columns: Sequence[np.ndarray]) -> np.ndarray:
+        n = len(columns[0]) if columns else 0
+        out = np.zeros((n, self.width))
+        at = 0
+        for spec, values in zip(self.inputs, columns):
+            if isinstance(spec, NumericInput):
+                out[:, at] = (numbers_of(spec.name, values) - spec.mean) / spec.scale
+            else:
+                texts = texts_of(spec.name, values)
+                known = np.array(spec.categories)
+                index = np.searchsorted(known, texts)
+                index = np.minimum(index, len(known) - 1)
+                unknown = known[index] != texts
+                if unknown.any():
+                    row = int(np.argmax(unknown))
+                    raise UnknownCategoryError(
+                        f"column '{spec.name}', row {row + 1}: category '{texts[row]}' was not in the training rows "
+                        f"(known: {', '.join(spec.categories)}); use a known category or retrain with rows that include it"
+                    )
+                out[np.arange(n), at + index] = 1.0
+            at += spec.width
+        return out
+
+    def out_of_range(self, X: Any) -> np.ndarray:
+        """Per row, True when a numeric input lies outside the training rows' range."""
+        columns = self.columns_in_order(X)
+        n = len(columns[0]) if columns else 0
+        flag = np.zeros(n, dtype=bool)
+        for spec, values in zip(self.inputs, columns):
+            if isinstance(spec, NumericInput):
+                v = numbers_of(spec.name, values)
+                flag |= (v < spec.low) | (v > spec.high)
+        return flag
+
+
+def fit_preparation(table: RawTable, categories: Sequence[str] = ()) -> Preparation:
+    """Learn scaling constants and categories from the training rows of ``table``."""
+    unknown = [c for c in categories if c not in table.names]
+    if unknown:
+        raise UnknownColumnError(f"'{unknown[0]}' is listed as a category column but the table has no such column ({', '.join(table.names)})")
+    specs: list[InputSpec] = []
+    for name, values in zip(table.names, table.columns):
+        if name in categories or looks_like_categories(values):
+            texts = texts_of(name, values)
+            found = tuple(sorted(set(texts.tolist())))
+            if len(found) < 2:
+                raise ConstantColumnError(
+                    f"column '{name}' holds the one category '{found[0]}' in every training row, so it cannot inform the model; remove the column"
+                )
+            specs.append(CategoryInput(name, found))
+        else:
+            v = numbers_of(name, values)
+            scale = float(v.std())
+            if not scale > 0:
+                raise ConstantColumnError(
+                    f"column '{name}' holds the same value ({v[0]:g}) in every training row, so it cannot inform the model; remove the column"
+                )
+            specs.append(NumericInput(name, float(v.mean()), scale, float(v.min()), float(v.max())))
+    return Preparation(tuple(specs), table.named)
+
+
+# --- targets ------------------------------------------------------------------------------
+
+def read_target(y: Any) -> np.ndarray:
+    """The target as a 1-D array (numeric dtype or object)."""
+    try:
+        import pandas as pd
+
+        if isinstance(y, (pd.Series, pd.Index)):
+            y = y.to_numpy()
+        elif isinstance(y, pd.DataFrame):
+            if y.shape[1] != 1:
+                raise InputError(f"the target has {y.shape[1]} columns; pass one column")
+            y = y.iloc[:, 0].to_numpy()
+    except ImportError:  # pragma: no cover
+        pass
+    array = np.asarray(y) if isinstance(y, np.ndarray) else np.asarray(list(y), dtype=object)
+    if array.ndim == 2 and array.shape[1] == 1:
+        array = array[:, 0]
+    if array.ndim != 1:
+        raise InputError(f"the target has shape {array.shape}; pass one column of values")
+    return _column_array(array)
+
+
+def _sorted_labels(values: Sequence[Any]) -> tuple[Any, ...]:
+    unique = list(dict.fromkeys(values))
+    try:
+        return tuple(sorted(unique))
+    except TypeError:
+        return tuple(sorted(unique, key=lambda v: (type(v).__name__, str(v))))
+
+
+def _plain(value: Any) -> Any:
+    return value.item() if isinstance(value, np.generic) else value
+
+
+@dataclass(frozen=True)
+class TargetPreparation:
+    """How the target column becomes the network's output matrix and back."""
+
+    task: str  # regression, binary or multiclass
+    mean: float = 0.0
+    scale: float = 1.0
+    classes: tuple[Any, ...] = ()
+
+    @property
+    def outputs(self) -> int:
+        return self.classes.__len__() if self.task == "multiclass" else 1
+
+    @property
+    def head(self) -> str:
+        return {"regression": "squared_error", "binary": "binary_cross_entropy", "multiclass": "cross_entropy"}[self.task]
+
+    def class_indices(self, y: np.ndarray) -> np.ndarray:
+        """Index of each label in `classes`; an unknown label is an `InputError`."""
+        where = {label: i for i, label in enumerate(self.classes)}
+        out = np.empty(len(y), dtype=np.int64)
+        for i, label in enumerate(y):
+            label = _plain(label)
+            if label not in where:
+                raise UnknownCategoryError(
+                    f"target row {i + 1}: class {label!r} was not in the training rows (known: {', '.join(map(str, self.classes))})"
+                )
+            out[i] = where[label]
+        return out
+
+    def encode(self, y: np.ndarray) -> np.ndarray:
+        """Targets as the network's outputs: scaled values, 0/1, or one-hot rows."""
+        if self.task == "regression":
+            return ((numbers_of("target", y) - self.mean) / self.scale).reshape(-1, 1)
+        index = self.class_indices(y)
+        if self.task == "binary":
+            return index.astype(np.float64).reshape(-1, 1)
+        return np.eye(len(self.classes))[index]
+
+
+def _target_labels(y: np.ndarray) -> list[Any]:
+    labels = []
+    for i, value in enumerate(y):
+        kind = _cell_kind(value)
+        if kind in ("blank", "error"):
+            raise _bad_cell("target", i + 1, value, kind, False)
+        labels.append(value.strip() if isinstance(value, str) else _plain(value))
+    return labels
+
+
+def _looks_like_classes(values: np.ndarray) -> bool:
+    distinct = np.unique(values)
+    whole = bool(np.all(distinct == np.round(distinct)))
+    return len(distinct) == 2 or (whole and len(distinct) <= MAX_CLASSES_FOR_NUMBERS and len(values) >= 5 * len(distinct))
+
+
+def fit_target(y: np.ndarray, task: str = "auto") -> TargetPreparation:
+    """Decide the task (unless given) and learn the target's scaling or classes.
+
+    Auto: text, or exactly two distinct values, are classes (binary with two);
+    whole numbers with at most 10 distinct values, each class averaging 5 rows
+    or more, are classes; anything else numeric is regression.
+    """
+    numeric = y.dtype.kind in "fiub" or all(_cell_kind(v) == "number" for v in y)
+    if task == "regression" or (task == "auto" and numeric and not _looks_like_classes(numbers_of("target", y))):
+        values = numbers_of("target", y)
+        scale = float(values.std())
+        if not scale > 0:
+            raise ConstantColumnError(f"the target holds the same value ({values[0]:g}) in every training row; there is nothing to learn")
+        return TargetPreparation("regression", float(values.mean()), scale)
+    labels = _target_labels(y)
+    classes = _sorted_labels(labels)
+    if len(classes) < 2:
+        raise ConstantColumnError(f"the target holds the one class {classes[0]!r} in every training row; there is nothing to learn")
+    chosen = task if task != "auto" else ("binary" if len(classes) == 2 else "multiclass")
+    if chosen == "binary" and len(classes) != 2:
+        raise InputError(
+            f"task 'binary' needs two classes but the target has {len(classes)} ({', '.join(map(str, classes[:5]))}); use task 'multiclass'"
+        )
+    if chosen == "multiclass" and len(classes) == 2:
+        chosen = "binary"  # two classes are always one logistic output
+    return TargetPreparation(chosen, classes=classes)

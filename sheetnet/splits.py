@@ -1,0 +1,106 @@
+"""Holdout splits and k-fold cross-validation folds.
+
+A split is a boolean mask over the rows, True for holdout rows. Modes:
+
+- ``random``: a seeded random share of the rows;
+- ``stratified``: the same share taken within each class, so the holdout
+  keeps the class mix (every class needs two rows or more);
+- ``ordered``: the last rows, for time series (no shuffling, no seed).
+"""
+
+from __future__ import annotations
+
+from typing import Any, Sequence
+
+import numpy as np
+
+from .errors import NotEnoughRowsError, SplitError
+
+SPLIT_MODES = ("random", "stratified", "ordered")
+
+
+def _holdout_count(n: int, share: float) -> int:
+    if not 0.0 < share < 1.0:
+        raise SplitError(f"the holdout share is {share!r}; give a number between 0 and 1, such as 0.2")
+    count = int(round(share * n))
+    if n < 2:
+        raise NotEnoughRowsError(f"a holdout needs at least 2 rows; the table has {n}")
+    return min(max(count, 1), n - 1)
+
+
+def holdout_mask(
+    n_rows: int,
+    share: float = 0.2,
+    seed: int = 0,
+    mode: str = "random",
+    labels: Sequence[Any] | np.ndarray | None = None,
+) -> np.ndarray:
+    """True for the rows held out. ``labels`` are needed for ``stratified``.
+
+    >>> holdout_mask(5, 0.4, mode="ordered").tolist()
+    [False, False, False, True, True]
+    """
+    if mode not in SPLIT_MODES:
+        raise SplitError(f"split mode {mode!r} is not known; choose one of: {', '.join(SPLIT_MODES)}")
+    count = _holdout_count(n_rows, share)
+    mask = np.zeros(n_rows, dtype=bool)
+    if mode == "ordered":
+        mask[n_rows - count:] = True
+        return mask
+    rng = np.random.default_rng(seed)
+    if mode == "random":
+        mask[rng.permutation(n_rows)[:count]] = True
+        return mask
+    if labels is None or len(labels) != n_rows:
+        raise SplitError("a stratified split needs one class label per row; pass the target column")
+    groups = _groups(labels)
+    for label, rows in groups.items():
+        if len(rows) < 2:
+            raise SplitError(
+                f"class {label!r} has a single row, so it cannot be in both training and holdout rows; "
+                "add rows of that class, merge it with another, or use a random split"
+            )
+        take = int(round(share * len(rows)))
+        take = min(max(take, 1), len(rows) - 1)
+        mask[rng.permutation(rows)[:take]] = True
+    return mask
+
+
+def _groups(labels: Sequence[Any] | np.ndarray) -> dict[Any, np.ndarray]:
+    where: dict[Any, list[int]] = {}
+    for i, label in enumerate(labels):
+        key = label.item() if isinstance(label, np.generic) else label
+        where.setdefault(key, []).append(i)
+    return {k: np.array(v) for k, v in where.items()}
+
+
+def k_folds(
+    n_rows: int,
+    k: int = 5,
+    seed: int = 0,
+    labels: Sequence[Any] | np.ndarray | None = None,
+) -> list[tuple[np.ndarray, np.ndarray]]:
+    """``k`` pairs of (training row indices, test row indices); every row is tested once.
+
+    With ``labels``, folds are stratified: each class is dealt round-robin
+    over the folds after shuffling.
+    """
+    if k < 2:
+        raise SplitError(f"cross-validation needs at least 2 folds; got {k}")
+    if n_rows < k:
+        raise NotEnoughRowsError(f"{k}-fold cross-validation needs at least {k} rows; the table has {n_rows}")
+    rng = np.random.default_rng(seed)
+    fold_of = np.empty(n_rows, dtype=np.int64)
+    if labels is None:
+        fold_of[rng.permutation(n_rows)] = np.arange(n_rows) % k
+    else:
+        offset = 0
+        for label, rows in _groups(labels).items():
+            if len(rows) < k:
+                raise SplitError(
+                    f"class {label!r} has {len(rows)} rows, fewer than the {k} folds; use fewer folds or unstratified folds"
+                )
+            fold_of[rng.permutation(rows)] = (np.arange(len(rows)) + offset) % k
+            offset += len(rows)
+    everything = np.arange(n_rows)
+    return [(everything[fold_of != f], everything[fold_of == f]) for f in range(k)]

@@ -1,0 +1,198 @@
+"""`fit`: validate the data, prepare it, train one or more networks, return a `Model`.
+
+Randomness enters through the ``seed`` argument only: it seeds one
+`numpy.random.SeedSequence` whose children drive each repeat's starting
+weights, inner validation rows and batch order, so the same data, settings
+and seed give identical weights.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from typing import Any, Sequence
+
+import numpy as np
+from threadpoolctl import threadpool_limits
+
+from . import network, optimizers
+from .errors import LengthMismatchError, NotEnoughRowsError, SettingError
+from .model import Member, Model
+from .preparation import fit_preparation, fit_target, read_table, read_target
+from .settings import resolve_settings
+from .splits import holdout_mask
+from .stopping import Monitor, ProgressCallback, StoppingRules
+
+MIN_ROWS = 4
+LBFGS_ROW_LIMIT = 20_000  # auto: L-BFGS below this many training rows, Adam from here on
+FLOAT32_ROW_LIMIT = 1_000  # auto precision: float32 from here on
+VALIDATION_ROW_LIMIT = 100  # auto validation share: 0.15 from here on
+AUTO_VALIDATION_SHARE = 0.15
+ADAM_BATCH_ROWS = 256
+
+
+@dataclass(frozen=True)
+class Plan:
+    """The choices `fit` made from the settings and the data size."""
+
+    algorithm: str
+    dtype: str
+    validation_share: float
+    rate: float
+    batch_rows: int
+
+
+def plan_training(n_rows: int, settings: dict[str, Any]) -> Plan:
+    """Resolve the 'auto' choices for a table of ``n_rows`` training rows."""
+    algorithm = settings["algorithm"]
+    if algorithm == "auto":
+        algorithm = "lbfgs" if n_rows < LBFGS_ROW_LIMIT else "adam"
+    dtype = settings["precision"]
+    if dtype == "auto":
+        dtype = "float32" if n_rows >= FLOAT32_ROW_LIMIT else "float64"
+    share = settings["validation_share"]
+    if share is None:
+        share = AUTO_VALIDATION_SHARE if n_rows >= VALIDATION_ROW_LIMIT else 0.0
+    rate = settings["rate"]
+    if rate is None:
+        rate = {"gd": 0.1, "adam": 0.001}.get(algorithm, 0.0)
+    batch = settings["batch"]
+    if batch is None:
+        batch = ADAM_BATCH_ROWS if algorithm == "adam" else 0
+    return Plan(algorithm, dtype, float(share), float(rate), int(batch))
+
+
+def _check_hidden(hidden: int | Sequence[int]) -> tuple[int, ...]:
+    layers = (hidden,) if isinstance(hidden, (int, np.integer)) else tuple(hidden)
+    for width in layers:
+        if isinstance(width, bool) or not isinstance(width, (int, np.integer)) or width < 1:
+            raise SettingError(f"hidden layer sizes must be whole numbers of 1 or more; got {hidden!r} (for example (8,) or (8, 4))")
+    return tuple(int(w) for w in layers)
+
+
+def _validation_rows(n_rows: int, share: float, rng: np.random.Generator, labels: np.ndarray | None) -> np.ndarray:
+    """Mask of inner validation rows for early stopping (stratified for classes when possible)."""
+    if share <= 0 or int(round(share * n_rows)) < 1:
+        return np.zeros(n_rows, dtype=bool)
+    seed = int(rng.integers(2**32))
+    if labels is not None:
+        counts = np.unique(labels, return_counts=True)[1]
+        if counts.min() >= 2:
+            return holdout_mask(n_rows, share, seed, "stratified", labels)
+    return holdout_mask(n_rows, share, seed, "random")
+
+
+def train_member(
+    inputs: np.ndarray,
+    outputs: np.ndarray,
+    labels: np.ndarray | None,
+    sizes: tuple[int, ...],
+    activation: str,
+    head: str,
+    settings: dict[str, Any],
+    plan: Plan,
+    seed: np.random.SeedSequence,
+    progress: ProgressCallback | None = None,
+) -> Member:
+    """Train one network on prepared arrays; pure apart from the progress callback."""
+    rng = np.random.default_rng(seed)
+    theta = network.initial_parameters(sizes, activation, rng)
+    held = _validation_rows(len(inputs), plan.validation_share, rng, labels)
+    dtype = np.float32 if plan.dtype == "float32" else np.float64
+    train = network.Objective(
+        sizes, activation, head, inputs[~held], outputs[~held], settings["decay"], dtype,
+        batch_rows=plan.batch_rows if plan.algorithm in ("gd", "adam") else None,
+    )
+    validation_loss = None
+    if held.any():
+        check = network.Objective(sizes, activation, head, inputs[held], outputs[held], 0.0, dtype)
+        validation_loss = check.data_loss
+    rules = StoppingRules(
+        epochs=settings["epochs"],
+        target_loss=settings["target_loss"],
+        gradient_threshold=settings["gradient_threshold"],
+        tolerance=settings["tolerance"],
+        patience=settings["patience"],
+    )
+    monitor = Monitor(rules, validation_loss, progress)
+    with threadpool_limits(limits=1, user_api="blas"):
+        if plan.algorithm == "lbfgs":
+            theta, reason = optimizers.lbfgs(train, theta, monitor, settings["lbfgs_memory"], settings["tolerance"])
+        elif plan.algorithm in ("rprop+", "irprop+"):
+            theta, reason = optimizers.rprop(
+                train, theta, monitor, plan.algorithm == "irprop+", settings["rprop_increase"],
+                settings["rprop_decrease"], settings["rprop_step"], settings["rprop_step_max"], settings["rprop_step_min"],
+            )
+        elif plan.algorithm == "adam":
+            theta, reason = optimizers.adam(
+                train, theta, monitor, rng, plan.rate, settings["adam_beta1"], settings["adam_beta2"],
+                settings["adam_epsilon"], plan.batch_rows,
+            )
+        else:
+            theta, reason = optimizers.gradient_descent(train, theta, monitor, rng, plan.rate, settings["momentum"], plan.batch_rows)
+    theta = np.array(theta, dtype=np.float64)
+    theta.setflags(write=False)
+    best = monitor.best_epoch if held.any() and monitor.best_theta is not None else monitor.epochs
+    return Member(theta, reason, monitor.epochs, tuple(monitor.training_curve), tuple(monitor.validation_curve), best)
+
+
+def fit(
+    X: Any,
+    y: Any,
+    hidden: int | Sequence[int] = (4,),
+    seed: int = 0,
+    *,
+    categories: Sequence[str] = (),
+    progress: ProgressCallback | None = None,
+    **settings: Any,
+) -> Model:
+    """Train a feed-forward network on rows ``X`` to predict ``y``.
+
+    ``X``: NumPy array, pandas DataFrame (columns kept by name) or list of rows,
+    shape (rows, columns); text columns become categories, and ``categories``
+    names numeric-looking columns to treat as categories too. ``y``: one value
+    or label per row. ``hidden``: widths of the hidden layers, ``()`` for none.
+    ``settings``: see `sheetnet.settings.SETTINGS`. ``progress`` is called after
+    each epoch (only when training a single network).
+
+    >>> import sheetnet
+    >>> model = sheetnet.fit([[0, 0], [0, 1], [1, 0], [1, 1]], [0, 1, 1, 0], hidden=(3,), seed=1)
+    >>> model.predict([[0, 1], [1, 1]]).tolist()
+    [1, 0]
+    """
+    resolved = resolve_settings(settings)
+    layers = _check_hidden(hidden)
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        raise SettingError(f"seed must be a whole number of 0 or more; got {seed!r}")
+    table = read_table(X)
+    target_values = read_target(y)
+    if len(target_values) != table.n_rows:
+        raise LengthMismatchError(
+            f"the inputs have {table.n_rows} rows but the target has {len(target_values)}; give one target value per input row"
+        )
+    if table.n_rows < MIN_ROWS:
+        raise NotEnoughRowsError(f"training needs at least {MIN_ROWS} rows; got {table.n_rows}. Add rows")
+    if not table.names:
+        raise NotEnoughRowsError("the table has no input columns; add at least one column to learn from")
+
+    target = fit_target(target_values, resolved["task"])
+    preparation = fit_preparation(table, categories)
+    inputs = preparation.transform_columns(table.columns)
+    outputs = target.encode(target_values)
+    labels = target.class_indices(target_values) if target.task != "regression" else None
+    sizes = (preparation.width, *layers, target.outputs)
+    plan = plan_training(table.n_rows, resolved)
+
+    seeds = np.random.SeedSequence(int(seed)).spawn(resolved["repeats"])
+    args = (inputs, outputs, labels, sizes, resolved["activation"], target.head, resolved, plan)
+    workers = min(resolved["workers"] or os.cpu_count() or 1, len(seeds))
+    if workers > 1:
+        from joblib import Parallel, delayed
+
+        members = tuple(Parallel(n_jobs=workers)(delayed(train_member)(*args, s) for s in seeds))
+    else:
+        members = tuple(train_member(*args, s, progress=progress) for s in seeds)
+
+    used = dict(resolved)
+    used.update(algorithm=plan.algorithm, precision=plan.dtype, validation_share=plan.validation_share, rate=plan.rate, batch=plan.batch_rows)
+    return Model(preparation, target, sizes, resolved["activation"], members, plan.algorithm, used, int(seed))
