@@ -158,6 +158,8 @@ def lbfgs(
         },
     )
     reason = stop["reason"]
+    if reason is None and monitor.epochs == 0:  # SciPy ended before its first iteration: record the start
+        monitor.end_epoch(result.x, float(result.fun), last_grad["value"])
     if reason is None:
         message = str(result.message).upper()
         reason = "gradient" if "GRADIENT" in message else "stalled"

@@ -1,0 +1,244 @@
+"""fit: what it learns, how it stops, that it repeats itself, and how it refuses bad input."""
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import sheetnet
+from sheetnet import errors
+
+XOR_X = np.array([[0, 0], [0, 1], [1, 0], [1, 1]], dtype=float)
+XOR_Y = np.array([0, 1, 1, 0])
+ALGORITHMS = {"lbfgs": {}, "rprop+": {}, "irprop+": {}, "adam": {"rate": 0.05}, "gd": {"rate": 0.5}}
+
+
+@pytest.mark.parametrize("algorithm", ALGORITHMS)
+@pytest.mark.parametrize("seed", range(4))
+def test_no_network_without_a_hidden_layer_classifies_xor(algorithm, seed):
+    # XOR is not linearly separable (Minsky & Papert 1969), so at least one point is always wrong
+    model = sheetnet.fit(XOR_X, XOR_Y, hidden=(), seed=seed, algorithm=algorithm, epochs=500, **ALGORITHMS[algorithm])
+    assert (model.predict(XOR_X) == XOR_Y).sum() <= 3
+
+
+@pytest.mark.parametrize("algorithm", ALGORITHMS)
+@pytest.mark.parametrize("hidden", [(2,), (3,), (4, 3)])
+def test_a_hidden_layer_classifies_xor(algorithm, hidden):
+    solved = [
+        np.array_equal(
+            sheetnet.fit(XOR_X, XOR_Y, hidden=hidden, seed=seed, algorithm=algorithm, epochs=3000, decay=0.0, **ALGORITHMS[algorithm]).predict(XOR_X),
+            XOR_Y,
+        )
+        for seed in range(3)
+    ]
+    # two hidden units can land in a local minimum from some starts; most starts must solve it
+    assert sum(solved) >= 2
+
+
+def _regression_table(rng, rows=300):
+    X = rng.normal(size=(rows, 3))
+    y = np.sin(X[:, 0]) + X[:, 1] * X[:, 2] + 0.1 * rng.normal(size=rows)
+    return X, y
+
+
+@pytest.mark.parametrize("algorithm", ALGORITHMS)
+def test_same_seed_gives_identical_weights(algorithm, rng):
+    X, y = _regression_table(rng)
+    settings = dict(algorithm=algorithm, epochs=40, **ALGORITHMS[algorithm])
+    first = sheetnet.fit(X, y, hidden=(5,), seed=9, **settings)
+    again = sheetnet.fit(X, y, hidden=(5,), seed=9, **settings)
+    other = sheetnet.fit(X, y, hidden=(5,), seed=10, **settings)
+    np.testing.assert_array_equal(first.members[0].theta, again.members[0].theta)
+    assert not np.array_equal(first.members[0].theta, other.members[0].theta)
+
+
+def test_parallel_repeats_equal_sequential_repeats(rng):
+    X, y = _regression_table(rng, 200)
+    parallel = sheetnet.fit(X, y, hidden=(4,), seed=3, repeats=3, workers=2, epochs=30)
+    sequential = sheetnet.fit(X, y, hidden=(4,), seed=3, repeats=3, workers=1, epochs=30)
+    for a, b in zip(parallel.members, sequential.members):
+        np.testing.assert_array_equal(a.theta, b.theta)
+    spread = parallel.predict_spread(X)
+    np.testing.assert_allclose(spread["mean"], parallel.predict(X), rtol=1e-12)
+    assert spread["std"].min() > 0
+    assert np.all(spread["low"] <= spread["mean"]) and np.all(spread["mean"] <= spread["high"])
+
+
+def test_a_network_learns_a_nonlinear_function(rng):
+    X, y = _regression_table(rng, 600)
+    model = sheetnet.fit(X[:500], y[:500], hidden=(10,), seed=0)
+    assert sheetnet.score(model, X[500:], y[500:])["r2"] > 0.9
+
+
+def test_stopping_rule_epochs_is_recorded(rng):
+    X, y = _regression_table(rng)
+    model = sheetnet.fit(X, y, hidden=(4,), epochs=5, validation_share=0)
+    assert model.stopped_by == "epochs"
+    assert model.epochs == 5 and len(model.loss_curve["training"]) == 5
+    assert model.loss_curve["validation"] == ()
+
+
+def test_stopping_rule_target_loss(rng):
+    X, y = _regression_table(rng)
+    model = sheetnet.fit(X, y, hidden=(8,), target_loss=0.2, validation_share=0)
+    assert model.stopped_by == "target_loss"
+    assert model.loss_curve["training"][-1] <= 0.2 < model.loss_curve["training"][-2]
+
+
+def test_stopping_rule_gradient(rng):
+    X, y = _regression_table(rng)
+    model = sheetnet.fit(X, y, hidden=(4,), gradient_threshold=1e6, validation_share=0)
+    assert model.stopped_by == "gradient" and model.epochs == 1
+
+
+def test_early_stopping_keeps_the_best_validation_epoch(rng):
+    # few noisy rows and a wide network overfit, so the validation loss turns up
+    X = rng.normal(size=(120, 8))
+    y = X[:, 0] + rng.normal(scale=1.0, size=120)
+    model = sheetnet.fit(X, y, hidden=(30,), decay=0.0, validation_share=0.3, patience=5, epochs=2000)
+    member = model.members[0]
+    assert model.stopped_by == "validation"
+    assert len(member.validation_curve) == member.epochs
+    assert member.best_epoch == int(np.argmin(member.validation_curve)) + 1
+    assert member.epochs == member.best_epoch + 5
+
+
+def test_progress_is_reported_each_epoch(rng):
+    X, y = _regression_table(rng)
+    seen = []
+    sheetnet.fit(X, y, hidden=(4,), epochs=6, validation_share=0.2, progress=lambda *args: seen.append(args))
+    assert [s[0] for s in seen] == [1, 2, 3, 4, 5, 6]
+    assert all(s[1] == 6 and s[3] is not None for s in seen)
+
+
+def test_auto_choices_follow_the_table_size(rng):
+    small = sheetnet.fit(*_regression_table(rng, 80), hidden=(3,), epochs=5)
+    assert (small.algorithm, small.settings["precision"], small.settings["validation_share"]) == ("lbfgs", "float64", 0.0)
+    medium = sheetnet.fit(*_regression_table(rng, 1200), hidden=(3,), epochs=5)
+    assert (medium.algorithm, medium.settings["precision"], medium.settings["validation_share"]) == ("lbfgs", "float32", 0.15)
+    large = sheetnet.fit(*_regression_table(rng, 20_000), hidden=(3,), epochs=2)
+    assert (large.algorithm, large.settings["batch"]) == ("adam", 256)
+
+
+def test_labels_of_any_type_come_back_as_given(rng):
+    X = rng.normal(size=(90, 2))
+    index = (X[:, 0] > 0).astype(int) + (X[:, 1] > 0).astype(int)
+    for labels, task in ((np.array(["low", "mid", "top"]), "auto"), (np.array([10, 20, 30]), "auto"), (np.array([1.5, 2.5, 3.5]), "multiclass")):
+        y = labels[index]
+        model = sheetnet.fit(X, y, hidden=(5,), seed=1, task=task)
+        assert model.task == "multiclass"
+        assert set(model.predict(X).tolist()) <= set(labels.tolist())
+        assert (model.predict(X) == y).mean() > 0.8
+    flags = sheetnet.fit(X, X[:, 0] > 0, hidden=(3,))
+    assert flags.task == "binary" and flags.classes == (False, True)
+
+
+def test_binary_threshold_decides_the_class(rng):
+    X = rng.normal(size=(100, 2))
+    y = np.where(X[:, 0] + 0.5 * rng.normal(size=100) > 0, "yes", "no")
+    always = sheetnet.fit(X, y, hidden=(3,), threshold=0.0)
+    assert set(always.predict(X)) == {"yes"}
+    default = sheetnet.fit(X, y, hidden=(3,))
+    p = default.predict_proba(X)
+    np.testing.assert_allclose(p.sum(axis=1), 1.0)
+    assert np.array_equal(default.predict(X) == "yes", p[:, 1] >= 0.5)
+
+
+def test_task_detection(rng):
+    X = rng.normal(size=(200, 2))
+    assert sheetnet.fit(X, rng.normal(size=200), hidden=(2,), epochs=3).task == "regression"
+    assert sheetnet.fit(X, rng.integers(0, 4, 200), hidden=(2,), epochs=3).task == "multiclass"
+    assert sheetnet.fit(X, rng.integers(0, 200, 200), hidden=(2,), epochs=3).task == "regression"
+    assert sheetnet.fit(X, rng.integers(0, 4, 200), hidden=(2,), epochs=3, task="regression").task == "regression"
+
+
+def test_dataframe_columns_are_matched_by_name(rng):
+    frame = pd.DataFrame({"width": rng.normal(size=150), "colour": rng.choice(["red", "blue"], 150), "depth": rng.normal(size=150)})
+    y = frame["width"] * 2 + (frame["colour"] == "red") + rng.normal(scale=0.1, size=150)
+    model = sheetnet.fit(frame, y, hidden=(4,))
+    shuffled = frame[["depth", "colour", "width"]].assign(extra=1.0)
+    np.testing.assert_array_equal(model.predict(frame), model.predict(shuffled))
+    with pytest.raises(errors.UnknownColumnError, match="no column named 'depth'"):
+        model.predict(frame.drop(columns="depth"))
+
+
+def test_out_of_range_rows_are_flagged(rng):
+    X = rng.uniform(0, 1, size=(50, 2))
+    model = sheetnet.fit(X, X.sum(axis=1), hidden=(2,), epochs=5)
+    flags = model.out_of_range(np.array([[0.5, 0.5], [1.5, 0.5], [0.5, -0.2]]))
+    assert flags.tolist() == [False, True, True]
+
+
+# --- bad input --------------------------------------------------------------------------
+
+def test_nan_names_column_and_row():
+    X = [[1.0, 2.0], [3.0, float("nan")], [5.0, 6.0], [7.0, 1.0]]
+    with pytest.raises(errors.BadValueError, match=r"column 'x2', row 2: the cell is blank"):
+        sheetnet.fit(X, [1.0, 2.0, 3.0, 4.0])
+
+
+def test_infinity_is_refused():
+    X = np.array([[1.0], [np.inf], [2.0], [3.0]])
+    with pytest.raises(errors.BadValueError, match="row 2: the value is infinite"):
+        sheetnet.fit(X, [1.0, 2.0, 3.0, 4.0])
+
+
+def test_text_in_a_numeric_column_is_refused():
+    frame = pd.DataFrame({"age": [31, 45, "n/a", 52, 38]})
+    with pytest.raises(errors.BadValueError, match=r"column 'age', row 3: text in a numeric column \('n/a'\)"):
+        sheetnet.fit(frame, [1.0, 2.0, 3.0, 4.0, 5.0])
+
+
+def test_spreadsheet_error_values_are_named():
+    frame = pd.DataFrame({"load": [1.0, "#DIV/0!", 3.0, 2.0]})
+    with pytest.raises(errors.BadValueError, match="spreadsheet error value"):
+        sheetnet.fit(frame, [1.0, 2.0, 3.0, 4.0])
+
+
+def test_too_few_rows():
+    with pytest.raises(errors.NotEnoughRowsError, match="at least 4 rows; got 3"):
+        sheetnet.fit([[1], [2], [3]], [1, 2, 3])
+
+
+def test_constant_target():
+    with pytest.raises(errors.ConstantColumnError, match="target holds the same value"):
+        sheetnet.fit([[1], [2], [3], [4]], [5.0, 5.0, 5.0, 5.0])
+
+
+def test_constant_input_column():
+    with pytest.raises(errors.ConstantColumnError, match="column 'x2' holds the same value"):
+        sheetnet.fit([[1, 7], [2, 7], [3, 7], [4, 7]], [1.0, 2.0, 3.5, 4.0])
+
+
+def test_mismatched_lengths():
+    with pytest.raises(errors.LengthMismatchError, match="5 rows but the target has 4"):
+        sheetnet.fit(np.ones((5, 2)), [1, 2, 3, 4])
+
+
+def test_blank_target_cell():
+    with pytest.raises(errors.BadValueError, match="column 'target', row 2"):
+        sheetnet.fit([[1], [2], [3], [4]], ["a", None, "b", "a"])
+
+
+def test_unknown_category_at_prediction(rng):
+    frame = pd.DataFrame({"x": rng.normal(size=40), "kind": ["a", "b"] * 20})
+    model = sheetnet.fit(frame, rng.normal(size=40), hidden=(2,), epochs=5)
+    with pytest.raises(errors.UnknownCategoryError, match="category 'c' was not in the training rows"):
+        model.predict(pd.DataFrame({"x": [0.1], "kind": ["c"]}))
+
+
+def test_unknown_setting_suggests_the_close_one():
+    with pytest.raises(errors.SettingError, match="did you mean 'epochs'"):
+        sheetnet.fit(XOR_X, XOR_Y, epoch=10)
+
+
+def test_bad_setting_value_says_what_is_accepted():
+    with pytest.raises(errors.SettingError, match="choose one of: auto, gd"):
+        sheetnet.fit(XOR_X, XOR_Y, algorithm="newton")
+    with pytest.raises(errors.SettingError, match="at most 0.5"):
+        sheetnet.fit(XOR_X, XOR_Y, validation_share=0.9)
+
+
+def test_wrong_column_count_at_prediction(rng):
+    model = sheetnet.fit(rng.normal(size=(20, 3)), rng.normal(size=20), hidden=(2,), epochs=3)
+    with pytest.raises(errors.LengthMismatchError, match="2 columns but the model was trained on 3"):
+        model.predict(np.ones((4, 2)))
