@@ -14,6 +14,8 @@ Hierarchy::
     ├── SettingError (ValueError) a setting name or value is not accepted
     └── ModelError                a fitted model cannot answer the request
 
+    SheetnetWarning (UserWarning) the work went ahead, but something deserves a look
+
 Each message says what was received and what to do about it. The core
 raises; only the outermost layers translate errors into cell text, HTTP
 statuses or exit codes.
@@ -70,3 +72,7 @@ class SettingError(SheetnetError, ValueError):
 
 class ModelError(SheetnetError):
     """A fitted model cannot answer this request."""
+
+
+class SheetnetWarning(UserWarning):
+    """The work went ahead, but something in the data deserves a look."""

@@ -94,10 +94,26 @@ class Model:
         return network.unpack(self.members[member].theta, self.sizes)
 
     # --- prediction ------------------------------------------------------------------
+    def __post_init__(self) -> None:
+        layers = [network.unpack(m.theta, self.sizes) for m in self.members]
+        folded = None
+        if self.preparation.all_numeric:
+            mean, scale = self.preparation.numeric_constants()
+            folded = [network.fold_input_scaling(p, mean, scale) for p in layers]
+        object.__setattr__(self, "_layers", layers)
+        object.__setattr__(self, "_folded_layers", folded)  # raw numeric rows skip the scaling pass
+
     def _member_outputs(self, X: Any) -> np.ndarray:
         """Network outputs of every member: shape (members, rows, outputs)."""
+        raw = self.preparation.numeric_rows(X) if self._folded_layers is not None else None  # type: ignore[attr-defined]
+        if raw is not None:
+            try:
+                return np.stack([network.forward_layers(p, self.activation, self.head, raw) for p in self._folded_layers])  # type: ignore[attr-defined]
+            except ValueError:
+                self.preparation.transform(X)  # names the bad cell
+                raise
         inputs = self.preparation.transform(X)
-        return np.stack([network.forward(m.theta, self.sizes, self.activation, self.head, inputs) for m in self.members])
+        return np.stack([network.forward_layers(p, self.activation, self.head, inputs) for p in self._layers])  # type: ignore[attr-defined]
 
     def _values(self, outputs: np.ndarray) -> np.ndarray:
         return outputs[..., 0] * self.target.scale + self.target.mean
@@ -112,9 +128,6 @@ class Model:
         """Class probabilities, shape (rows, classes), averaged over members."""
         if self.task == "regression":
             raise ModelError("this is a regression model; it predicts values, not class probabilities: use predict")
-        inputs = self.preparation.transform(X)
-        if len(self.members) == 1:
-            return self._probabilities(network.forward(self.members[0].theta, self.sizes, self.activation, self.head, inputs))
         return self._probabilities(self._member_outputs(X)).mean(axis=0)
 
     def predict(self, X: Any) -> np.ndarray:
@@ -124,10 +137,6 @@ class Model:
         or above the model's ``threshold`` setting.
         """
         if self.task == "regression":
-            inputs = self.preparation.transform(X)
-            if len(self.members) == 1:
-                out = network.forward(self.members[0].theta, self.sizes, self.activation, self.head, inputs)
-                return out[:, 0] * self.target.scale + self.target.mean
             return self._values(self._member_outputs(X)).mean(axis=0)
         probabilities = self.predict_proba(X)
         if self.task == "binary":

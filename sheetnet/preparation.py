@@ -12,6 +12,7 @@ at prediction) or a list of rows. Rows in messages count data rows from 1.
 from __future__ import annotations
 
 import math
+import warnings
 import numbers
 from dataclasses import dataclass
 from typing import Any, Sequence
@@ -23,6 +24,7 @@ from .errors import (
     ConstantColumnError,
     InputError,
     LengthMismatchError,
+    SheetnetWarning,
     UnknownCategoryError,
     UnknownColumnError,
 )
@@ -254,32 +256,25 @@ class Preparation:
         >>> prep.transform([[2.0], [3.0]]).ravel().tolist()
         [0.0, 1.0]
         """
-        if self.all_numeric and isinstance(X, np.ndarray) and X.dtype.kind in "fiu" and X.ndim == 2:
-            return self._transform_numeric_array(X)
         return self.transform_columns(self.columns_in_order(X))
 
-    def _transform_numeric_array(self, X: np.ndarray) -> np.ndarray:
-        # fast path for the common case: one vectorised check and one affine map
+    def numeric_constants(self) -> tuple[np.ndarray, np.ndarray]:
+        """Means and scales of the inputs (all numeric), as arrays."""
+        return (
+            np.array([s.mean for s in self.inputs]),  # type: ignore[union-attr]
+            np.array([s.scale for s in self.inputs]),  # type: ignore[union-attr]
+        )
+
+    def numeric_rows(self, X: Any) -> np.ndarray | None:
+        """``X`` itself when it is a numeric array of the right width (the fast path), else None."""
+        if not (isinstance(X, np.ndarray) and X.ndim == 2 and X.dtype.kind in "fiu"):
+            return None
         if X.shape[1] != len(self.inputs):
             raise LengthMismatchError(
                 f"the table has {X.shape[1]} columns but the model was trained on {len(self.inputs)} "
                 f"({', '.join(self.names)}); pass the same columns in the same order"
             )
-        mean, scale = self._affine()
-        out = (X - mean) / scale
-        if not np.isfinite(out).all():
-            row, col = np.argwhere(~np.isfinite(out))[0]
-            numbers_of(self.inputs[col].name, X[:, col])  # raises with the row named
-        return out
-
-    def _affine(self) -> tuple[np.ndarray, np.ndarray]:
-        cached = self.__dict__.get("_affine_cache")
-        if cached is None:
-            mean = np.array([s.mean for s in self.inputs])  # type: ignore[union-attr]
-            scale = np.array([s.scale for s in self.inputs])  # type: ignore[union-attr]
-            cached = (mean, scale)
-            object.__setattr__(self, "_affine_cache", cached)
-        return cached
+        return X if X.dtype == np.float64 else X.astype(np.float64)
 
     def transform_columns(self, columns: Sequence[np.ndarray]) -> np.ndarray:
         n = len(columns[0]) if columns else 0
@@ -327,19 +322,26 @@ def fit_preparation(table: RawTable, categories: Sequence[str] = ()) -> Preparat
             texts = texts_of(name, values)
             found = tuple(sorted(set(texts.tolist())))
             if len(found) < 2:
-                raise ConstantColumnError(
-                    f"column '{name}' holds the one category '{found[0]}' in every training row, so it cannot inform the model; remove the column"
-                )
+                _warn_constant(name, repr(found[0]))
             specs.append(CategoryInput(name, found))
         else:
             v = numbers_of(name, values)
             scale = float(v.std())
             if not scale > 0:
-                raise ConstantColumnError(
-                    f"column '{name}' holds the same value ({v[0]:g}) in every training row, so it cannot inform the model; remove the column"
-                )
+                _warn_constant(name, f"{v[0]:g}")
+                scale = 1.0  # the centred column is all zeros: it is carried but adds nothing
             specs.append(NumericInput(name, float(v.mean()), scale, float(v.min()), float(v.max())))
     return Preparation(tuple(specs), table.named)
+
+
+def _warn_constant(name: str, value: str) -> None:
+    warnings.warn(
+        SheetnetWarning(
+            f"column '{name}' holds the same value ({value}) in every training row, so it cannot inform the model; "
+            "it is kept (rows with another value are flagged out of range), but remove it if it should vary"
+        ),
+        stacklevel=4,
+    )
 
 
 # --- targets ------------------------------------------------------------------------------
@@ -396,10 +398,23 @@ class TargetPreparation:
 
     def class_indices(self, y: np.ndarray) -> np.ndarray:
         """Index of each label in `classes`; an unknown label is an `InputError`."""
+        y = np.asarray(y)
+        if y.dtype.kind in "fiub" and _all_plain_numbers(self.classes):
+            known = np.asarray(self.classes, dtype=y.dtype if y.dtype.kind != "b" else bool)
+            index = np.minimum(np.searchsorted(known, y), len(known) - 1)
+            unknown = known[index] != y
+            if unknown.any():
+                row = int(np.argmax(unknown))
+                raise UnknownCategoryError(
+                    f"target row {row + 1}: class {_plain(y[row])!r} was not in the training rows (known: {', '.join(map(str, self.classes))})"
+                )
+            return index.astype(np.int64)
         where = {label: i for i, label in enumerate(self.classes)}
         out = np.empty(len(y), dtype=np.int64)
         for i, label in enumerate(y):
             label = _plain(label)
+            if isinstance(label, str):
+                label = label.strip()
             if label not in where:
                 raise UnknownCategoryError(
                     f"target row {i + 1}: class {label!r} was not in the training rows (known: {', '.join(map(str, self.classes))})"
@@ -417,7 +432,13 @@ class TargetPreparation:
         return np.eye(len(self.classes))[index]
 
 
+def _all_plain_numbers(values: Sequence[Any]) -> bool:
+    return all(isinstance(v, (int, float, bool)) for v in values)
+
+
 def _target_labels(y: np.ndarray) -> list[Any]:
+    if y.dtype.kind in "fiub":  # numbers were checked finite by the caller
+        return np.unique(y).tolist()
     labels = []
     for i, value in enumerate(y):
         kind = _cell_kind(value)
@@ -447,6 +468,8 @@ def fit_target(y: np.ndarray, task: str = "auto") -> TargetPreparation:
         if not scale > 0:
             raise ConstantColumnError(f"the target holds the same value ({values[0]:g}) in every training row; there is nothing to learn")
         return TargetPreparation("regression", float(values.mean()), scale)
+    if y.dtype.kind == "f":
+        numbers_of("target", y)  # a blank (NaN) or infinite label is named
     labels = _target_labels(y)
     classes = _sorted_labels(labels)
     if len(classes) < 2:

@@ -67,6 +67,12 @@ def holdout_mask(
 
 
 def _groups(labels: Sequence[Any] | np.ndarray) -> dict[Any, np.ndarray]:
+    array = np.asarray(labels)
+    if array.dtype.kind in "iub":
+        values, inverse = np.unique(array, return_inverse=True)
+        order = np.argsort(inverse, kind="stable")
+        bounds = np.cumsum(np.bincount(inverse, minlength=len(values)))[:-1]
+        return {v: rows for v, rows in zip(values.tolist(), np.split(order, bounds))}
     where: dict[Any, list[int]] = {}
     for i, label in enumerate(labels):
         key = label.item() if isinstance(label, np.generic) else label

@@ -204,9 +204,10 @@ def test_constant_target():
         sheetnet.fit([[1], [2], [3], [4]], [5.0, 5.0, 5.0, 5.0])
 
 
-def test_constant_input_column():
-    with pytest.raises(errors.ConstantColumnError, match="column 'x2' holds the same value"):
-        sheetnet.fit([[1, 7], [2, 7], [3, 7], [4, 7]], [1.0, 2.0, 3.5, 4.0])
+def test_constant_input_column_is_kept_with_a_warning():
+    with pytest.warns(errors.SheetnetWarning, match="column 'x2' holds the same value"):
+        model = sheetnet.fit([[1, 7], [2, 7], [3, 7], [4, 7]], [1.0, 2.0, 3.5, 4.0], hidden=(2,))
+    assert model.out_of_range(np.array([[2.0, 7.0], [2.0, 8.0]])).tolist() == [False, True]
 
 
 def test_mismatched_lengths():
