@@ -2,10 +2,13 @@
 
 Pure NumPy, no I/O. A network with layer sizes ``(n0, n1, ..., nL)`` has, for
 each layer ``l``, weights ``W_l`` of shape ``(n_{l-1}, n_l)`` and biases ``b_l``
-of shape ``(n_l,)``. Rows are samples, so ``Z_l = A_{l-1} @ W_l + b_l`` adds
-the bias along contiguous memory. All parameters travel as one flat vector
-laid out ``[W_1, b_1, W_2, b_2, ...]`` (each ``W`` row-major); `unpack` gives
-views into it, so optimizers see a single vector and nothing is copied.
+of shape ``(n_l,)``; for rows ``A`` (one sample per row) a layer computes
+``A @ W_l + b_l``. Internally activations are held transposed, one *column*
+per sample (``Z_l^T = W_l^T A_{l-1}^T + b_l``), so that bias additions,
+bias gradients and softmax sums run along contiguous memory instead of along
+short rows. All parameters travel as one flat vector laid out
+``[W_1, b_1, W_2, b_2, ...]`` (each ``W`` row-major); `unpack` gives views
+into it, so optimizers see a single vector and nothing is copied.
 
 The training objective on ``m`` rows of a table with ``N`` training rows is::
 
@@ -87,15 +90,16 @@ ACTIVATIONS: dict[str, Activation] = {
 
 
 # --- output heads: output function paired with its loss ------------------------------------
-# For each canonical pairing the gradient of the summed loss with respect to
-# the output layer's pre-activation z is simply (a - y).
+# Heads see transposed arrays: shape (outputs, samples). For each canonical
+# pairing the gradient of the summed loss with respect to the output layer's
+# pre-activation z is simply (a - y).
 
 @dataclass(frozen=True)
 class Head:
     name: str
     # (z, out) -> out = f(z); returns what the loss can reuse (the softmax log-normaliser) or None
     output: Callable[[Array, Array], Array | None]
-    # (z, a, y, reused) -> loss summed over rows, as a float64 number
+    # (z, a, y, reused) -> loss summed over samples, as a float64 number
     summed_loss: Callable[[Array, Array, Array, Array | None], float]
 
 
@@ -120,26 +124,17 @@ def _binary_cross_entropy(z: Array, a: Array, y: Array, reused: Array | None) ->
 
 
 def _softmax_output(z: Array, out: Array) -> Array:
-    """Softmax by rows; returns each row's log-normaliser log(sum_k exp(z_k))."""
-    # one shift by the overall maximum avoids a slow reduction along each short row;
-    # rows far below it could underflow, and then the exact per-row shift is used
-    top = z.max()
+    """Softmax over the classes (axis 0); returns each sample's log(sum_k exp(z_k))."""
+    top = z.max(axis=0)
     np.subtract(z, top, out=out)
     np.exp(out, out=out)
-    total = out @ np.ones(out.shape[1], out.dtype)
-    if not np.all(total > np.finfo(out.dtype).tiny):
-        row_top = z.max(axis=1, keepdims=True)
-        np.subtract(z, row_top, out=out)
-        np.exp(out, out=out)
-        total = out.sum(axis=1)
-        out /= total[:, None]
-        return np.log(total) + row_top[:, 0]
-    out /= total[:, None]
+    total = out.sum(axis=0)
+    out /= total
     return np.log(total) + top
 
 
 def _cross_entropy(z: Array, a: Array, y: Array, log_normaliser: Array | None) -> float:
-    # sum_i [log sum_k exp(z_ik) - sum_k y_ik z_ik]
+    # sum_i [log sum_k exp(z_ki) - sum_k y_ki z_ki]
     assert log_normaliser is not None
     return float(np.sum(log_normaliser, dtype=np.float64) - np.sum(y * z, dtype=np.float64))
 
@@ -202,7 +197,7 @@ def initial_parameters(sizes: Sequence[int], activation: str, rng: np.random.Gen
 
 # --- prediction ---------------------------------------------------------------------------
 
-PREDICT_CHUNK_ROWS = 1024  # rows per block: keeps each layer's intermediate block in cache
+PREDICT_CHUNK_ROWS = 1024  # samples per block: keeps each layer's intermediate block in cache
 
 
 def forward_layers(params: Sequence[tuple[Array, Array]], activation: str, head: str, X: Array) -> Array:
@@ -213,19 +208,23 @@ def forward_layers(params: Sequence[tuple[Array, Array]], activation: str, head:
     """
     act = ACTIVATIONS[activation]
     output = HEADS[head].output
+    columns = [(w.T, b[:, None]) for w, b in params]
     result = np.empty((len(X), params[-1][0].shape[1]))
     for start in range(0, len(X), PREDICT_CHUNK_ROWS):
-        a = X[start:start + PREDICT_CHUNK_ROWS]
-        if not np.isfinite(a.sum()):
+        block = X[start:start + PREDICT_CHUNK_ROWS]
+        if not np.isfinite(block.sum()):
             raise ValueError("non-finite input")
-        for w, b in params[:-1]:
-            a = a @ w
+        a = block.T
+        for wt, b in columns[:-1]:
+            a = wt @ a
             a += b
             act.forward(a)
-        w, b = params[-1]
-        z = a @ w
+        wt, b = columns[-1]
+        z = wt @ a
         z += b
-        output(z, result[start:start + PREDICT_CHUNK_ROWS])
+        out = np.empty_like(z)
+        output(z, out)
+        result[start:start + PREDICT_CHUNK_ROWS] = out.T
     return result
 
 
@@ -244,12 +243,23 @@ def fold_input_scaling(params: Sequence[tuple[Array, Array]], mean: Array, scale
 
 # --- training objective with preallocated buffers -----------------------------------------
 
+class _Buffers:
+    """Work arrays for batches of one size, one column per sample."""
+
+    def __init__(self, sizes: Sequence[int], rows: int, dtype: np.dtype) -> None:
+        self.a = [np.empty((n, rows), dtype) for n in sizes[1:]]  # activated outputs
+        self.z_out = np.empty((sizes[-1], rows), dtype)  # output pre-activation
+        self.delta = [np.empty((n, rows), dtype) for n in sizes[1:]]
+        self.scratch = [np.empty((n, rows), dtype) for n in sizes[1:]]
+        self.ones = np.ones(rows, dtype)
+
+
 class Objective:
     """Loss and gradient of the training objective over a table of rows.
 
-    Holds the rows in the compute dtype and every buffer the forward and
-    backward passes need, so an evaluation allocates almost nothing. Call it
-    as ``loss, grad = objective(theta)`` for all rows or
+    Holds the rows (transposed) in the compute dtype and every buffer the
+    forward and backward passes need, so an evaluation allocates almost
+    nothing. Call it as ``loss, grad = objective(theta)`` for all rows or
     ``objective(theta, start, stop)`` for the contiguous batch of rows
     ``start:stop``; `shuffle` reorders the rows in place between epochs.
     ``grad`` is a fresh float64 array; ``loss`` is a Python float summed in
@@ -271,19 +281,17 @@ class Objective:
         self.activation = ACTIVATIONS[activation]
         self.head = HEADS[head]
         self.dtype = np.dtype(dtype)
-        self.X = np.ascontiguousarray(X, dtype=self.dtype)
-        self.Y = np.ascontiguousarray(Y, dtype=self.dtype).reshape(len(self.X), self.sizes[-1])
-        self.n_rows = len(self.X)
+        self.n_rows = len(X)
+        self.XT = np.ascontiguousarray(np.asarray(X, dtype=self.dtype).T)
+        self.YT = np.ascontiguousarray(np.asarray(Y, dtype=self.dtype).reshape(self.n_rows, self.sizes[-1]).T)
         self.decay = float(decay)
-        rows = self.n_rows if not batch_rows else min(int(batch_rows), self.n_rows)
         self._layout = layout(self.sizes)
-        self._a = [np.empty((rows, n), self.dtype) for n in self.sizes[1:]]  # activated outputs
-        self._z_out = np.empty((rows, self.sizes[-1]), self.dtype)  # output pre-activation
-        self._delta = [np.empty((rows, n), self.dtype) for n in self.sizes[1:]]
-        self._scratch = [np.empty((rows, n), self.dtype) for n in self.sizes[1:]]
+        self._buffers: dict[int, _Buffers] = {}
+        self._reused: Array | None = None
         self._theta = np.empty(parameter_count(self.sizes), self.dtype)
         self._grad = np.empty(parameter_count(self.sizes), self.dtype)
-        self._reused: Array | None = None
+        self._params = [(self._theta[w].reshape(shape), self._theta[b]) for w, shape, b in self._layout]
+        self._grads = [(self._grad[w].reshape(shape), self._grad[b]) for w, shape, b in self._layout]
         self._weight_mask = np.zeros(parameter_count(self.sizes), bool)
         for w, _, _ in self._layout:
             self._weight_mask[w] = True
@@ -291,59 +299,65 @@ class Objective:
     def shuffle(self, rng: np.random.Generator) -> None:
         """Reorder the rows (inputs and targets together) for the next epoch."""
         order = rng.permutation(self.n_rows)
-        self.X[:] = self.X[order]
-        self.Y[:] = self.Y[order]
+        self.XT[:] = self.XT[:, order]
+        self.YT[:] = self.YT[:, order]
 
     def penalty(self, theta: Array) -> float:
         w = theta[self._weight_mask]
         return 0.5 * self.decay * float(np.dot(w, w))
 
-    def _forward(self, rows: int, start: int, stop: int) -> tuple[Array, Array]:
-        params = [(self._theta[w].reshape(shape), self._theta[b]) for w, shape, b in self._layout]
-        a_prev = self.X[start:stop]
-        last = len(params) - 1
-        for l, (w, b) in enumerate(params):
-            out = self._z_out[:rows] if l == last else self._a[l][:rows]
-            np.matmul(a_prev, w, out=out)
-            out += b
+    def _work(self, rows: int) -> _Buffers:
+        work = self._buffers.get(rows)
+        if work is None:
+            work = self._buffers[rows] = _Buffers(self.sizes, rows, self.dtype)
+        return work
+
+    def _forward(self, work: _Buffers, start: int, stop: int) -> tuple[Array, Array]:
+        a_prev = self.XT[:, start:stop]
+        last = len(self._params) - 1
+        for l, (w, b) in enumerate(self._params):
+            out = work.z_out if l == last else work.a[l]
+            np.matmul(w.T, a_prev, out=out)
+            out += b[:, None]
             if l != last:
                 self.activation.forward(out)
             a_prev = out
-        z = self._z_out[:rows]
-        a = self._a[last][:rows]
+        z, a = work.z_out, work.a[last]
         self._reused = self.head.output(z, a)
         return z, a
 
     def data_loss(self, theta: Array, start: int = 0, stop: int | None = None) -> float:
         """Mean loss per row without the penalty (used for validation curves)."""
         stop = self.n_rows if stop is None else stop
-        rows = stop - start
         self._theta[:] = theta
-        z, a = self._forward(rows, start, stop)
-        return self.head.summed_loss(z, a, self.Y[start:stop], self._reused) / rows
+        z, a = self._forward(self._work(stop - start), start, stop)
+        return self.head.summed_loss(z, a, self.YT[:, start:stop], self._reused) / (stop - start)
 
     def __call__(self, theta: Array, start: int = 0, stop: int | None = None) -> tuple[float, Array]:
         stop = self.n_rows if stop is None else stop
         rows = stop - start
+        work = self._work(rows)
         self._theta[:] = theta
-        params = [(self._theta[w].reshape(shape), self._theta[b]) for w, shape, b in self._layout]
-        grads = [(self._grad[w].reshape(shape), self._grad[b]) for w, shape, b in self._layout]
-        z, a = self._forward(rows, start, stop)
-        y = self.Y[start:stop]
+        z, a = self._forward(work, start, stop)
+        y = self.YT[:, start:stop]
         loss = self.head.summed_loss(z, a, y, self._reused)
 
-        last = len(params) - 1
-        delta = self._delta[last][:rows]
+        last = len(self._params) - 1
+        delta = work.delta[last]
         np.subtract(a, y, out=delta)
         for l in range(last, -1, -1):
-            a_prev = self.X[start:stop] if l == 0 else self._a[l - 1][:rows]
-            gw, gb = grads[l]
-            np.matmul(a_prev.T, delta, out=gw)
-            np.sum(delta, axis=0, out=gb)
+            a_prev = self.XT[:, start:stop] if l == 0 else work.a[l - 1]
+            gw, gb = self._grads[l]
+            np.matmul(a_prev, delta.T, out=gw)
+            np.matmul(delta, work.ones, out=gb)
             if l > 0:
-                delta_prev = self._delta[l - 1][:rows]
-                np.matmul(delta, params[l][0].T, out=delta_prev)
-                self.activation.scale_by_derivative(delta_prev, a_prev, self._scratch[l - 1][:rows])
+                w = self._params[l][0]
+                delta_prev = work.delta[l - 1]
+                if w.shape[1] == 1:
+                    np.multiply(w, delta, out=delta_prev)  # an outer product; matmul is slow for inner size 1
+                else:
+                    np.matmul(w, delta, out=delta_prev)
+                self.activation.scale_by_derivative(delta_prev, a_prev, work.scratch[l - 1])
                 delta = delta_prev
 
         grad = self._grad.astype(np.float64)
