@@ -282,8 +282,15 @@ class Objective:
         self.head = HEADS[head]
         self.dtype = np.dtype(dtype)
         self.n_rows = len(X)
-        self.XT = np.ascontiguousarray(np.asarray(X, dtype=self.dtype).T)
-        self.YT = np.ascontiguousarray(np.asarray(Y, dtype=self.dtype).reshape(self.n_rows, self.sizes[-1]).T)
+        rows = np.asarray(X, dtype=self.dtype)
+        targets = np.asarray(Y, dtype=self.dtype).reshape(self.n_rows, self.sizes[-1])
+        # full batches read the rows transposed and contiguous; mini-batches keep them row-major,
+        # because reshuffling gathers whole rows quickly while gathering columns does not
+        self._row_major = bool(batch_rows) and int(batch_rows) < self.n_rows
+        if self._row_major:
+            self._X, self._Y = np.ascontiguousarray(rows), np.ascontiguousarray(targets)
+        else:
+            self._X, self._Y = np.ascontiguousarray(rows.T), np.ascontiguousarray(targets.T)
         self.decay = float(decay)
         self._layout = layout(self.sizes)
         self._buffers: dict[int, _Buffers] = {}
@@ -299,8 +306,19 @@ class Objective:
     def shuffle(self, rng: np.random.Generator) -> None:
         """Reorder the rows (inputs and targets together) for the next epoch."""
         order = rng.permutation(self.n_rows)
-        self.XT[:] = self.XT[:, order]
-        self.YT[:] = self.YT[:, order]
+        if self._row_major:
+            self._X[:] = self._X[order]
+            self._Y[:] = self._Y[order]
+        else:
+            self._X[:] = self._X[:, order]
+            self._Y[:] = self._Y[:, order]
+
+    def _inputs(self, start: int, stop: int) -> Array:
+        """Rows start:stop as columns, shape (inputs, rows)."""
+        return self._X[start:stop].T if self._row_major else self._X[:, start:stop]
+
+    def _targets(self, start: int, stop: int) -> Array:
+        return self._Y[start:stop].T if self._row_major else self._Y[:, start:stop]
 
     def penalty(self, theta: Array) -> float:
         w = theta[self._weight_mask]
@@ -313,7 +331,7 @@ class Objective:
         return work
 
     def _forward(self, work: _Buffers, start: int, stop: int) -> tuple[Array, Array]:
-        a_prev = self.XT[:, start:stop]
+        a_prev = self._inputs(start, stop)
         last = len(self._params) - 1
         for l, (w, b) in enumerate(self._params):
             out = work.z_out if l == last else work.a[l]
@@ -331,7 +349,7 @@ class Objective:
         stop = self.n_rows if stop is None else stop
         self._theta[:] = theta
         z, a = self._forward(self._work(stop - start), start, stop)
-        return self.head.summed_loss(z, a, self.YT[:, start:stop], self._reused) / (stop - start)
+        return self.head.summed_loss(z, a, self._targets(start, stop), self._reused) / (stop - start)
 
     def __call__(self, theta: Array, start: int = 0, stop: int | None = None) -> tuple[float, Array]:
         stop = self.n_rows if stop is None else stop
@@ -339,14 +357,14 @@ class Objective:
         work = self._work(rows)
         self._theta[:] = theta
         z, a = self._forward(work, start, stop)
-        y = self.YT[:, start:stop]
+        y = self._targets(start, stop)
         loss = self.head.summed_loss(z, a, y, self._reused)
 
         last = len(self._params) - 1
         delta = work.delta[last]
         np.subtract(a, y, out=delta)
         for l in range(last, -1, -1):
-            a_prev = self.XT[:, start:stop] if l == 0 else work.a[l - 1]
+            a_prev = self._inputs(start, stop) if l == 0 else work.a[l - 1]
             gw, gb = self._grads[l]
             np.matmul(a_prev, delta.T, out=gw)
             np.matmul(delta, work.ones, out=gb)

@@ -115,8 +115,8 @@ def test_auto_choices_follow_the_table_size(rng):
     assert (small.algorithm, small.settings["precision"], small.settings["validation_share"]) == ("lbfgs", "float64", 0.0)
     medium = sheetnet.fit(*_regression_table(rng, 1200), hidden=(3,), epochs=5)
     assert (medium.algorithm, medium.settings["precision"], medium.settings["validation_share"]) == ("lbfgs", "float32", 0.15)
-    large = sheetnet.fit(*_regression_table(rng, 20_000), hidden=(3,), epochs=2)
-    assert (large.algorithm, large.settings["batch"]) == ("adam", 256)
+    large = sheetnet.fit(*_regression_table(rng, 50_000), hidden=(3,), epochs=2)
+    assert (large.algorithm, large.settings["batch"], large.settings["rate"]) == ("adam", 512, 0.005)
 
 
 def test_labels_of_any_type_come_back_as_given(rng):

@@ -1,0 +1,78 @@
+"""Holdout evaluation, cross-validation and permutation importance."""
+
+import numpy as np
+import pytest
+from sklearn.base import BaseEstimator, RegressorMixin
+from sklearn.inspection import permutation_importance as reference_importance
+
+import sheetnet
+
+
+def _signal_and_noise(rng, rows=400):
+    X = rng.normal(size=(rows, 3))
+    y = 3 * X[:, 0] + 0.5 * X[:, 1] + 0.1 * rng.normal(size=rows)  # column 3 is pure noise
+    return X, y
+
+
+def test_holdout_evaluation_trains_only_on_the_other_rows(rng):
+    X, y = _signal_and_noise(rng)
+    result = sheetnet.holdout_evaluation(X, y, share=0.25, seed=2, hidden=(3,))
+    assert result.holdout.sum() == 100
+    assert result.metrics["r2"] > 0.95
+    expected = sheetnet.fit(X[~result.holdout], y[~result.holdout], hidden=(3,), seed=2)
+    np.testing.assert_array_equal(expected.members[0].theta, result.model.members[0].theta)
+
+
+def test_holdout_evaluation_is_stratified_for_classes(rng):
+    X = rng.normal(size=(200, 2))
+    y = np.where(X[:, 0] > 1.0, "rare", "common")
+    result = sheetnet.holdout_evaluation(X, y, share=0.25, hidden=(2,))
+    rare = (y == "rare")
+    assert abs(rare[result.holdout].mean() - rare.mean()) < 0.02
+
+
+def test_cross_validation_scores_every_fold(rng):
+    X, y = _signal_and_noise(rng, 200)
+    result = sheetnet.cross_validate(X, y, k=4, hidden=(3,))
+    assert len(result["folds"]) == 4
+    assert result["mean"]["rmse"] == pytest.approx(np.mean([f["rmse"] for f in result["folds"]]))
+    assert result["mean"]["r2"] > 0.9
+
+
+class _Wrapped(RegressorMixin, BaseEstimator):
+    """A scikit-learn estimator around a fitted sheetnet model, for the reference call."""
+
+    def __init__(self, model=None):
+        self.model = model
+
+    def fit(self, X, y):
+        return self
+
+    def predict(self, X):
+        return self.model.predict(X)
+
+
+def test_permutation_importance_ranks_inputs_like_scikit_learn(rng):
+    # reference: sklearn.inspection.permutation_importance with RMSE as the score
+    X, y = _signal_and_noise(rng)
+    model = sheetnet.fit(X[:300], y[:300], hidden=(4,), seed=0)
+    ours = sheetnet.permutation_importance(model, X[300:], y[300:], repeats=30, seed=1)
+    assert [name for name, _, _ in ours] == ["x1", "x2", "x3"]
+    theirs = reference_importance(
+        _Wrapped(model), X[300:], y[300:], scoring="neg_root_mean_squared_error", n_repeats=30, random_state=1
+    )
+    by_name = {name: mean for name, mean, _ in ours}
+    for j, name in enumerate(["x1", "x2", "x3"]):
+        # different random permutations: agree within 10 % of the largest importance
+        assert by_name[name] == pytest.approx(theirs.importances_mean[j], abs=0.1 * theirs.importances_mean.max())
+    assert abs(by_name["x3"]) < 0.05 * by_name["x1"]
+
+
+def test_score_of_a_binary_model_uses_its_threshold(rng):
+    X = rng.normal(size=(300, 2))
+    y = np.where(X[:, 0] + rng.normal(scale=0.8, size=300) > 0, "yes", "no")
+    model = sheetnet.fit(X, y, hidden=(2,), threshold=0.9)
+    found = sheetnet.score(model, X, y)
+    predicted = model.predict(X)
+    assert found["accuracy"] == pytest.approx((predicted == y).mean())
+    assert found["confusion"][:, 1].sum() == (predicted == "yes").sum()
