@@ -12,6 +12,7 @@ Hierarchy::
     │   ├── UnknownColumnError    a column the model needs is missing
     │   └── SplitError            a holdout or fold split cannot be made
     ├── SettingError (ValueError) a setting name or value is not accepted
+    ├── TrainingError             training diverged (the loss became infinite or not a number)
     └── ModelError                a fitted model cannot answer the request
 
     SheetnetWarning (UserWarning) the work went ahead, but something deserves a look
@@ -68,6 +69,10 @@ class SplitError(InputError):
 
 class SettingError(SheetnetError, ValueError):
     """A setting name or value is not accepted."""
+
+
+class TrainingError(SheetnetError):
+    """Training diverged: the loss became infinite or not a number."""
 
 
 class ModelError(SheetnetError):

@@ -13,7 +13,9 @@ Rprop, which use all rows at each step). The rules, checked in this order:
 - ``epochs``: the most epochs were used.
 
 An algorithm may also end by itself (L-BFGS when its line search cannot
-improve further); it then reports ``stalled``.
+improve further); it then reports ``stalled``. A training loss that becomes
+infinite, or a million times that of the first epoch, ends training as
+``diverged``, which `fit` turns into a `TrainingError`.
 """
 
 from __future__ import annotations
@@ -24,6 +26,7 @@ from typing import Callable
 import numpy as np
 
 STOP_REASONS = ("target_loss", "gradient", "validation", "stalled", "epochs")
+DIVERGED_FACTOR = 1e6  # a training loss this many times the first epoch's means the steps are too large
 
 # progress(epoch, most_epochs, training_loss, validation_loss or None)
 ProgressCallback = Callable[[int, int, float, float | None], None]
@@ -80,8 +83,8 @@ class Monitor:
         if self.progress is not None:
             self.progress(self.epochs, self.rules.epochs, float(training_loss), validation)
 
-        if not np.isfinite(training_loss):
-            return "stalled"
+        if not np.isfinite(training_loss) or training_loss > DIVERGED_FACTOR * self.training_curve[0]:
+            return "diverged"
         if self.rules.target_loss > 0 and training_loss <= self.rules.target_loss:
             return "target_loss"
         if gradient_size <= self.rules.gradient_threshold:

@@ -9,6 +9,7 @@ and seed give identical weights.
 from __future__ import annotations
 
 import os
+from types import MappingProxyType
 from dataclasses import dataclass
 from typing import Any, Sequence
 
@@ -16,7 +17,7 @@ import numpy as np
 from threadpoolctl import ThreadpoolController
 
 from . import network, optimizers
-from .errors import LengthMismatchError, NotEnoughRowsError, SettingError
+from .errors import LengthMismatchError, NotEnoughRowsError, SettingError, TrainingError
 from .model import Member, Model
 from .preparation import fit_preparation, fit_target, read_table, read_target
 from .settings import resolve_settings
@@ -147,6 +148,11 @@ def train_member(
         else:
             theta, reason = optimizers.gradient_descent(train, theta, monitor, rng, plan.rate, settings["momentum"], plan.batch_rows)
     theta = np.array(theta, dtype=np.float64)
+    if reason == "diverged" or not np.isfinite(theta).all():
+        raise TrainingError(
+            f"training diverged at epoch {monitor.epochs} with algorithm {plan.algorithm}: the loss became infinite or not a number; "
+            "lower the setting 'rate', or use algorithm 'lbfgs' or 'irprop+', which choose their own step sizes"
+        )
     theta.setflags(write=False)
     best = monitor.best_epoch if held.any() and monitor.best_theta is not None else monitor.epochs
     return Member(theta, reason, monitor.epochs, tuple(monitor.training_curve), tuple(monitor.validation_curve), best)
@@ -211,4 +217,4 @@ def fit(
 
     used = dict(resolved)
     used.update(algorithm=plan.algorithm, precision=plan.dtype, validation_share=plan.validation_share, rate=plan.rate, batch=plan.batch_rows)
-    return Model(preparation, target, sizes, resolved["activation"], members, plan.algorithm, used, int(seed))
+    return Model(preparation, target, sizes, resolved["activation"], members, plan.algorithm, MappingProxyType(used), int(seed))

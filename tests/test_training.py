@@ -243,3 +243,17 @@ def test_wrong_column_count_at_prediction(rng):
     model = sheetnet.fit(rng.normal(size=(20, 3)), rng.normal(size=20), hidden=(2,), epochs=3)
     with pytest.raises(errors.LengthMismatchError, match="2 columns but the model was trained on 3"):
         model.predict(np.ones((4, 2)))
+
+
+def test_divergence_is_reported_with_a_fix(rng):
+    X, y = _regression_table(rng)
+    with pytest.raises(errors.TrainingError, match="lower the setting 'rate'"):
+        sheetnet.fit(X, y, hidden=(4,), algorithm="gd", rate=1e6, epochs=50)
+
+
+def test_a_fitted_model_cannot_be_changed(rng):
+    model = sheetnet.fit(*_regression_table(rng, 50), hidden=(2,), epochs=3)
+    with pytest.raises(ValueError):
+        model.members[0].theta[0] = 1.0
+    with pytest.raises(TypeError):
+        model.settings["epochs"] = 7

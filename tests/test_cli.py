@@ -1,0 +1,44 @@
+"""The command line, called in-process and as the installed console script."""
+
+import subprocess
+import sys
+from pathlib import Path
+
+from sheetnet import cli
+from sheetnet.settings import settings_table_markdown
+
+
+def test_demo_trains_and_reports_every_scenario(capsys):
+    assert cli.main(["demo"]) == 0
+    out = capsys.readouterr().out
+    for heading in ("1. Cold-chain shipments", "2. Depot parcels per week", "3. Coffee lots"):
+        assert heading in out
+    assert out.count("stopped by") == 3
+    assert "naive last-week RMSE" in out
+    assert "decision aid" in out and "bias" in out and "local law" in out
+    accuracy = float(out.split("accuracy")[1].split()[0])
+    assert 0.7 < accuracy <= 1.0
+
+
+def test_settings_prints_the_documented_table(capsys):
+    assert cli.main(["settings"]) == 0
+    assert capsys.readouterr().out.strip() == settings_table_markdown()
+
+
+def test_sheetnet_errors_become_one_line_and_exit_code_1(monkeypatch, capsys):
+    def broken(seed, out):
+        from sheetnet.errors import NotEnoughRowsError
+
+        raise NotEnoughRowsError("training needs at least 4 rows; got 3. Add rows")
+
+    monkeypatch.setattr(cli, "run_demo", broken)
+    assert cli.main(["demo"]) == 1
+    assert capsys.readouterr().err.strip() == "NotEnoughRowsError: training needs at least 4 rows; got 3. Add rows"
+
+
+def test_console_script_is_installed():
+    script = Path(sys.executable).parent / "sheetnet"  # installed beside the interpreter running the tests
+    assert script.exists(), "install the project (pip install '.[dev]') so that the sheetnet command exists"
+    done = subprocess.run([str(script), "--version"], capture_output=True, text=True, timeout=60)
+    assert done.returncode == 0
+    assert done.stdout.startswith("sheetnet ")
