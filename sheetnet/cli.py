@@ -9,9 +9,9 @@ from __future__ import annotations
 import argparse
 import sys
 import time
+from pathlib import Path
 from typing import Any, Sequence, TextIO
 
-import numpy as np
 
 from . import __version__
 from .errors import SheetnetError
@@ -61,56 +61,43 @@ def _print_metrics(metrics: dict[str, Any], out: TextIO) -> None:
             out.write(f"      {str(label):<10} " + " ".join(f"{n:>5d}" for n in row) + "\n")
 
 
-def run_demo(seed: int, out: TextIO) -> int:
-    """Train and check a model on each invented scenario; print holdout metrics."""
-    import sheetnet_demo as scenes
+def run_demo(seed: int, out: TextIO, pictures: Path | None = None) -> int:
+    """Train and check a model on each invented scenario; print holdout metrics, draw pictures."""
+    import sheetnet_demo
 
-    from .evaluation import score, take_rows
-    from .metrics import regression_metrics, rmse
-    from .splits import holdout_mask
     from .training import fit
 
-    out.write(f"sheetnet {__version__}: demo on invented data (seed {seed})\n\n")
-
-    shipments = scenes.cold_chain_shipments(seed=seed + 7)
-    inputs = shipments.drop(columns=["shipment", "spoiled"])
-    held = holdout_mask(len(shipments), 0.25, seed, "stratified", shipments["spoiled"].to_numpy())
-    bar = ProgressLine("shipments")
-    model = fit(take_rows(inputs, ~held), shipments["spoiled"][~held], hidden=(6,), seed=seed, progress=bar)
-    bar.done()
-    out.write(f"1. Cold-chain shipments: spoiled yes/no, {len(shipments)} rows, {held.sum()} held out\n")
-    out.write(f"   network {model.sizes}, {model.algorithm}, stopped by '{model.stopped_by}' after {model.epochs} epochs\n")
-    _print_metrics(score(model, take_rows(inputs, held), shipments["spoiled"][held]), out)
-
-    weeks = scenes.depot_parcel_weeks(seed=seed + 11)
-    lags = 4
-    level = weeks["parcels"].to_numpy(dtype=np.float64)
-    change = np.diff(level)  # change[t] = level[t + 1] - level[t]: forecasting changes extrapolates the trend
-    week = weeks["week_of_year"].to_numpy()[lags + 1:]
-    table = np.column_stack([scenes.lagged(change, lags), np.sin(2 * np.pi * week / 52), np.cos(2 * np.pi * week / 52)])
-    target = change[lags:]
-    last_week, actual = level[lags:-1], level[lags + 1:]
-    held = holdout_mask(len(target), 0.2, mode="ordered")
-    bar = ProgressLine("parcels")
-    model = fit(table[~held], target[~held], hidden=(4,), seed=seed, progress=bar)
-    bar.done()
-    out.write(f"\n2. Depot parcels per week: next week from the last {lags} weekly changes and the season, last {held.sum()} weeks held out\n")
-    out.write(f"   network {model.sizes}, {model.algorithm}, stopped by '{model.stopped_by}' after {model.epochs} epochs\n")
-    forecast = last_week[held] + model.predict(table[held])
-    _print_metrics(regression_metrics(actual[held], forecast), out)
-    out.write(f"    naive last-week RMSE {rmse(actual[held], last_week[held]):.4f} (for comparison)\n")
-
-    lots = scenes.coffee_lot_grades(seed=seed + 5)
-    inputs = lots.drop(columns=["lot", "grade"])
-    held = holdout_mask(len(lots), 0.25, seed, "stratified", lots["grade"].to_numpy())
-    bar = ProgressLine("coffee lots")
-    model = fit(take_rows(inputs, ~held), lots["grade"][~held], hidden=(6,), seed=seed, progress=bar)
-    bar.done()
-    out.write(f"\n3. Coffee lots: grade A, B or C, {len(lots)} rows, {held.sum()} held out\n")
-    out.write(f"   network {model.sizes}, {model.algorithm}, stopped by '{model.stopped_by}' after {model.epochs} epochs\n")
-    _print_metrics(score(model, take_rows(inputs, held), lots["grade"][held]), out)
+    out.write(f"sheetnet {__version__}: demo on invented data (seed {seed})\n")
+    drawn: list[Path] = []
+    for number, problem in enumerate(sheetnet_demo.problems(seed), start=1):
+        bar = ProgressLine(f"scenario {number}")
+        inputs, target = problem.training_rows()
+        model = fit(inputs, target, hidden=problem.hidden, seed=seed, progress=bar)
+        bar.done()
+        metrics = problem.score(model)
+        out.write(f"\n{number}. {problem.title}, {int(problem.holdout.sum())} held out\n")
+        out.write(f"   network {model.sizes}, {model.algorithm}, stopped by '{model.stopped_by}' after {model.epochs} epochs\n")
+        _print_metrics(metrics, out)
+        if problem.note:
+            out.write(f"    ({problem.note})\n")
+        if pictures is not None:
+            drawn.extend(_draw(problem, model, metrics, pictures / f"{number}-{problem.slug}"))
+    if drawn:
+        out.write("\npictures:\n" + "".join(f"  {path}\n" for path in drawn))
     out.write(f"\n{CAUTION}\n")
     return 0
+
+
+def _draw(problem: Any, model: Any, metrics: dict[str, Any], stem: Path) -> list[Path]:
+    from . import pictures
+
+    drawn = [pictures.loss_curve_picture(model, f"{stem}-training.png", problem.title)]
+    if "confusion" in metrics:
+        drawn.append(pictures.confusion_picture(metrics["confusion"], list(metrics["per_class"]), f"{stem}-confusion.png", problem.title))
+    else:
+        actual, predicted = problem.actual_and_predicted(model)
+        drawn.append(pictures.predicted_vs_actual_picture(actual, predicted, f"{stem}-predicted.png", problem.title))
+    return drawn
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -119,6 +106,8 @@ def build_parser() -> argparse.ArgumentParser:
     commands = parser.add_subparsers(dest="command", required=True)
     demo = commands.add_parser("demo", help="train and check models on the built-in invented scenarios")
     demo.add_argument("--seed", type=int, default=0, help="seed for data, splits and training (default 0)")
+    demo.add_argument("--pictures", type=Path, default=Path("sheetnet-demo"), metavar="FOLDER", help="where to write the PNG pictures (default: sheetnet-demo)")
+    demo.add_argument("--no-pictures", action="store_true", help="print the metrics only")
     commands.add_parser("settings", help="list every training setting with its default")
     return parser
 
@@ -127,7 +116,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     try:
         if args.command == "demo":
-            return run_demo(args.seed, sys.stdout)
+            return run_demo(args.seed, sys.stdout, None if args.no_pictures else args.pictures)
         if args.command == "settings":
             from .settings import settings_table_markdown
 

@@ -8,16 +8,29 @@ from sheetnet import cli
 from sheetnet.settings import settings_table_markdown
 
 
-def test_demo_trains_and_reports_every_scenario(capsys):
-    assert cli.main(["demo"]) == 0
+def test_demo_trains_and_reports_every_scenario(capsys, tmp_path):
+    assert cli.main(["demo", "--pictures", str(tmp_path / "pictures")]) == 0
     out = capsys.readouterr().out
     for heading in ("1. Cold-chain shipments", "2. Depot parcels per week", "3. Coffee lots"):
         assert heading in out
     assert out.count("stopped by") == 3
-    assert "naive last-week RMSE" in out
+    assert "naive_rmse" in out
     assert "decision aid" in out and "bias" in out and "local law" in out
     accuracy = float(out.split("accuracy")[1].split()[0])
     assert 0.7 < accuracy <= 1.0
+    drawn = sorted(p.name for p in (tmp_path / "pictures").iterdir())
+    assert drawn == [
+        "1-shipments-confusion.png", "1-shipments-training.png",
+        "2-parcels-predicted.png", "2-parcels-training.png",
+        "3-coffee-confusion.png", "3-coffee-training.png",
+    ]
+
+
+def test_demo_without_pictures_writes_no_files(capsys, tmp_path, monkeypatch):
+    monkeypatch.chdir(tmp_path)
+    assert cli.main(["demo", "--no-pictures", "--seed", "3"]) == 0
+    assert "pictures:" not in capsys.readouterr().out
+    assert list(tmp_path.iterdir()) == []
 
 
 def test_settings_prints_the_documented_table(capsys):
