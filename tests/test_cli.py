@@ -39,7 +39,7 @@ def test_settings_prints_the_documented_table(capsys):
 
 
 def test_sheetnet_errors_become_one_line_and_exit_code_1(monkeypatch, capsys):
-    def broken(seed, out):
+    def broken(seed, out, pictures=None):
         from sheetnet.errors import NotEnoughRowsError
 
         raise NotEnoughRowsError("training needs at least 4 rows; got 3. Add rows")
