@@ -33,8 +33,10 @@ def test_holdout_evaluation_is_stratified_for_classes(rng):
 
 def test_cross_validation_scores_every_fold(rng):
     X, y = _signal_and_noise(rng, 200)
-    result = sheetnet.cross_validate(X, y, k=4, hidden=(3,))
+    result = sheetnet.cross_validate(X, y, k=4, hidden=(3,), workers=2)
     assert len(result["folds"]) == 4
+    one_by_one = sheetnet.cross_validate(X, y, k=4, hidden=(3,), workers=1)
+    assert [f["rmse"] for f in result["folds"]] == [f["rmse"] for f in one_by_one["folds"]]
     assert result["mean"]["rmse"] == pytest.approx(np.mean([f["rmse"] for f in result["folds"]]))
     assert result["mean"]["r2"] > 0.9
 
