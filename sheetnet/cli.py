@@ -12,7 +12,6 @@ import time
 from pathlib import Path
 from typing import Any, Sequence, TextIO
 
-
 from . import __version__
 from .errors import SheetnetError
 

@@ -286,7 +286,7 @@ class Objective:
         targets = np.asarray(Y, dtype=self.dtype).reshape(self.n_rows, self.sizes[-1])
         # full batches read the rows transposed and contiguous; mini-batches keep them row-major,
         # because reshuffling gathers whole rows quickly while gathering columns does not
-        self._row_major = bool(batch_rows) and int(batch_rows) < self.n_rows
+        self._row_major = batch_rows is not None and 0 < int(batch_rows) < self.n_rows
         if self._row_major:
             self._X, self._Y = np.ascontiguousarray(rows), np.ascontiguousarray(targets)
         else:
@@ -333,11 +333,11 @@ class Objective:
     def _forward(self, work: _Buffers, start: int, stop: int) -> tuple[Array, Array]:
         a_prev = self._inputs(start, stop)
         last = len(self._params) - 1
-        for l, (w, b) in enumerate(self._params):
-            out = work.z_out if l == last else work.a[l]
+        for layer, (w, b) in enumerate(self._params):
+            out = work.z_out if layer == last else work.a[layer]
             np.matmul(w.T, a_prev, out=out)
             out += b[:, None]
-            if l != last:
+            if layer != last:
                 self.activation.forward(out)
             a_prev = out
         z, a = work.z_out, work.a[last]
@@ -363,19 +363,19 @@ class Objective:
         last = len(self._params) - 1
         delta = work.delta[last]
         np.subtract(a, y, out=delta)
-        for l in range(last, -1, -1):
-            a_prev = self._inputs(start, stop) if l == 0 else work.a[l - 1]
-            gw, gb = self._grads[l]
+        for layer in range(last, -1, -1):
+            a_prev = self._inputs(start, stop) if layer == 0 else work.a[layer - 1]
+            gw, gb = self._grads[layer]
             np.matmul(a_prev, delta.T, out=gw)
             np.matmul(delta, work.ones, out=gb)
-            if l > 0:
-                w = self._params[l][0]
-                delta_prev = work.delta[l - 1]
+            if layer > 0:
+                w = self._params[layer][0]
+                delta_prev = work.delta[layer - 1]
                 if w.shape[1] == 1:
                     np.multiply(w, delta, out=delta_prev)  # an outer product; matmul is slow for inner size 1
                 else:
                     np.matmul(w, delta, out=delta_prev)
-                self.activation.scale_by_derivative(delta_prev, a_prev, work.scratch[l - 1])
+                self.activation.scale_by_derivative(delta_prev, a_prev, work.scratch[layer - 1])
                 delta = delta_prev
 
         grad = self._grad.astype(np.float64)

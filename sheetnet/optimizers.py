@@ -130,7 +130,7 @@ def lbfgs(
     hands it the analytic gradient and counts one epoch per iteration.
     """
     last_grad = {"value": np.inf}
-    stop = {"reason": None}
+    stop: dict[str, str | None] = {"reason": None}
 
     def loss_and_grad(vector: np.ndarray) -> tuple[float, np.ndarray]:
         loss, grad = objective(vector)

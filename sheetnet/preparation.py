@@ -12,8 +12,8 @@ at prediction) or a list of rows. Rows in messages count data rows from 1.
 from __future__ import annotations
 
 import math
-import warnings
 import numbers
+import warnings
 from dataclasses import dataclass
 from typing import Any, Sequence
 
@@ -31,7 +31,10 @@ from .errors import (
 
 # spreadsheet error values as they reach Python in text form
 SPREADSHEET_ERRORS = frozenset(
-    {"#N/A", "#VALUE!", "#REF!", "#DIV/0!", "#NUM!", "#NAME?", "#NULL!", "#SPILL!", "#CALC!", "#GETTING_DATA", "#FIELD!", "#BLOCKED!", "#CONNECT!", "#BUSY!", "#UNKNOWN!"}
+    {
+        "#N/A", "#VALUE!", "#REF!", "#DIV/0!", "#NUM!", "#NAME?", "#NULL!", "#SPILL!",
+        "#CALC!", "#GETTING_DATA", "#FIELD!", "#BLOCKED!", "#CONNECT!", "#BUSY!", "#UNKNOWN!",
+    }
 )
 MAX_CLASSES_FOR_NUMBERS = 10  # integer targets with at most this many values are classes
 
@@ -149,7 +152,7 @@ def category_text(value: Any) -> str:
     if isinstance(value, (bool, np.bool_)):
         return "TRUE" if value else "FALSE"
     if isinstance(value, numbers.Real) and float(value).is_integer():
-        return str(int(value))
+        return str(int(float(value)))
     return str(value).strip()
 
 

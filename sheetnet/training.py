@@ -9,8 +9,8 @@ and seed give identical weights.
 from __future__ import annotations
 
 import os
-from types import MappingProxyType
 from dataclasses import dataclass
+from types import MappingProxyType
 from typing import Any, Sequence
 
 import numpy as np

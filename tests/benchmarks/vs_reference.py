@@ -119,7 +119,7 @@ def main() -> None:
     print()
     print("| table | metric | sheetnet | sklearn fastest (solver) | sklearn best | fit ms sklearn fastest | fit ms sheetnet | fit ratio | predict 1 row us (sklearn / sheetnet) | predict 10k rows ms (sklearn / sheetnet) |")
     print("|---|---|---|---|---|---|---|---|---|---|")
-    for name, kind, ref, fastest, best, ours_s, ours_q, ours, p1r, p1o, pmr, pmo in rows:
+    for name, kind, ref, fastest, best, ours_s, ours_q, _, p1r, p1o, pmr, pmo in rows:
         print(
             f"| {name} | {metric[kind]} | {ours_q:.4f} | {ref[fastest][1]:.4f} ({fastest}) | {ref[best][1]:.4f} ({best}) | "
             f"{ref[fastest][0] * 1e3:.1f} | {ours_s * 1e3:.1f} | {ref[fastest][0] / ours_s:.1f}x | "
