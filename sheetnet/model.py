@@ -20,7 +20,7 @@ from .preparation import Preparation, TargetPreparation
 FORMAT_VERSION = 1
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)  # arrays inside: compare members by identity
 class Member:
     """One trained network of a model (a model with repeats has several)."""
 
@@ -32,7 +32,7 @@ class Member:
     best_epoch: int  # the epoch whose parameters were kept (== epochs without early stopping)
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)  # arrays inside: compare models by identity
 class Model:
     """A trained network (or an average of several) with its preparation.
 
