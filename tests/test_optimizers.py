@@ -86,3 +86,40 @@ def test_lbfgs_stops_at_the_epoch_limit_and_counts_iterations():
     _, reason = optimizers.lbfgs(Rosenbrock(), np.array([-1.2, 1.0]), monitor, 10, 0.0)
     assert reason == "epochs"
     assert monitor.epochs == 7
+
+
+class Rows:
+    """f(theta) = mean over rows of (theta - row)^2 / 2, so each row pulls theta towards itself."""
+
+    def __init__(self, values):
+        self.values = np.array(values, dtype=float)
+        self.n_rows = len(self.values)
+        self.order = []
+
+    def __call__(self, theta, start=0, stop=None):
+        stop = self.n_rows if stop is None else stop
+        part = self.values[start:stop]
+        self.order.append(part.tolist())
+        return float(np.mean((theta[0] - part) ** 2) / 2), np.array([np.mean(theta[0] - part)])
+
+    def shuffle(self, rng):
+        self.values = self.values[rng.permutation(self.n_rows)]
+
+
+def test_per_row_gradient_descent_updates_after_every_row():
+    # batch of 1 row, no momentum: theta <- theta - rate * (theta - row) for each row in turn
+    objective = Rows([1.0, 3.0])
+    theta, _ = optimizers.gradient_descent(objective, np.array([0.0]), _monitor(1), np.random.default_rng(5), 0.5, 0.0, 1)
+    expected = 0.0
+    for (row,) in objective.order:
+        expected -= 0.5 * (expected - row)
+    assert len(objective.order) == 2
+    assert theta[0] == pytest.approx(expected, abs=1e-15)
+
+
+def test_mini_batches_cover_every_row_once_per_epoch():
+    objective = Rows([1.0, 2.0, 3.0, 4.0, 5.0])
+    optimizers.gradient_descent(objective, np.array([0.0]), _monitor(2), np.random.default_rng(0), 0.1, 0.9, 2)
+    first_epoch = objective.order[:3]
+    assert [len(batch) for batch in first_epoch] == [2, 2, 1]
+    assert sorted(sum(first_epoch, [])) == [1.0, 2.0, 3.0, 4.0, 5.0]
