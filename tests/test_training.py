@@ -257,3 +257,13 @@ def test_a_fitted_model_cannot_be_changed(rng):
         model.members[0].theta[0] = 1.0
     with pytest.raises(TypeError):
         model.settings["epochs"] = 7
+
+
+def test_bad_cells_at_prediction_are_named(rng):
+    model = sheetnet.fit(rng.normal(size=(30, 2)), rng.normal(size=30), hidden=(2,), epochs=3)
+    rows = np.ones((3000, 2))
+    rows[2500, 1] = np.nan
+    with pytest.raises(errors.BadValueError, match="column 'x2', row 2501: the cell is blank"):
+        model.predict(rows)
+    huge = np.full((4, 2), 1e308)  # finite, though their sum overflows
+    assert np.isfinite(model.predict(huge)).all()
