@@ -40,6 +40,8 @@ class BadValueError(InputError):
         self.column = column
         self.row = row
         self.value = value
+        self.problem = problem
+        self.fix = fix
         super().__init__(f"column '{column}', row {row}: {problem} ({value!r}); {fix}")
 
 

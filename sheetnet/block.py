@@ -1,0 +1,361 @@
+"""The model block: a trained model as a plain 2-D block of numbers and short texts.
+
+`encode_block` and `decode_block` are a pure pair. The block is what
+SHEETNET.TRAIN returns and what the hidden model sheet stores; DEVELOPERS.md
+documents the layout. Decoding reads numbers and texts only (nothing is
+evaluated or imported), checks the format version and a SHA-256 checksum
+over the whole content, and checks that the parts fit together, so a
+corrupted, truncated, edited or future-version block gets a clear
+`BlockError` instead of a wrong number.
+
+Layout: every row is ``[key, field, field, ...]`` padded to `WIDTH` cells. A
+row with a key starts a record; the rows below it with a blank key carry
+that record's numbers (up to ``WIDTH - 1`` per row). Numbers are stored
+rounded to 15 significant digits, which every spreadsheet keeps exactly.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+from dataclasses import dataclass, field
+from types import MappingProxyType
+from typing import Any, Sequence
+
+import numpy as np
+
+from .errors import ModelError
+from .model import Member, Model
+from .network import ACTIVATIONS, parameter_count
+from .preparation import CategoryInput, NumericInput, Preparation, TargetPreparation
+
+FORMAT_VERSION = 1
+MAGIC = "sheetnet model block"
+WIDTH = 9  # a key and eight values per row
+CURVE_POINTS = 200  # loss curves longer than this are stored at evenly spread epochs
+
+
+class BlockError(ModelError):
+    """A model block cannot be read: not a block, damaged, edited or from a newer sheetnet."""
+
+
+@dataclass(frozen=True)
+class BlockInfo:
+    """What the block records besides the model itself."""
+
+    target: str
+    trained_at: str  # ISO 8601, UTC
+    written_by: str  # sheetnet version
+    fingerprint: str  # SHA-256 of the training table (see `table_fingerprint`)
+    training_rows: int
+    holdout_rows: int
+    holdout_metrics: dict[str, float] = field(default_factory=dict)
+    blank_rows: str = "error"  # how the cell functions treat rows with a blank cell: error or skip
+
+
+@dataclass(frozen=True)
+class Record:
+    key: str
+    fields: tuple[Any, ...]
+    numbers: tuple[float, ...] = ()
+
+
+def _round15(value: float) -> float:
+    return float(f"{float(value):.15g}")
+
+
+def _numbers_of(values: Sequence[float] | np.ndarray) -> tuple[float, ...]:
+    return tuple(_round15(v) for v in np.asarray(values, dtype=np.float64).ravel())
+
+
+def _label_fields(label: Any) -> tuple[str, str]:
+    if isinstance(label, (bool, np.bool_)):
+        return ("bool", "TRUE" if label else "FALSE")
+    if isinstance(label, (int, np.integer)):
+        return ("int", str(int(label)))
+    if isinstance(label, (float, np.floating)):
+        return ("float", repr(float(label)))
+    return ("text", str(label))
+
+
+def _label_value(kind: str, text: str) -> Any:
+    try:
+        if kind == "bool":
+            return text == "TRUE"
+        if kind == "int":
+            return int(text)
+        if kind == "float":
+            return float(text)
+    except ValueError:
+        raise BlockError(f"the model block has a class label '{text}' that is not a valid {kind}; the block is damaged: train again") from None
+    if kind == "text":
+        return text
+    raise BlockError(f"the model block has a class label of unknown kind '{kind}'; the block is damaged: train again")
+
+
+def _setting_text(value: Any) -> Any:
+    if value is None:
+        return "none"
+    if isinstance(value, bool):
+        return "TRUE" if value else "FALSE"
+    if isinstance(value, (int, float)):
+        return _round15(value)
+    return str(value)
+
+
+def _sampled_curve(curve: Sequence[float]) -> list[float]:
+    """Pairs (epoch, loss) flattened, at most CURVE_POINTS of them, always with the last epoch."""
+    n = len(curve)
+    if n == 0:
+        return []
+    epochs = np.unique(np.linspace(1, n, min(n, CURVE_POINTS)).round().astype(int))
+    return [v for e in epochs for v in (float(e), float(curve[e - 1]))]
+
+
+def model_records(model: Model, info: BlockInfo) -> list[Record]:
+    """The records of a block, in order, before the checksum."""
+    records = [
+        Record(MAGIC, (FORMAT_VERSION,)),
+        Record("written_by", (info.written_by,)),
+        Record("trained_at", (info.trained_at,)),
+        Record("target", (info.target, model.task)),
+        Record("network", (model.activation, model.algorithm, model.seed, len(model.sizes)), _numbers_of(model.sizes)),
+        Record("rows", (info.training_rows, info.holdout_rows)),
+        Record("fingerprint", (info.fingerprint,)),
+        Record("blank_rows", (info.blank_rows,)),
+    ]
+    for name, value in sorted(model.settings.items()):
+        records.append(Record("setting", (name, _setting_text(value))))
+    for spec in model.preparation.inputs:
+        if isinstance(spec, NumericInput):
+            records.append(Record("input", (spec.name, "number"), _numbers_of([spec.mean, spec.scale, spec.low, spec.high])))
+        else:
+            records.append(Record("input", (spec.name, "category", len(spec.categories))))
+            records.extend(Record("category", (spec.name, c)) for c in spec.categories)
+    if model.task == "regression":
+        records.append(Record("target_scaling", (), _numbers_of([model.target.mean, model.target.scale])))
+    for index, label in enumerate(model.classes):
+        records.append(Record("class", (index, *_label_fields(label))))
+    for name, value in info.holdout_metrics.items():
+        records.append(Record("holdout_metric", (name, _round15(value))))
+    for index, member in enumerate(model.members):
+        records.append(Record("member", (index, member.stopped_by, member.epochs, member.best_epoch)))
+        records.append(Record("curve", (index, "training"), tuple(_sampled_curve(member.training_curve))))
+        if member.validation_curve:
+            records.append(Record("curve", (index, "validation"), tuple(_sampled_curve(member.validation_curve))))
+        records.append(Record("weights", (index, len(member.theta)), _numbers_of(member.theta)))
+    return records
+
+
+def _canonical(value: Any) -> str:
+    if value is None or (isinstance(value, str) and value == ""):
+        return ""
+    if isinstance(value, bool):
+        return "b:" + ("1" if value else "0")
+    if isinstance(value, (int, float, np.integer, np.floating)):
+        text = f"{float(value):.15g}"
+        return "0" if text == "-0" else text
+    return "s:" + str(value)
+
+
+def checksum(records: Sequence[Record]) -> str:
+    """SHA-256 over every key, field and number, in order."""
+    canonical = [[r.key, [_canonical(f) for f in r.fields], [_canonical(n) for n in r.numbers]] for r in records]
+    return hashlib.sha256(json.dumps(canonical, separators=(",", ":")).encode("utf-8")).hexdigest()
+
+
+def _rows_of(record: Record) -> list[list[Any]]:
+    if len(record.fields) > WIDTH - 1:
+        raise ValueError(f"record {record.key} has too many fields")  # internal invariant
+    rows = [[record.key, *record.fields] + [""] * (WIDTH - 1 - len(record.fields))]
+    for start in range(0, len(record.numbers), WIDTH - 1):
+        chunk = list(record.numbers[start:start + WIDTH - 1])
+        rows.append(["", *chunk] + [""] * (WIDTH - 1 - len(chunk)))
+    return rows
+
+
+def encode_block(model: Model, info: BlockInfo) -> list[list[Any]]:
+    """The model as a block of cells, ``WIDTH`` wide, ending in its checksum row."""
+    records = model_records(model, info)
+    rows = [row for record in records for row in _rows_of(record)]
+    rows.append(["checksum", checksum(records)] + [""] * (WIDTH - 2))
+    return rows
+
+
+# --- decoding -----------------------------------------------------------------------------
+
+def _blank(value: Any) -> bool:
+    return value is None or (isinstance(value, str) and not value.strip()) or (isinstance(value, float) and math.isnan(value))
+
+
+def _records_of(grid: list[list[Any]]) -> tuple[list[Record], str | None]:
+    records: list[Record] = []
+    stored = None
+    current: list[Any] | None = None
+    numbers: list[float] = []
+    for i, row in enumerate(grid):
+        key = row[0]
+        if _blank(key):
+            if current is None:
+                raise BlockError("the model block starts with a blank row; select the block from its first cell")
+            for value in row[1:]:
+                if _blank(value):
+                    continue
+                if isinstance(value, bool) or not isinstance(value, (int, float)):
+                    raise BlockError(f"row {i + 1} of the model block holds {value!r} where a number belongs; the block was edited: restore it or train again")
+                numbers.append(float(value))
+            continue
+        if current is not None:
+            records.append(Record(current[0], tuple(current[1:]), tuple(numbers)))
+        if key == "checksum":
+            stored = str(row[1]) if len(row) > 1 else ""
+            if any(not _blank(v) for v in row[2:]):
+                raise BlockError(f"row {i + 1} of the model block (its checksum row) holds extra cells; the block was edited: restore it or train again")
+            current = None
+            break
+        fields = list(row[1:])
+        while fields and _blank(fields[-1]):
+            fields.pop()
+        current = [str(key), *fields]
+        numbers = []
+    else:
+        if current is not None:
+            records.append(Record(current[0], tuple(current[1:]), tuple(numbers)))
+    return records, stored
+
+
+def _number(value: Any, what: str) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(float(value)):
+        raise BlockError(f"the model block's {what} is {value!r}, not a number; the block is damaged: train again")
+    return float(value)
+
+
+def decode_block(cells: Any) -> tuple[Model, BlockInfo]:
+    """Read a block back into a model; every failure is a `BlockError` that says what to do."""
+    if isinstance(cells, np.ndarray):
+        cells = cells.tolist()
+    if not isinstance(cells, (list, tuple)) or not cells or not isinstance(cells[0], (list, tuple)):
+        raise BlockError("the model argument is not a model block; pass the range SHEETNET.TRAIN returned (or the model's name)")
+    width = max(len(r) for r in cells)
+    grid = [list(r) + [None] * (width - len(r)) for r in cells]
+    if grid[0][0] != MAGIC:
+        raise BlockError(f"the model argument is not a sheetnet model block (its first cell is {grid[0][0]!r}); pass the whole block SHEETNET.TRAIN returned")
+    version = grid[0][1] if width > 1 else None
+    if isinstance(version, bool) or not isinstance(version, (int, float)) or version != int(version):
+        raise BlockError(f"the model block's format version is {version!r}; the block is damaged: train again")
+    if int(version) > FORMAT_VERSION:
+        raise BlockError(f"the model block was written by a newer sheetnet (format {int(version)}; this one reads up to {FORMAT_VERSION}); upgrade sheetnet to use it")
+    records, stored = _records_of(grid)
+    if stored is None:
+        raise BlockError("the model block is incomplete (its checksum row is missing); select the whole block, down to the row that starts with 'checksum'")
+    if stored != checksum(records):
+        raise BlockError("the model block was changed after training (its checksum does not match); undo the change, or train the model again")
+    try:
+        return _model_of(records)
+    except (KeyError, IndexError, TypeError, ValueError) as error:
+        raise BlockError(f"the model block is damaged ({error}); train the model again") from None
+
+
+def _model_of(records: list[Record]) -> tuple[Model, BlockInfo]:
+    by_key: dict[str, list[Record]] = {}
+    for record in records:
+        by_key.setdefault(record.key, []).append(record)
+
+    def one(key: str) -> Record:
+        found = by_key.get(key, [])
+        if len(found) != 1:
+            raise BlockError(f"the model block has {len(found)} '{key}' rows where it needs one; it is damaged: train again")
+        return found[0]
+
+    activation, algorithm, seed, depth = one("network").fields
+    if activation not in ACTIVATIONS:
+        raise BlockError(f"the model block names an activation {activation!r} this sheetnet does not know; upgrade sheetnet or train again")
+    sizes = tuple(int(v) for v in one("network").numbers)
+    if len(sizes) != int(depth) or len(sizes) < 2 or min(sizes) < 1:
+        raise BlockError("the model block's layer sizes are inconsistent; it is damaged: train again")
+    target_name, task = one("target").fields
+    settings = {str(r.fields[0]): _read_setting(r.fields[1]) for r in by_key.get("setting", [])}
+
+    categories: dict[str, list[str]] = {}
+    for r in by_key.get("category", []):
+        categories.setdefault(str(r.fields[0]), []).append(str(r.fields[1]))
+    inputs: list[NumericInput | CategoryInput] = []
+    for r in by_key.get("input", []):
+        name, role = str(r.fields[0]), r.fields[1]
+        if role == "number":
+            mean, scale, low, high = (_number(v, f"scaling of input '{name}'") for v in r.numbers)
+            if not scale > 0:
+                raise BlockError(f"the model block's scale of input '{name}' is not positive; it is damaged: train again")
+            inputs.append(NumericInput(name, mean, scale, low, high))
+        elif role == "category":
+            found = tuple(categories.get(name, []))
+            if len(found) != int(r.fields[2]):
+                raise BlockError(f"the model block lists {len(found)} categories of '{name}' but records {r.fields[2]}; it is damaged: train again")
+            inputs.append(CategoryInput(name, found))
+        else:
+            raise BlockError(f"the model block's input '{name}' has an unknown role {role!r}; it is damaged: train again")
+    preparation = Preparation(tuple(inputs), named=True)
+
+    classes = tuple(_label_value(str(r.fields[1]), str(r.fields[2])) for r in sorted(by_key.get("class", []), key=lambda r: int(r.fields[0])))
+    if task == "regression":
+        mean, scale = (_number(v, "target scaling") for v in one("target_scaling").numbers)
+        target = TargetPreparation("regression", mean, scale)
+    elif task in ("binary", "multiclass"):
+        target = TargetPreparation(str(task), classes=classes)
+    else:
+        raise BlockError(f"the model block's task {task!r} is not known to this sheetnet; upgrade sheetnet or train again")
+    if preparation.width != sizes[0] or target.outputs != sizes[-1]:
+        raise BlockError("the model block's inputs or outputs do not match its layer sizes; it is damaged: train again")
+
+    curves: dict[tuple[int, str], tuple[float, ...]] = {}
+    for r in by_key.get("curve", []):
+        curves[(int(r.fields[0]), str(r.fields[1]))] = tuple(r.numbers[1::2])
+    weights = {int(r.fields[0]): r for r in by_key.get("weights", [])}
+    members = []
+    for r in sorted(by_key.get("member", []), key=lambda r: int(r.fields[0])):
+        index, stopped_by, epochs, best_epoch = int(r.fields[0]), str(r.fields[1]), int(r.fields[2]), int(r.fields[3])
+        w = weights.get(index)
+        if w is None or int(w.fields[1]) != parameter_count(sizes) or len(w.numbers) != parameter_count(sizes):
+            raise BlockError(f"the model block's weights of network {index + 1} are missing or cut short; select the whole block, or train again")
+        theta = np.array(w.numbers, dtype=np.float64)
+        if not np.isfinite(theta).all():
+            raise BlockError("the model block holds a weight that is not a finite number; it is damaged: train again")
+        theta.setflags(write=False)
+        members.append(Member(theta, stopped_by, epochs, curves.get((index, "training"), ()), curves.get((index, "validation"), ()), best_epoch))
+    if not members:
+        raise BlockError("the model block holds no trained network; it is damaged: train again")
+
+    model = Model(preparation, target, sizes, str(activation), tuple(members), str(algorithm), MappingProxyType(settings), int(seed))
+    training_rows, holdout_rows = (int(v) for v in one("rows").fields)
+    info = BlockInfo(
+        target=str(target_name),
+        trained_at=str(one("trained_at").fields[0]),
+        written_by=str(one("written_by").fields[0]),
+        fingerprint=str(one("fingerprint").fields[0]),
+        training_rows=training_rows,
+        holdout_rows=holdout_rows,
+        holdout_metrics={str(r.fields[0]): float(r.fields[1]) for r in by_key.get("holdout_metric", [])},
+        blank_rows=str(one("blank_rows").fields[0]),
+    )
+    return model, info
+
+
+def _read_setting(value: Any) -> Any:
+    if value == "none":
+        return None
+    if value in ("TRUE", "FALSE"):
+        return value == "TRUE"
+    if isinstance(value, float) and value.is_integer():
+        return int(value)
+    return value
+
+
+def table_fingerprint(columns: Sequence[Sequence[Any]]) -> str:
+    """SHA-256 of table columns as cells read them (numbers to 15 significant digits)."""
+    digest = hashlib.sha256()
+    for column in columns:
+        digest.update(b"\x1e")
+        for value in column:
+            digest.update(_canonical(value.item() if isinstance(value, np.generic) else value).encode("utf-8") + b"\x1f")
+    return digest.hexdigest()
