@@ -36,7 +36,8 @@ from .cells import (
     row_label,
 )
 from .errors import BadValueError, InputError, ModelError, SettingError, SheetnetError
-from .evaluation import permutation_importance, score as score_model
+from .evaluation import permutation_importance
+from .evaluation import score as score_model
 from .model import Model
 from .splits import holdout_mask
 from .training import fit
