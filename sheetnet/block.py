@@ -141,9 +141,9 @@ def model_records(model: Model, info: BlockInfo) -> list[Record]:
         records.append(Record("holdout_metric", (name, _round15(value))))
     for index, member in enumerate(model.members):
         records.append(Record("member", (index, member.stopped_by, member.epochs, member.best_epoch)))
-        records.append(Record("curve", (index, "training"), tuple(_sampled_curve(member.training_curve))))
+        records.append(Record("curve", (index, "training"), _numbers_of(_sampled_curve(member.training_curve))))
         if member.validation_curve:
-            records.append(Record("curve", (index, "validation"), tuple(_sampled_curve(member.validation_curve))))
+            records.append(Record("curve", (index, "validation"), _numbers_of(_sampled_curve(member.validation_curve))))
         records.append(Record("weights", (index, len(member.theta)), _numbers_of(member.theta)))
     return records
 

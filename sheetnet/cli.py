@@ -13,7 +13,7 @@ from pathlib import Path
 from typing import Any, Sequence, TextIO
 
 from . import __version__
-from .errors import SheetnetError
+from .errors import SettingError, SheetnetError
 
 CAUTION = (
     "A model is a decision aid, not a decision. Where its output affects people "
@@ -99,6 +99,143 @@ def _draw(problem: Any, model: Any, metrics: dict[str, Any], stem: Path) -> list
     return drawn
 
 
+def _settings_text(pairs: Sequence[str], seed: int | None) -> str:
+    for pair in pairs:
+        if "=" not in pair:
+            raise SettingError(f"--set {pair!r} has no '='; write it like --set epochs=500")
+    extra = [f"seed={seed}"] if seed is not None else []
+    return "; ".join([*pairs, *extra])
+
+
+def _print_rows(rows: list[list[Any]], out: TextIO) -> None:
+    for name, value, *_ in rows:
+        shown = f"{value:.4f}" if isinstance(value, float) else str(value)
+        out.write(f"    {str(name):<24} {shown}\n")
+
+
+def _saved(book: Any, out: TextIO) -> None:
+    from .workbook import save_book
+
+    target, note = save_book(book)
+    if note:
+        out.write(f"note: {note}\n")
+    out.write(f"saved {target}\n")
+
+
+def run_train(args: argparse.Namespace, out: TextIO) -> int:
+    from . import functions
+    from .cells import read_sheet_table
+    from .workbook import open_book, owned_sheet, read_range, store_model, write_block
+
+    book = open_book(args.book)
+    table = read_range(book, args.table)
+    sheet_table = read_sheet_table(table)
+    sheet_table.column(args.target)
+    split = None
+    if args.holdout > 0:
+        mode = args.mode
+        if mode == "auto":
+            texts = [v for v in sheet_table.frame[args.target] if isinstance(v, str)]
+            mode = f"stratified {args.target}" if texts else "random"
+        elif mode == "stratified":
+            mode = f"stratified {args.target}"
+        split = functions.split.__wrapped__(table, args.holdout, args.seed, mode)  # type: ignore[attr-defined]
+    bar = ProgressLine(f"training {args.name}")
+    block = functions.train_block(table, args.target, args.hidden, _settings_text(args.set, args.seed), split, bar)
+    bar.done()
+    store_model(book, args.name, block, args.replace)
+
+    results = owned_sheet(book, f"sn {args.name}")
+    results["A2"] = f"model {args.name}: {args.target} predicted from {args.table}. {CAUTION}"
+    answer = functions.predict.__wrapped__(block, table, "value")  # type: ignore[attr-defined]
+    split_column = split if split is not None else [["split"]] + [["train"] for _ in answer[1:]]
+    write_block(results, "A4", [["table row", split_column[0][0], f"actual {args.target}", *answer[0]]])
+    target_index = [str(c) for c in table[0]].index(args.target)
+    rows = [[i + 2, split_column[i + 1][0], table[i + 1][target_index], *answer[i + 1]] for i in range(len(answer) - 1)]
+    write_block(results, "A5", rows)
+    about = functions.about.__wrapped__(block)  # type: ignore[attr-defined]
+    write_block(results, "G4", about)
+    _saved(book, out)
+    out.write(f"model {args.name} stored under the defined name {args.name}\n")
+    summary = dict((r[0], r[1]) for r in about[1:])
+    out.write(f"  network {summary['layers']}, {summary['algorithm']}, stopped by '{summary['stopped by']}' after {summary['epochs']} epochs\n")
+    holdout = [r for r in about[1:] if str(r[0]).startswith("holdout ")]
+    if holdout:
+        out.write("  holdout metrics:\n")
+        _print_rows(holdout, out)
+    out.write(f"{CAUTION}\n")
+    return 0
+
+
+def run_predict(args: argparse.Namespace, out: TextIO) -> int:
+    from . import functions
+    from .cells import MARKER
+    from .workbook import check_empty, open_book, owned_sheet, read_model, read_range, write_block
+
+    book = open_book(args.book)
+    block = read_model(book, args.model)
+    table = read_range(book, args.table)
+    answer = functions.predict.__wrapped__(block, table, args.output)  # type: ignore[attr-defined]
+    assert not str(answer[0][0]).startswith(MARKER)
+    if args.to:
+        sheet, corner = check_empty(book, args.to, len(answer), len(answer[0]))
+    else:
+        sheet, corner = owned_sheet(book, f"sn predict {args.model}"), "A3"
+    write_block(sheet, corner, answer)
+    _saved(book, out)
+    out.write(f"{len(answer) - 1} rows predicted with model {args.model}, written to {sheet.title}!{corner}\n")
+    return 0
+
+
+def run_models(args: argparse.Namespace, out: TextIO) -> int:
+    from . import functions
+    from .workbook import model_names, open_book, read_model
+
+    book = open_book(args.book)
+    names = model_names(book)
+    if not names:
+        out.write(f"{args.book}: no sheetnet models\n")
+    for name in names:
+        about = functions.about(read_model(book, name))
+        out.write(f"{name}\n")
+        _print_rows(about[1:] if len(about[0]) == 2 else [["problem", about[0][0]]], out)
+    return 0
+
+
+def run_check(args: argparse.Namespace, out: TextIO) -> int:
+    from .block import decode_block
+    from .errors import SettingError, SheetnetError
+    from .workbook import MODEL_SHEET_PREFIX, model_names, open_book, read_model
+
+    book = open_book(args.book)
+    names = set(model_names(book))
+    for name, defined in book.formulas.defined_names.items():
+        destinations = list(defined.destinations)
+        if len(destinations) == 1 and destinations[0][0].startswith(MODEL_SHEET_PREFIX):
+            names.add(name)
+    failed = 0
+    for name in sorted(names):
+        try:
+            decode_block(read_model(book, name))
+            out.write(f"ok      {name}\n")
+        except SheetnetError as error:
+            failed += 1
+            out.write(f"FAILED  {name}: {error}\n")
+    out.write(f"{len(names) - failed} of {len(names)} models verified\n")
+    return 1 if failed else 0
+
+
+def run_functions(out: TextIO) -> int:
+    from .registry import REGISTRY
+
+    for entry in REGISTRY:
+        arguments = ", ".join(f"[{a.name}]" if a.optional else a.name for a in entry.arguments)
+        out.write(f"{entry.name}({arguments})\n    {entry.help} Returns {entry.returns}.\n")
+        for argument in entry.arguments:
+            out.write(f"      {argument.name}: {argument.help}\n")
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="sheetnet", description="Small neural networks for spreadsheet data.")
     parser.add_argument("--version", action="version", version=f"sheetnet {__version__}")
@@ -108,6 +245,31 @@ def build_parser() -> argparse.ArgumentParser:
     demo.add_argument("--pictures", type=Path, default=Path("sheetnet-demo"), metavar="FOLDER", help="where to write the PNG pictures (default: sheetnet-demo)")
     demo.add_argument("--no-pictures", action="store_true", help="print the metrics only")
     commands.add_parser("settings", help="list every training setting with its default")
+    commands.add_parser("functions", help="list the cell functions and their arguments")
+
+    train = commands.add_parser("train", help="train a model on a range of a workbook file and store it in the workbook")
+    train.add_argument("book", type=Path, help="the .xlsx or .xlsm file")
+    train.add_argument("--table", required=True, help="the table with its header row, like 'Data!A1:F500'")
+    train.add_argument("--target", required=True, help="the column to predict")
+    train.add_argument("--name", required=True, help="the model's name (a workbook-level defined name)")
+    train.add_argument("--hidden", default="4", help="hidden layer widths, like 8 or 8,4 (default 4)")
+    train.add_argument("--holdout", type=float, default=0.2, help="share of rows held out for checking (default 0.2; 0 for none)")
+    train.add_argument("--mode", default="auto", choices=["auto", "random", "stratified", "ordered"], help="how holdout rows are chosen (auto: stratified by class for text targets, else random)")
+    train.add_argument("--seed", type=int, default=0, help="seed of the split and the training (default 0)")
+    train.add_argument("--set", action="append", default=[], metavar="NAME=VALUE", help="a training setting; repeat for more (see: sheetnet settings)")
+    train.add_argument("--replace", action="store_true", help="replace a stored model of the same name")
+
+    predict = commands.add_parser("predict", help="predict a range of a workbook file with a stored model")
+    predict.add_argument("book", type=Path)
+    predict.add_argument("--model", required=True, help="the stored model's name")
+    predict.add_argument("--table", required=True, help="the rows to predict, with a header row, like 'New!A1:E90'")
+    predict.add_argument("--to", help="an empty range to write into, like 'New!H1'; default: a sheet of sheetnet's")
+    predict.add_argument("--output", default="value", help="value, probabilities, interval, flag (may be combined)")
+
+    models = commands.add_parser("models", help="list the models stored in a workbook file")
+    models.add_argument("book", type=Path)
+    check = commands.add_parser("check", help="verify every model block in a workbook file (exit code 1 if one fails)")
+    check.add_argument("book", type=Path)
     return parser
 
 
@@ -121,6 +283,10 @@ def main(argv: Sequence[str] | None = None) -> int:
 
             print(settings_table_markdown())
             return 0
+        if args.command == "functions":
+            return run_functions(sys.stdout)
+        runners = {"train": run_train, "predict": run_predict, "models": run_models, "check": run_check}
+        return runners[args.command](args, sys.stdout)
     except SheetnetError as error:
         print(f"{type(error).__name__}: {error}", file=sys.stderr)
         return 1

@@ -40,6 +40,7 @@ from .evaluation import permutation_importance
 from .evaluation import score as score_model
 from .model import Model
 from .splits import holdout_mask
+from .stopping import ProgressCallback
 from .training import fit
 
 CAUTION = "a decision aid, not a decision: check it for bias and follow local law and licensed practice"
@@ -207,14 +208,15 @@ def train(table: Any, target: Any, hidden: Any = None, settings: Any = None, spl
     if key in _train_cache:
         _train_cache.move_to_end(key)
         return [list(row) for row in _train_cache[key]]
-    block = _train(table, target, hidden, settings, split)
+    block = train_block(table, target, hidden, settings, split)
     _train_cache[key] = block
     while len(_train_cache) > TRAIN_CACHE_SIZE:
         _train_cache.popitem(last=False)
     return [list(row) for row in block]
 
 
-def _train(table: Any, target: Any, hidden: Any, settings: Any, split: Any) -> Cells:
+def train_block(table: Any, target: Any, hidden: Any = None, settings: Any = None, split: Any = None, progress: ProgressCallback | None = None) -> Cells:
+    """TRAIN without the cache and the message cell: raises `SheetnetError`; reports progress per epoch."""
     sheet = read_sheet_table(table)
     if is_blank(target):
         raise InputError(f"no target given; name the column to predict, one of: {', '.join(map(str, sheet.frame.columns))}")
@@ -238,7 +240,7 @@ def _train(table: Any, target: Any, hidden: Any, settings: Any, split: Any) -> C
     seed = int(_number_setting(options.get("seed", 0), "seed"))
     layers = parse_hidden(hidden)
     categories = _name_list(options.get("categories"))
-    model = _in_sheet_rows(sheet.data_rows[training], target_name, lambda: fit(frame, y, layers, seed, categories=categories, **engine_settings))
+    model = _in_sheet_rows(sheet.data_rows[training], target_name, lambda: fit(frame, y, layers, seed, categories=categories, progress=progress, **engine_settings))
 
     metrics: dict[str, float] = {}
     holdout = used & held
