@@ -13,7 +13,7 @@ from pathlib import Path
 from typing import Any, Sequence, TextIO
 
 from . import __version__
-from .errors import SettingError, SheetnetError
+from .errors import InputError, SettingError, SheetnetError
 
 CAUTION = (
     "A model is a decision aid, not a decision. Where its output affects people "
@@ -125,9 +125,12 @@ def _saved(book: Any, out: TextIO) -> None:
 def run_train(args: argparse.Namespace, out: TextIO) -> int:
     from . import functions
     from .cells import read_sheet_table
-    from .workbook import open_book, owned_sheet, read_range, store_model, write_block
+    from .workbook import check_model_name, open_book, owned_sheet, read_range, store_model, write_block
 
     book = open_book(args.book)
+    check_model_name(args.name)
+    if args.name in book.formulas.defined_names and not args.replace:
+        raise InputError(f"the workbook already has a name '{args.name}'; choose another model name, or ask to replace it (--replace)")
     table = read_range(book, args.table)
     sheet_table = read_sheet_table(table)
     sheet_table.column(args.target)
@@ -204,7 +207,7 @@ def run_models(args: argparse.Namespace, out: TextIO) -> int:
 
 def run_check(args: argparse.Namespace, out: TextIO) -> int:
     from .block import decode_block
-    from .errors import SettingError, SheetnetError
+    from .errors import InputError, SettingError, SheetnetError
     from .workbook import MODEL_SHEET_PREFIX, model_names, open_book, read_model
 
     book = open_book(args.book)

@@ -38,11 +38,15 @@ class BadValueError(InputError):
 
     def __init__(self, column: str, row: int, value: object, problem: str, fix: str) -> None:
         self.column = column
-        self.row = row
+        self.row = row  # data rows counted from 1
         self.value = value
         self.problem = problem
         self.fix = fix
         super().__init__(f"column '{column}', row {row}: {problem} ({value!r}); {fix}")
+
+    def moved(self, row: int, column: str | None = None) -> "BadValueError":
+        """The same error reported at another row (and column name), as a caller sees it."""
+        return BadValueError(column or self.column, row, self.value, self.problem, self.fix)
 
 
 class LengthMismatchError(InputError):
@@ -59,6 +63,20 @@ class ConstantColumnError(InputError):
 
 class UnknownCategoryError(InputError):
     """A text category appears that the model never saw in training."""
+
+    def __init__(self, column: str, row: int, category: object, known: tuple[object, ...]) -> None:
+        self.column = column
+        self.row = row  # data rows counted from 1
+        self.category = category
+        self.known = known
+        shown = ", ".join(map(str, known))
+        super().__init__(
+            f"column '{column}', row {row}: category {category!r} was not in the training rows (known: {shown}); "
+            "use a known category or retrain with rows that include it"
+        )
+
+    def moved(self, row: int, column: str | None = None) -> "UnknownCategoryError":
+        return UnknownCategoryError(column or self.column, row, self.category, self.known)
 
 
 class UnknownColumnError(InputError):

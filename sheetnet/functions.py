@@ -35,7 +35,7 @@ from .cells import (
     read_sheet_table,
     row_label,
 )
-from .errors import BadValueError, InputError, ModelError, SettingError, SheetnetError
+from .errors import BadValueError, InputError, ModelError, SettingError, SheetnetError, UnknownCategoryError
 from .evaluation import permutation_importance
 from .evaluation import score as score_model
 from .model import Model
@@ -56,7 +56,7 @@ def cell_function(fn: Callable[..., Cells]) -> Callable[..., Cells]:
     def guarded(*args: Any, **kwargs: Any) -> Cells:
         try:
             return fn(*args, **kwargs)
-        except BadValueError as error:
+        except (BadValueError, UnknownCategoryError) as error:
             return message_cell(_sheet_rows(str(error)))
         except SheetnetError as error:
             return message_cell(str(error))
@@ -81,9 +81,9 @@ def _in_sheet_rows(data_rows: np.ndarray, target: str | None, call: Callable[[],
     """Run ``call``; a bad cell it finds is reported at its row in the user's range."""
     try:
         return call()
-    except BadValueError as error:
+    except (BadValueError, UnknownCategoryError) as error:
         column = target if error.column == "target" and target else error.column
-        raise BadValueError(column, int(data_rows[error.row - 1]) + 1, error.value, error.problem, error.fix) from None
+        raise error.moved(int(data_rows[error.row - 1]) + 1, column) from None
 
 
 def _rows_used(table: SheetTable, columns: list[str], skip_blanks: bool) -> np.ndarray:

@@ -294,10 +294,7 @@ class Preparation:
                 unknown = known[index] != texts
                 if unknown.any():
                     row = int(np.argmax(unknown))
-                    raise UnknownCategoryError(
-                        f"column '{spec.name}', row {row + 1}: category '{texts[row]}' was not in the training rows "
-                        f"(known: {', '.join(spec.categories)}); use a known category or retrain with rows that include it"
-                    )
+                    raise UnknownCategoryError(spec.name, row + 1, str(texts[row]), spec.categories)
                 out[np.arange(n), at + index] = 1.0
             at += spec.width
         return out
@@ -408,9 +405,7 @@ class TargetPreparation:
             unknown = known[index] != y
             if unknown.any():
                 row = int(np.argmax(unknown))
-                raise UnknownCategoryError(
-                    f"target row {row + 1}: class {_plain(y[row])!r} was not in the training rows (known: {', '.join(map(str, self.classes))})"
-                )
+                raise UnknownCategoryError("target", row + 1, _plain(y[row]), self.classes)
             return index.astype(np.int64)
         where = {label: i for i, label in enumerate(self.classes)}
         out = np.empty(len(y), dtype=np.int64)
@@ -419,9 +414,7 @@ class TargetPreparation:
             if isinstance(label, str):
                 label = label.strip()
             if label not in where:
-                raise UnknownCategoryError(
-                    f"target row {i + 1}: class {label!r} was not in the training rows (known: {', '.join(map(str, self.classes))})"
-                )
+                raise UnknownCategoryError("target", i + 1, label, self.classes)
             out[i] = where[label]
         return out
 

@@ -186,7 +186,7 @@ def test_unknown_category_at_prediction(shipments, trained):
     _, model = trained
     new = [list(r) for r in shipments[:10]]
     new[3][4] = "liquid nitrogen"
-    _is_message(cellfn.predict(model, new), "category 'liquid nitrogen'", "known: dry ice, foam, gel pack")
+    _is_message(cellfn.predict(model, new), "column 'packaging', row 4 of the table", "category 'liquid nitrogen'", "known: dry ice, foam, gel pack")
 
 
 def test_missing_columns_and_unknown_targets(shipments, trained):
