@@ -12,12 +12,9 @@ noise are ours, chosen so that a small network has something real to find
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Any, Callable
 
 import numpy as np
 import pandas as pd
-
-import sheetnet
 
 
 def cold_chain_shipments(rows: int = 600, seed: int = 7) -> pd.DataFrame:
@@ -109,112 +106,51 @@ def coffee_lot_grades(rows: int = 450, seed: int = 5) -> pd.DataFrame:
     )
 
 
-def lagged(series: np.ndarray, lags: int) -> np.ndarray:
-    """Columns ``lag 1 .. lag k`` of a series (rows before the k-th are dropped): shape (n - k, k)."""
-    series = np.asarray(series, dtype=np.float64)
-    return np.column_stack([series[lags - j: len(series) - j] for j in range(1, lags + 1)])
-
-
-# --- the scenarios as ready-made problems for the demo ------------------------------------
+# --- the scenarios as the demo workbook lays them out ---------------------------------------
 
 @dataclass(frozen=True)
-class Problem:
-    """One demo task: inputs, target, the holdout rows and how to score a model on them."""
+class Scenario:
+    """One demo task: its table, what to predict, and how to split and train."""
 
-    slug: str  # short name for files
+    sheet: str
+    model_name: str
     title: str
-    inputs: Any
-    target: np.ndarray
-    holdout: np.ndarray  # True for held-out rows
-    hidden: tuple[int, ...]
-    note: str = ""
-    # turns a model's holdout predictions into the metrics to report; None: sheetnet.score
-    report: Callable[[Any], dict[str, Any]] | None = None
-    # (actual, predicted) on the holdout rows for regression pictures; None: target and model.predict
-    compare: Callable[[Any], tuple[np.ndarray, np.ndarray]] | None = None
-
-    def training_rows(self) -> tuple[Any, np.ndarray]:
-        return sheetnet.take_rows(self.inputs, ~self.holdout), self.target[~self.holdout]
-
-    def holdout_rows(self) -> tuple[Any, np.ndarray]:
-        return sheetnet.take_rows(self.inputs, self.holdout), self.target[self.holdout]
-
-    def actual_and_predicted(self, model: Any) -> tuple[np.ndarray, np.ndarray]:
-        if self.compare is not None:
-            return self.compare(model)
-        inputs, actual = self.holdout_rows()
-        return actual, model.predict(inputs)
-
-    def score(self, model: Any) -> dict[str, Any]:
-        if self.report is not None:
-            return self.report(model)
-        return sheetnet.score(model, *self.holdout_rows())
+    table: pd.DataFrame
+    target: str
+    hidden: str
+    settings: str  # as typed in SHEETNET.TRAIN's settings argument
+    split_mode: str  # as typed in SHEETNET.SPLIT's mode argument
+    holdout_share: float
+    level_column: str | None = None  # the target is a change: forecasts are this column plus the prediction
 
 
-def shipments_problem(seed: int = 0) -> Problem:
-    table = cold_chain_shipments(seed=seed + 7)
-    spoiled = table["spoiled"].to_numpy()
-    return Problem(
-        "shipments",
-        f"Cold-chain shipments: spoiled yes/no, {len(table)} rows",
-        table.drop(columns=["shipment", "spoiled"]),
-        spoiled,
-        sheetnet.holdout_mask(len(table), 0.25, seed, "stratified", spoiled),
-        (6,),
-    )
+def parcel_table(weeks: pd.DataFrame, lags: int = 4) -> pd.DataFrame:
+    """The weekly series as a table: next week's change from the last weekly changes and the season.
 
-
-def parcels_problem(seed: int = 0, lags: int = 4) -> Problem:
-    """Next week's parcels from the last weekly changes and the season, the last fifth held out.
-
-    The network predicts the change from this week to the next (which lets it
-    follow the trend beyond the training range); the report scores the
-    resulting level forecast against the naive 'same as this week' forecast.
+    Forecasting the change rather than the level lets the network follow the
+    trend beyond the range of the training weeks.
     """
-    weeks = depot_parcel_weeks(seed=seed + 11)
     level = weeks["parcels"].to_numpy(dtype=np.float64)
-    change = np.diff(level)  # change[t] = level[t + 1] - level[t]
-    week = weeks["week_of_year"].to_numpy()[lags + 1:]
-    angle = 2 * np.pi * week / 52
-    inputs = np.column_stack([lagged(change, lags), np.sin(angle), np.cos(angle)])
-    target = change[lags:]
-    this_week, next_week = level[lags:-1], level[lags + 1:]
-    held = sheetnet.holdout_mask(len(target), 0.2, mode="ordered")
-
-    def compare(model: Any) -> tuple[np.ndarray, np.ndarray]:
-        return next_week[held], this_week[held] + model.predict(inputs[held])
-
-    def report(model: Any) -> dict[str, Any]:
-        found: dict[str, Any] = sheetnet.metrics.regression_metrics(*compare(model))
-        found["naive_rmse"] = sheetnet.metrics.rmse(next_week[held], this_week[held])
-        return found
-
-    return Problem(
-        "parcels",
-        f"Depot parcels per week: next week from the last {lags} weekly changes and the season, {len(target)} weeks",
-        inputs,
-        target,
-        held,
-        (4,),
-        note="naive_rmse: the forecast 'next week as this week', for comparison",
-        report=report,
-        compare=compare,
-    )
+    change = np.append(np.diff(level), np.nan)  # change into next week; unknown for the last week
+    past = np.concatenate([[np.nan], change[:-1]])  # this week's change, from last week
+    angle = 2 * np.pi * (weeks["week_of_year"].to_numpy() % 52 + 1) / 52  # the season of next week
+    table = pd.DataFrame({"week starting": weeks["week_starting"].dt.strftime("%Y-%m-%d"), "parcels this week": level})
+    for k in range(1, lags + 1):
+        table[f"change lag {k}"] = np.concatenate([[np.nan] * (k - 1), past[: len(past) - k + 1]])
+    table["season sin"] = np.sin(angle)
+    table["season cos"] = np.cos(angle)
+    table["next change"] = change
+    return table.iloc[lags:-1].reset_index(drop=True)  # rows with a full history and a known next week
 
 
-def coffee_problem(seed: int = 0) -> Problem:
-    table = coffee_lot_grades(seed=seed + 5)
-    grade = table["grade"].to_numpy()
-    return Problem(
-        "coffee",
-        f"Coffee lots: grade A, B or C, {len(table)} rows",
-        table.drop(columns=["lot", "grade"]),
-        grade,
-        sheetnet.holdout_mask(len(table), 0.25, seed, "stratified", grade),
-        (6,),
-    )
-
-
-def problems(seed: int = 0) -> list[Problem]:
-    """The three demo problems, in the order the demo shows them."""
-    return [shipments_problem(seed), parcels_problem(seed), coffee_problem(seed)]
+def scenarios(seed: int = 0) -> list[Scenario]:
+    """The three demo scenarios, in the order the demo shows them."""
+    return [
+        Scenario("Shipments", "shipments_model", "Did a refrigerated shipment arrive spoiled?", cold_chain_shipments(seed=seed + 7),
+                 "spoiled", "6", f"ignore=shipment; seed={seed}", "stratified spoiled", 0.25),
+        Scenario("Parcels", "parcels_model", "Next week's parcels at the depot (a forecast of the weekly change)",
+                 parcel_table(depot_parcel_weeks(seed=seed + 11)), "next change", "4",
+                 f"ignore=week starting, parcels this week; seed={seed}", "ordered", 0.2, level_column="parcels this week"),
+        Scenario("Coffee", "coffee_model", "Which grade does a green-coffee lot earn?", coffee_lot_grades(seed=seed + 5),
+                 "grade", "6", f"ignore=lot; seed={seed}", "stratified grade", 0.25),
+    ]

@@ -50,52 +50,61 @@ class ProgressLine:
 def _print_metrics(metrics: dict[str, Any], out: TextIO) -> None:
     for name, value in metrics.items():
         if isinstance(value, float):
-            out.write(f"    {name:<18} {value:.4f}\n")
-        elif value is None:
-            out.write(f"    {name:<18} (not defined for these rows)\n")
-    if "confusion" in metrics:
-        classes = list(metrics["per_class"])
-        out.write("    confusion (rows actual, columns predicted): " + " ".join(map(str, classes)) + "\n")
-        for label, row in zip(classes, metrics["confusion"]):
-            out.write(f"      {str(label):<10} " + " ".join(f"{n:>5d}" for n in row) + "\n")
+            out.write(f"    {name:<32} {value:.4f}\n")
+        elif value is None or value == "":
+            out.write(f"    {name:<32} (not defined for these rows)\n")
 
 
-def run_demo(seed: int, out: TextIO, pictures: Path | None = None) -> int:
-    """Train and check a model on each invented scenario; print holdout metrics, draw pictures."""
-    import sheetnet_demo
+def run_demo(seed: int, out: TextIO, workbook: Path, pictures: Path | None = None) -> int:
+    """Write the demo workbook (three invented scenarios), print holdout metrics, draw pictures on request."""
+    from .demo_workbook import build_demo_workbook
 
-    from .training import fit
+    bars: list[ProgressLine] = []
+
+    def progress_for(label: str) -> ProgressLine:
+        if bars:
+            bars[-1].done()
+        bars.append(ProgressLine(f"training {label}"))
+        return bars[-1]
 
     out.write(f"sheetnet {__version__}: demo on invented data (seed {seed})\n")
+    target, results = build_demo_workbook(workbook, seed, progress_for)
+    if bars:
+        bars[-1].done()
     drawn: list[Path] = []
-    for number, problem in enumerate(sheetnet_demo.problems(seed), start=1):
-        bar = ProgressLine(f"scenario {number}")
-        inputs, target = problem.training_rows()
-        model = fit(inputs, target, hidden=problem.hidden, seed=seed, progress=bar)
-        bar.done()
-        metrics = problem.score(model)
-        out.write(f"\n{number}. {problem.title}, {int(problem.holdout.sum())} held out\n")
-        out.write(f"   network {model.sizes}, {model.algorithm}, stopped by '{model.stopped_by}' after {model.epochs} epochs\n")
-        _print_metrics(metrics, out)
-        if problem.note:
-            out.write(f"    ({problem.note})\n")
+    for number, result in enumerate(results, start=1):
+        model, scenario = result.model, result.scenario
+        holdout = int(result.metrics.get("rows", 0))
+        out.write(f"\n{number}. {scenario.sheet}: {scenario.title} ({len(scenario.table)} rows, {holdout} held out)\n")
+        out.write(f"   network {'-'.join(map(str, model.sizes))}, {model.algorithm}, stopped by '{model.stopped_by}' after {model.epochs} epochs\n")
+        _print_metrics({k: v for k, v in result.metrics.items() if k != "rows"}, out)
+        if result.confusion is not None:
+            _print_confusion(result.confusion, list(model.classes), out)
         if pictures is not None:
-            drawn.extend(_draw(problem, model, metrics, pictures / f"{number}-{problem.slug}"))
+            drawn.extend(_draw(result, pictures / f"{number}-{scenario.sheet.lower()}"))
+    out.write(f"\nworkbook: {target} (models on very hidden sheets, predictions beside the data, charts)\n")
     if drawn:
-        out.write("\npictures:\n" + "".join(f"  {path}\n" for path in drawn))
+        out.write("pictures:\n" + "".join(f"  {path}\n" for path in drawn))
     out.write(f"\n{CAUTION}\n")
     return 0
 
 
-def _draw(problem: Any, model: Any, metrics: dict[str, Any], stem: Path) -> list[Path]:
+def _print_confusion(matrix: Any, classes: list[Any], out: TextIO) -> None:
+    out.write("    confusion (rows actual, columns predicted): " + " ".join(map(str, classes)) + "\n")
+    for label, row in zip(classes, matrix):
+        out.write(f"      {str(label):<10} " + " ".join(f"{n:>5d}" for n in row) + "\n")
+
+
+def _draw(result: Any, stem: Path) -> list[Path]:
     from . import pictures
 
-    drawn = [pictures.loss_curve_picture(model, f"{stem}-training.png", problem.title)]
-    if "confusion" in metrics:
-        drawn.append(pictures.confusion_picture(metrics["confusion"], list(metrics["per_class"]), f"{stem}-confusion.png", problem.title))
+    title = result.scenario.title
+    drawn = [pictures.loss_curve_picture(result.model, f"{stem}-training.png", title)]
+    if result.confusion is not None:
+        drawn.append(pictures.confusion_picture(result.confusion, list(result.model.classes), f"{stem}-confusion.png", title))
     else:
-        actual, predicted = problem.actual_and_predicted(model)
-        drawn.append(pictures.predicted_vs_actual_picture(actual, predicted, f"{stem}-predicted.png", problem.title))
+        actual, predicted = zip(*result.pairs)
+        drawn.append(pictures.predicted_vs_actual_picture(actual, predicted, f"{stem}-predicted.png", title))
     return drawn
 
 
@@ -207,7 +216,7 @@ def run_models(args: argparse.Namespace, out: TextIO) -> int:
 
 def run_check(args: argparse.Namespace, out: TextIO) -> int:
     from .block import decode_block
-    from .errors import InputError, SettingError, SheetnetError
+    from .errors import SheetnetError
     from .workbook import MODEL_SHEET_PREFIX, model_names, open_book, read_model
 
     book = open_book(args.book)
@@ -245,8 +254,8 @@ def build_parser() -> argparse.ArgumentParser:
     commands = parser.add_subparsers(dest="command", required=True)
     demo = commands.add_parser("demo", help="train and check models on the built-in invented scenarios")
     demo.add_argument("--seed", type=int, default=0, help="seed for data, splits and training (default 0)")
-    demo.add_argument("--pictures", type=Path, default=Path("sheetnet-demo"), metavar="FOLDER", help="where to write the PNG pictures (default: sheetnet-demo)")
-    demo.add_argument("--no-pictures", action="store_true", help="print the metrics only")
+    demo.add_argument("--out", type=Path, default=Path("sheetnet-demo.xlsx"), metavar="FILE", help="the demo workbook to write (default: sheetnet-demo.xlsx)")
+    demo.add_argument("--pictures", type=Path, metavar="FOLDER", help="also write PNG pictures of the curves and matrices into this folder")
     commands.add_parser("settings", help="list every training setting with its default")
     commands.add_parser("functions", help="list the cell functions and their arguments")
 
@@ -280,7 +289,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     try:
         if args.command == "demo":
-            return run_demo(args.seed, sys.stdout, None if args.no_pictures else args.pictures)
+            return run_demo(args.seed, sys.stdout, args.out, args.pictures)
         if args.command == "settings":
             from .settings import settings_table_markdown
 

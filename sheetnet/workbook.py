@@ -238,10 +238,15 @@ def save_book(book: Book) -> tuple[Path, str]:
             f"{book.path.name} holds parts that openpyxl cannot keep ({', '.join(lost)}), so it was left untouched "
             f"and the result was written to {target.name}"
         )
-    handle, temporary = tempfile.mkstemp(prefix=".sheetnet-", suffix=book.path.suffix, dir=target.parent)
+    return save_new(book.formulas, target), note
+
+
+def save_new(workbook: Workbook, target: Path) -> Path:
+    """Save atomically: a temporary file beside the target, renamed over it; the old file kept as .bak."""
+    handle, temporary = tempfile.mkstemp(prefix=".sheetnet-", suffix=target.suffix, dir=target.parent)
     os.close(handle)
     try:
-        book.formulas.save(temporary)
+        workbook.save(temporary)
         with open(temporary, "rb") as written:
             os.fsync(written.fileno())
         if target.exists():
@@ -250,7 +255,7 @@ def save_book(book: Book) -> tuple[Path, str]:
     finally:
         if os.path.exists(temporary):
             os.unlink(temporary)
-    return target, note
+    return target
 
 
 def _free_name(path: Path) -> Path:

@@ -8,29 +8,40 @@ from sheetnet import cli
 from sheetnet.settings import settings_table_markdown
 
 
-def test_demo_trains_and_reports_every_scenario(capsys, tmp_path):
-    assert cli.main(["demo", "--pictures", str(tmp_path / "pictures")]) == 0
+def test_demo_writes_the_workbook_and_reports_every_scenario(capsys, tmp_path):
+    book = tmp_path / "demo.xlsx"
+    assert cli.main(["demo", "--out", str(book), "--pictures", str(tmp_path / "pictures")]) == 0
     out = capsys.readouterr().out
-    for heading in ("1. Cold-chain shipments", "2. Depot parcels per week", "3. Coffee lots"):
+    for heading in ("1. Shipments", "2. Parcels", "3. Coffee"):
         assert heading in out
     assert out.count("stopped by") == 3
-    assert "naive_rmse" in out
+    assert "naive RMSE (same as this week)" in out
     assert "decision aid" in out and "bias" in out and "local law" in out
     accuracy = float(out.split("accuracy")[1].split()[0])
     assert 0.7 < accuracy <= 1.0
+    forecast = float(out.split("forecast RMSE (parcels next week)")[1].split()[0])
+    naive = float(out.split("naive RMSE (same as this week)")[1].split()[0])
+    assert forecast < naive
     drawn = sorted(p.name for p in (tmp_path / "pictures").iterdir())
     assert drawn == [
         "1-shipments-confusion.png", "1-shipments-training.png",
         "2-parcels-predicted.png", "2-parcels-training.png",
         "3-coffee-confusion.png", "3-coffee-training.png",
     ]
+    assert book.exists()
 
 
-def test_demo_without_pictures_writes_no_files(capsys, tmp_path, monkeypatch):
-    monkeypatch.chdir(tmp_path)
-    assert cli.main(["demo", "--no-pictures", "--seed", "3"]) == 0
-    assert "pictures:" not in capsys.readouterr().out
-    assert list(tmp_path.iterdir()) == []
+def test_demo_refuses_to_overwrite_a_workbook_it_did_not_write(capsys, tmp_path):
+    import openpyxl
+
+    mine = tmp_path / "mine.xlsx"
+    workbook = openpyxl.Workbook()
+    workbook.active["A1"] = "my budget"
+    workbook.save(mine)
+    before = mine.read_bytes()
+    assert cli.main(["demo", "--out", str(mine)]) == 1
+    assert "is not a sheetnet demo workbook" in capsys.readouterr().err
+    assert mine.read_bytes() == before
 
 
 def test_settings_prints_the_documented_table(capsys):
@@ -39,7 +50,7 @@ def test_settings_prints_the_documented_table(capsys):
 
 
 def test_sheetnet_errors_become_one_line_and_exit_code_1(monkeypatch, capsys):
-    def broken(seed, out, pictures=None):
+    def broken(seed, out, workbook, pictures=None):
         from sheetnet.errors import NotEnoughRowsError
 
         raise NotEnoughRowsError("training needs at least 4 rows; got 3. Add rows")

@@ -4,9 +4,9 @@ import zipfile
 
 import numpy as np
 import openpyxl
+import sheetnet_demo
 from openpyxl.chart import BarChart, Reference
 
-import sheetnet_demo
 from sheetnet import cli
 from sheetnet.block import MAGIC, decode_block
 from sheetnet.workbook import open_book, read_model, unread_parts
