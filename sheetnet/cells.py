@@ -51,7 +51,9 @@ def as_grid(cells: Any, what: str) -> list[list[Any]]:
         raise InputError(f"the {what} range is empty; select a range with a header row and data rows")
     width = max(len(r) for r in rows)
     if len(rows) * width > MAX_CELLS:
-        raise InputError(f"the {what} range has {len(rows) * width:,} cells, more than the {MAX_CELLS:,} sheetnet reads; select only the rows and columns in use")
+        raise InputError(
+            f"the {what} range has {len(rows) * width:,} cells, more than the {MAX_CELLS:,} sheetnet reads; select only the rows and columns in use"
+        )
     return [r + [None] * (width - len(r)) for r in rows]
 
 

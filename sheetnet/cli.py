@@ -266,7 +266,10 @@ def build_parser() -> argparse.ArgumentParser:
     train.add_argument("--name", required=True, help="the model's name (a workbook-level defined name)")
     train.add_argument("--hidden", default="4", help="hidden layer widths, like 8 or 8,4 (default 4)")
     train.add_argument("--holdout", type=float, default=0.2, help="share of rows held out for checking (default 0.2; 0 for none)")
-    train.add_argument("--mode", default="auto", choices=["auto", "random", "stratified", "ordered"], help="how holdout rows are chosen (auto: stratified by class for text targets, else random)")
+    train.add_argument(
+        "--mode", default="auto", choices=["auto", "random", "stratified", "ordered"],
+        help="how holdout rows are chosen (auto: stratified by class for text targets, else random)",
+    )
     train.add_argument("--seed", type=int, default=0, help="seed of the split and the training (default 0)")
     train.add_argument("--set", action="append", default=[], metavar="NAME=VALUE", help="a training setting; repeat for more (see: sheetnet settings)")
     train.add_argument("--replace", action="store_true", help="replace a stored model of the same name")

@@ -162,7 +162,7 @@ def _loss_curve(sheet: Any, model: Any, row: int, column: int) -> None:
     data_column = column + 12
     _header(sheet, row, data_column, ["epoch (sampled)", "training loss", "validation loss"])
     n = len(member.training_curve)
-    epochs = np.unique(np.linspace(1, member.epochs, n).round().astype(int)) if n else []
+    epochs: list[int] = np.unique(np.linspace(1, member.epochs, n).round().astype(int)).tolist() if n else []
     for i, (epoch, loss) in enumerate(zip(epochs, member.training_curve)):
         sheet.cell(row + 1 + i, data_column, int(epoch))
         sheet.cell(row + 1 + i, data_column + 1, loss)
@@ -213,7 +213,9 @@ def _predicted_vs_actual(sheet: Any, pairs: list[tuple[float, float]], label: st
     sheet.add_chart(chart, f"{get_column_letter(column)}{row}")
 
 
-def _confusion(sheet: Any, split: list[list[Any]], table: list[list[Any]], predicted: list[list[Any]], target: str, classes: list[Any], row: int, column: int) -> np.ndarray:
+def _confusion(
+    sheet: Any, split: list[list[Any]], table: list[list[Any]], predicted: list[list[Any]], target: str, classes: list[Any], row: int, column: int
+) -> np.ndarray:
     target_index = table[0].index(target)
     counts = np.zeros((len(classes), len(classes)), dtype=int)
     position = {str(c): i for i, c in enumerate(classes)}

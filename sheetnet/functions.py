@@ -177,7 +177,8 @@ def split(table: Any, holdout_share: Any = None, seed: Any = None, mode: Any = N
     elif lowered not in ("random", "ordered"):
         raise SettingError(f"split mode {text!r} is not known; use random, ordered, or 'stratified COLUMN'")
     held = holdout_mask(len(sheet.frame), share, chosen_seed, lowered, labels)
-    answer: Cells = [["split"]] + [[""] for _ in range(sheet.n_rows)]
+    answer: Cells = [["split"]]
+    answer += [[""] for _ in range(sheet.n_rows)]
     for k, row in enumerate(sheet.data_rows):
         answer[row + 1][0] = "holdout" if held[k] else "train"
     return answer
@@ -240,7 +241,9 @@ def train_block(table: Any, target: Any, hidden: Any = None, settings: Any = Non
     seed = int(_number_setting(options.get("seed", 0), "seed"))
     layers = parse_hidden(hidden)
     categories = _name_list(options.get("categories"))
-    model = _in_sheet_rows(sheet.data_rows[training], target_name, lambda: fit(frame, y, layers, seed, categories=categories, progress=progress, **engine_settings))
+    model = _in_sheet_rows(
+        sheet.data_rows[training], target_name, lambda: fit(frame, y, layers, seed, categories=categories, progress=progress, **engine_settings)
+    )
 
     metrics: dict[str, float] = {}
     holdout = used & held
@@ -415,6 +418,7 @@ def lags(series: Any, lags: Any = None) -> Cells:
             raise BadValueError(name, i + 1, value, "text in a numeric series", "type a number or clear the cell")
         else:
             numbers.append(float(value))
-    header = [f"{name} lag {k}" for k in steps]
-    body = [[numbers[i - k] if i - k >= 0 and numbers[i - k] is not None else "" for k in steps] for i in range(len(numbers))]
-    return [header] + body
+    answer: Cells = [[f"{name} lag {k}" for k in steps]]
+    for i in range(len(numbers)):
+        answer.append([numbers[i - k] if i - k >= 0 and numbers[i - k] is not None else "" for k in steps])
+    return answer

@@ -122,7 +122,10 @@ def test_macros_in_xlsm_are_kept(tmp_path, capsys):
                 data = data.replace(
                     b"application/vnd.openxmlformats-officedocument.spreadsheetml.sheet.main+xml",
                     b"application/vnd.ms-excel.sheet.macroEnabled.main+xml",
-                ).replace(b"<Default Extension=\"xml\"", b"<Default Extension=\"bin\" ContentType=\"application/vnd.ms-office.vbaProject\"/><Default Extension=\"xml\"")
+                ).replace(
+                    b"<Default Extension=\"xml\"",
+                    b"<Default Extension=\"bin\" ContentType=\"application/vnd.ms-office.vbaProject\"/><Default Extension=\"xml\"",
+                )
             target.writestr(item, data)
         target.writestr("xl/vbaProject.bin", b"stand-in VBA project bytes")
     assert _train(path, rows) == 0
@@ -158,7 +161,7 @@ def test_models_lists_every_stored_model(tmp_path, capsys):
 
 def test_bad_input_gives_a_one_line_error(tmp_path, capsys):
     path = tmp_path / "lots.xlsx"
-    rows = _write_book(path)
+    _write_book(path)
     assert cli.main(["train", str(path), "--table", "Lots!A1:G9", "--target", "grade", "--name", "A1"]) == 1
     assert "look like cell addresses" in capsys.readouterr().err
     assert cli.main(["train", str(path), "--table", "Nowhere!A1:G9", "--target", "grade", "--name", "g"]) == 1
