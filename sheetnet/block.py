@@ -245,7 +245,9 @@ def decode_block(cells: Any) -> tuple[Model, BlockInfo]:
     if isinstance(version, bool) or not isinstance(version, (int, float)) or version != int(version):
         raise BlockError(f"the model block's format version is {version!r}; the block is damaged: train again")
     if int(version) > FORMAT_VERSION:
-        raise BlockError(f"the model block was written by a newer sheetnet (format {int(version)}; this one reads up to {FORMAT_VERSION}); upgrade sheetnet to use it")
+        raise BlockError(
+            f"the model block was written by a newer sheetnet (format {int(version)}; this one reads up to {FORMAT_VERSION}); upgrade sheetnet to use it"
+        )
     records, stored = _records_of(grid)
     if stored is None:
         raise BlockError("the model block is incomplete (its checksum row is missing); select the whole block, down to the row that starts with 'checksum'")
