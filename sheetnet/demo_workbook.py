@@ -46,6 +46,7 @@ class ScenarioResult:
     metrics: dict[str, Any]
     pairs: list[tuple[float, float]]  # (actual, predicted) on holdout rows, for regression
     confusion: np.ndarray | None  # holdout counts, rows actual, columns predicted, for classes
+    block: list[list[Any]]
 
 
 def _cells(frame: pd.DataFrame) -> list[list[Any]]:
@@ -133,9 +134,7 @@ def write_scenario(workbook: Any, scenario: Scenario, progress: ProgressCallback
         pairs = []
         confusion = _confusion(sheet, split, table, predicted, scenario.target, list(model.classes), curve_row + 22, chart_column)
 
-    book = Book(Path("."), workbook, workbook)
-    store_model(book, scenario.model_name, block, replace=True)
-    return ScenarioResult(scenario, model, {row[0]: row[1] for row in scored[1:]}, pairs, confusion)
+    return ScenarioResult(scenario, model, {row[0]: row[1] for row in scored[1:]}, pairs, confusion, block)
 
 
 def _level_forecast(scenario: Scenario, table: list[list[Any]], split: list[list[Any]], predicted: list[list[Any]]) -> tuple[list[list[Any]], list[list[Any]]]:
@@ -274,6 +273,9 @@ def build_demo_workbook(
             f'=SHEETNET.TRAIN({data}, "{scenario.target}", {scenario.hidden}, "{scenario.settings}", {split_range})  then  '
             f"=SHEETNET.PREDICT({scenario.model_name}, {data})"
         ))
+    book = Book(path, workbook, workbook)
+    for result in results:  # hidden model sheets after every visible one
+        store_model(book, result.scenario.model_name, result.block, replace=True)
     readme.column_dimensions["A"].width = 12
     readme.column_dimensions["B"].width = 60
     readme.column_dimensions["C"].width = 120

@@ -1,0 +1,83 @@
+"""The demo workbook, checked with openpyxl: scenarios, hidden models, predictions, charts."""
+
+import zipfile
+
+import numpy as np
+import openpyxl
+import pytest
+
+import sheetnet_demo
+from sheetnet.block import decode_block
+from sheetnet.demo_workbook import build_demo_workbook
+from sheetnet.workbook import open_book, read_model
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    path = tmp_path_factory.mktemp("demo") / "demo.xlsx"
+    written, results = build_demo_workbook(path, seed=0)
+    return written, results
+
+
+def test_every_scenario_has_a_sheet_and_a_very_hidden_model(demo):
+    path, results = demo
+    book = openpyxl.load_workbook(path)
+    assert book.sheetnames[:4] == ["Read me", "Shipments", "Parcels", "Coffee"]
+    assert "decision aid" in book["Read me"]["A2"].value
+    for name in ("shipments_model", "parcels_model", "coffee_model"):
+        sheet, cells = list(book.defined_names[name].destinations)[0]
+        assert book[sheet].sheet_state == "veryHidden"
+    opened = open_book(path)
+    for result in results:
+        model, info = decode_block(read_model(opened, result.scenario.model_name))
+        assert info.target == result.scenario.target
+        assert info.holdout_rows == result.metrics["rows"] > 0
+
+
+def test_predictions_sit_beside_the_data_rows(demo):
+    path, results = demo
+    book = openpyxl.load_workbook(path)
+    opened = open_book(path)
+    for result in results:
+        scenario = result.scenario
+        sheet = book[scenario.sheet]
+        width = len(scenario.table.columns)
+        assert sheet.cell(1, width + 1).value == "split"
+        assert sheet.cell(1, width + 2).value == f"predicted {scenario.target}"
+        model, _ = decode_block(read_model(opened, scenario.model_name))
+        inputs = scenario.table[list(model.input_names)]
+        expected = model.predict(inputs)
+        written = [sheet.cell(r, width + 2).value for r in range(2, len(scenario.table) + 2)]
+        if model.task == "regression":
+            np.testing.assert_allclose(np.array(written, dtype=float), expected, rtol=1e-12)
+        else:
+            assert written == expected.tolist()
+        marks = [sheet.cell(r, width + 1).value for r in range(2, len(scenario.table) + 2)]
+        assert marks.count("holdout") == result.metrics["rows"]
+
+
+def test_the_time_series_is_held_out_at_its_end_and_beats_the_naive_forecast(demo):
+    path, results = demo
+    parcels = next(r for r in results if r.scenario.sheet == "Parcels")
+    sheet = openpyxl.load_workbook(path)["Parcels"]
+    width = len(parcels.scenario.table.columns)
+    marks = [sheet.cell(r, width + 1).value for r in range(2, len(parcels.scenario.table) + 2)]
+    first_holdout = marks.index("holdout")
+    assert set(marks[first_holdout:]) == {"holdout"} and set(marks[:first_holdout]) == {"train"}
+    assert parcels.metrics["forecast RMSE (parcels next week)"] < parcels.metrics["naive RMSE (same as this week)"]
+
+
+def test_charts_are_in_the_workbook(demo):
+    path, _ = demo
+    with zipfile.ZipFile(path) as package:
+        charts = [n for n in package.namelist() if n.startswith("xl/charts/chart")]
+    assert len(charts) == 4  # a training curve per scenario and predicted against actual for the forecast
+
+
+def test_the_demo_data_come_from_the_seeded_generators():
+    first = sheetnet_demo.scenarios(seed=3)
+    again = sheetnet_demo.scenarios(seed=3)
+    other = sheetnet_demo.scenarios(seed=4)
+    for a, b, c in zip(first, again, other):
+        assert a.table.equals(b.table)
+        assert not a.table.equals(c.table)
