@@ -251,6 +251,11 @@ def save_new(workbook: Workbook, target: Path) -> Path:
             os.fsync(written.fileno())
         if target.exists():
             shutil.copy2(target, target.with_name(target.name + ".bak"))
+            shutil.copymode(target, temporary)  # the file keeps the permissions it had
+        else:
+            umask = os.umask(0)
+            os.umask(umask)
+            os.chmod(temporary, 0o666 & ~umask)
         os.replace(temporary, target)
     finally:
         if os.path.exists(temporary):
