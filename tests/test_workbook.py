@@ -168,3 +168,11 @@ def test_bad_input_gives_a_one_line_error(tmp_path, capsys):
     assert "no sheet named 'Nowhere'" in capsys.readouterr().err
     assert cli.main(["train", str(tmp_path / "missing.xlsx"), "--table", "Lots!A1:G9", "--target", "grade", "--name", "g"]) == 1
     assert "there is no workbook" in capsys.readouterr().err
+
+
+def test_a_saved_workbook_keeps_its_file_permissions(tmp_path, capsys):
+    path = tmp_path / "lots.xlsx"
+    rows = _write_book(path)
+    path.chmod(0o640)
+    assert _train(path, rows) == 0
+    assert path.stat().st_mode & 0o777 == 0o640
