@@ -199,6 +199,16 @@ def run_predict(args: argparse.Namespace, out: TextIO) -> int:
     return 0
 
 
+def run_formulas(args: argparse.Namespace, out: TextIO) -> int:
+    from .workbook import open_book, write_native_formulas
+
+    book = open_book(args.book)
+    where, rows = write_native_formulas(book, args.model, args.table, args.to, args.output)
+    _saved(book, out)
+    out.write(f"{rows} rows of native formulas for model {args.model} written to {where}; they read the model's constants through names starting snf_{args.model}_\n")
+    return 0
+
+
 def run_models(args: argparse.Namespace, out: TextIO) -> int:
     from . import functions
     from .workbook import model_names, open_book, read_model
@@ -281,6 +291,13 @@ def build_parser() -> argparse.ArgumentParser:
     predict.add_argument("--to", help="an empty range to write into, like 'New!H1'; default: a sheet of sheetnet's")
     predict.add_argument("--output", default="value", help="value, probabilities, interval, flag (may be combined)")
 
+    native = commands.add_parser("formulas", help="write native spreadsheet formulas that predict with no Python")
+    native.add_argument("book", type=Path)
+    native.add_argument("--model", required=True, help="the stored model's name")
+    native.add_argument("--table", required=True, help="the rows to predict, with a header row, like 'Data!A1:E500'")
+    native.add_argument("--to", help="an empty range to write into, like 'Data!H1'; default: a sheet of sheetnet's")
+    native.add_argument("--output", default="value", choices=["value", "class", "probabilities"], help="what each formula gives (default value)")
+
     models = commands.add_parser("models", help="list the models stored in a workbook file")
     models.add_argument("book", type=Path)
     check = commands.add_parser("check", help="verify every model block in a workbook file (exit code 1 if one fails)")
@@ -300,7 +317,7 @@ def main(argv: Sequence[str] | None = None) -> int:
             return 0
         if args.command == "functions":
             return run_functions(sys.stdout)
-        runners = {"train": run_train, "predict": run_predict, "models": run_models, "check": run_check}
+        runners = {"train": run_train, "predict": run_predict, "formulas": run_formulas, "models": run_models, "check": run_check}
         return runners[args.command](args, sys.stdout)
     except SheetnetError as error:
         print(f"{type(error).__name__}: {error}", file=sys.stderr)

@@ -182,7 +182,83 @@ def store_model(book: Book, name: str, block: list[list[Any]], replace: bool = F
             sheet.append([None if v == "" else v for v in row])
     reference = f"{quote_sheetname(sheet_name)}!$A$1:${get_column_letter(WIDTH)}${len(block)}"
     book.formulas.defined_names[name] = DefinedName(name, attr_text=reference)
+    _store_constants(book, name, sheet_name, block)
     return reference
+
+
+CONSTANTS_COLUMN = WIDTH + 2  # the native formulas' constants start two columns right of the block
+
+
+def _store_constants(book: Book, name: str, sheet_name: str, block: list[list[Any]]) -> None:
+    """Lay out the named ranges native formulas read, beside the block; replaces the model's old ones."""
+    from .block import decode_block
+    from .formulas import formula_constants, name_prefix
+
+    model, _ = decode_block(block)
+    prefix = name_prefix(name)
+    for old in [n for n in book.formulas.defined_names if n.startswith(prefix)]:
+        del book.formulas.defined_names[old]
+    row = 1
+    for constant in formula_constants(model, name):
+        height, width = constant.shape
+        for workbook in (book.formulas, book.values):
+            sheet = workbook[sheet_name]
+            for i, values in enumerate(constant.values):
+                for j, value in enumerate(values):
+                    sheet.cell(row + i, CONSTANTS_COLUMN + j, value)
+        first = f"${get_column_letter(CONSTANTS_COLUMN)}${row}"
+        last = f"${get_column_letter(CONSTANTS_COLUMN + width - 1)}${row + height - 1}"
+        book.formulas.defined_names[constant.name] = DefinedName(constant.name, attr_text=f"{quote_sheetname(sheet_name)}!{first}:{last}")
+        row += height + 1
+
+
+def write_native_formulas(book: Book, name: str, table_reference: str, to: str | None, output: str) -> tuple[str, int]:
+    """One native formula per output cell for each data row of the table; returns where and how many rows."""
+    from openpyxl.worksheet.formula import ArrayFormula
+
+    from .block import decode_block
+    from .cells import is_blank
+    from .formulas import native_formula
+
+    model, info = decode_block(read_model(book, name))
+    if name_prefix_missing(book, name):
+        _store_constants(book, name, list(book.formulas.defined_names[name].destinations)[0][0], read_model(book, name))
+    grid = read_range(book, table_reference)
+    sheet_name, cells = split_reference(table_reference)
+    min_col, min_row = range_boundaries(cells)[:2]
+    header = [str(v).strip() if v is not None else "" for v in grid[0]]
+    missing = [n for n in model.input_names if n not in header]
+    if missing:
+        raise InputError(f"the table has no column named {', '.join(repr(m) for m in missing)}; the model needs {', '.join(model.input_names)}")
+    columns = {n: get_column_letter(min_col + header.index(n)) for n in model.input_names}
+    if output == "probabilities" and model.task != "regression":
+        titles = [f"native P({c})" for c in model.classes]
+    else:
+        titles = [f"native {'class' if output == 'class' else 'predicted'} {info.target}"]
+    if to:
+        sheet, corner = check_empty(book, to, len(grid), len(titles))
+    else:
+        sheet, corner = owned_sheet(book, f"sn formulas {name}"), "A3"
+    start_col, start_row = range_boundaries(corner + ":" + corner)[:2]
+    for j, title in enumerate(titles):
+        sheet.cell(start_row, start_col + j, title)
+    quoted = quote_sheetname(sheet_name)
+    written = 0
+    for i, row in enumerate(grid[1:], start=1):
+        if all(is_blank(v) for v in row):
+            continue
+        refs = {n: f"{quoted}!${col}{min_row + i}" for n, col in columns.items()}
+        for j in range(len(titles)):
+            target = f"{get_column_letter(start_col + j)}{start_row + i}"
+            sheet[target] = ArrayFormula(target, native_formula(model, name, refs, output, j))
+        written += 1
+    return f"{sheet.title}!{corner}", written
+
+
+def name_prefix_missing(book: Book, name: str) -> bool:
+    from .formulas import name_prefix
+
+    return not any(n.startswith(name_prefix(name)) for n in book.formulas.defined_names)
 
 
 # --- our visible sheets ---------------------------------------------------------------------
