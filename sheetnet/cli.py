@@ -225,20 +225,23 @@ def run_models(args: argparse.Namespace, out: TextIO) -> int:
 
 
 def run_check(args: argparse.Namespace, out: TextIO) -> int:
-    from .block import decode_block
+    from .block import BlockError, decode_block
     from .errors import SheetnetError
-    from .workbook import MODEL_SHEET_PREFIX, model_names, open_book, read_model
+    from .workbook import MODEL_SHEET_PREFIX, changed_constants, model_names, open_book, read_model
 
     book = open_book(args.book)
     names = set(model_names(book))
     for name, defined in book.formulas.defined_names.items():
         destinations = list(defined.destinations)
-        if len(destinations) == 1 and destinations[0][0].startswith(MODEL_SHEET_PREFIX):
+        if len(destinations) == 1 and destinations[0][0].startswith(MODEL_SHEET_PREFIX) and not name.startswith("snf_"):
             names.add(name)
     failed = 0
     for name in sorted(names):
         try:
             decode_block(read_model(book, name))
+            changed = changed_constants(book, name)
+            if changed:
+                raise BlockError(f"the native-formula constants {', '.join(changed)} differ from the model block; run sheetnet formulas again or retrain")
             out.write(f"ok      {name}\n")
         except SheetnetError as error:
             failed += 1

@@ -255,6 +255,27 @@ def write_native_formulas(book: Book, name: str, table_reference: str, to: str |
     return f"{sheet.title}!{corner}", written
 
 
+def changed_constants(book: Book, name: str) -> list[str]:
+    """Names of the model's native-formula constants whose cells differ from what its block implies."""
+    from .block import decode_block
+    from .formulas import formula_constants, name_prefix
+
+    model, _ = decode_block(read_model(book, name))
+    expected = {c.name: c for c in formula_constants(model, name)}
+    stored = {n for n in book.formulas.defined_names if n.startswith(name_prefix(name))}
+    changed = sorted(stored ^ set(expected)) if stored else []
+    for constant_name in sorted(stored & set(expected)):
+        sheet, cells = list(book.formulas.defined_names[constant_name].destinations)[0]
+        values = read_range(book, f"{quote_sheetname(sheet)}!{cells}")
+        wanted = expected[constant_name].values
+        if len(values) != len(wanted) or any(
+            len(got) != len(want) or any(g != w and not (isinstance(g, float) and isinstance(w, float) and abs(g - w) <= 1e-15 * max(abs(w), 1e-300)) for g, w in zip(got, want))
+            for got, want in zip(values, wanted)
+        ):
+            changed.append(constant_name)
+    return changed
+
+
 def name_prefix_missing(book: Book, name: str) -> bool:
     from .formulas import name_prefix
 

@@ -5,8 +5,8 @@ import zipfile
 import numpy as np
 import openpyxl
 import pytest
-
 import sheetnet_demo
+
 from sheetnet.block import decode_block
 from sheetnet.demo_workbook import build_demo_workbook
 from sheetnet.workbook import open_book, read_model

@@ -13,9 +13,9 @@ import sys
 from pathlib import Path
 
 import openpyxl
+import sheetnet_demo
 from openpyxl.styles import Font, PatternFill
 
-import sheetnet_demo
 from sheetnet import functions
 from sheetnet.registry import REGISTRY
 from sheetnet.workbook import Book, save_new, store_model
