@@ -21,11 +21,13 @@ from openpyxl.chart import LineChart, Reference, ScatterChart, Series
 from openpyxl.formatting.rule import ColorScaleRule
 from openpyxl.styles import Font, PatternFill
 from openpyxl.utils.cell import get_column_letter
+from openpyxl.worksheet.formula import ArrayFormula
 from sheetnet_demo import Scenario, scenarios
 
 from . import functions
 from .block import decode_block
 from .errors import InputError
+from .formulas import native_formula
 from .model import Model
 from .stopping import ProgressCallback
 from .workbook import Book, save_new, store_model
@@ -98,10 +100,17 @@ def write_scenario(workbook: Any, scenario: Scenario, progress: ProgressCallback
     _header(sheet, 1, width + 1, split[0])
     _put(sheet, 2, width + 2, predicted[1:])
     _header(sheet, 1, width + 2, predicted[0])
-    for j in range(1, width + 2 + len(predicted[0])):
+    model, _ = decode_block(block)
+    native = width + 2 + len(predicted[0])  # the native-formula column, beside the live answers
+    _header(sheet, 1, native, [f"native predicted {scenario.target}"])
+    for row in range(2, len(table) + 1):
+        refs = {name: f"${get_column_letter(table[0].index(name) + 1)}{row}" for name in model.input_names}
+        target = f"{get_column_letter(native)}{row}"
+        sheet[target] = ArrayFormula(target, native_formula(model, scenario.model_name, refs, "value"))
+    for j in range(1, native + 1):
         sheet.column_dimensions[get_column_letter(j)].width = 14
 
-    side = width + 3 + len(predicted[0])  # first column right of the answers
+    side = native + 2  # first column right of the answers
     sheet.cell(1, side, scenario.title).font = Font(bold=True, size=13)
     sheet.cell(2, side, f"model stored as the defined name {scenario.model_name}; holdout rows are marked in column {get_column_letter(width + 1)}")
     _header(sheet, 4, side, ["holdout metric", "value"])
@@ -114,7 +123,6 @@ def write_scenario(workbook: Any, scenario: Scenario, progress: ProgressCallback
     sheet.column_dimensions[get_column_letter(side)].width = 22
     sheet.column_dimensions[get_column_letter(side + 1)].width = 18
 
-    model, _ = decode_block(block)
     chart_column = side + 3
     curve_row = 4
     _loss_curve(sheet, model, curve_row, chart_column)

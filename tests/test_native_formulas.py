@@ -200,3 +200,26 @@ def test_a_network_too_large_for_one_formula_is_refused_with_a_reason():
     cells = {name: f"Data!$A{2}" for name in model.input_names}
     with pytest.raises(FormulaError, match="beyond the spreadsheet limit of 8,192"):
         native_formula(model, "net", cells, "class")
+
+
+@needs_office
+def test_the_demo_native_column_equals_the_live_predictions(tmp_path):
+    from sheetnet.demo_workbook import build_demo_workbook
+
+    path, results = build_demo_workbook(tmp_path / "demo.xlsx", seed=0)
+    (converted,) = recalculate([path], tmp_path / "recalculated")
+    book = openpyxl.load_workbook(converted, data_only=True)
+    for result in results:
+        sheet = book[result.scenario.sheet]
+        width = len(result.scenario.table.columns)
+        header = [c.value for c in sheet[1]]
+        live = header.index(f"predicted {result.scenario.target}") + 1
+        native = header.index(f"native predicted {result.scenario.target}") + 1
+        rows = range(2, len(result.scenario.table) + 2)
+        live_values = [sheet.cell(r, live).value for r in rows]
+        native_values = [sheet.cell(r, native).value for r in rows]
+        assert native > width + 1
+        if result.model.task == "regression":
+            np.testing.assert_allclose(np.array(native_values, dtype=float), np.array(live_values, dtype=float), rtol=1e-9)
+        else:
+            assert native_values == live_values
