@@ -205,7 +205,8 @@ def run_formulas(args: argparse.Namespace, out: TextIO) -> int:
     book = open_book(args.book)
     where, rows = write_native_formulas(book, args.model, args.table, args.to, args.output)
     _saved(book, out)
-    out.write(f"{rows} rows of native formulas for model {args.model} written to {where}; they read the model's constants through names starting snf_{args.model}_\n")
+    out.write(f"{rows} rows of native formulas for model {args.model} written to {where}; ")
+    out.write(f"they read the model's constants through names starting snf_{args.model}_\n")
     return 0
 
 

@@ -267,13 +267,18 @@ def changed_constants(book: Book, name: str) -> list[str]:
     for constant_name in sorted(stored & set(expected)):
         sheet, cells = list(book.formulas.defined_names[constant_name].destinations)[0]
         values = read_range(book, f"{quote_sheetname(sheet)}!{cells}")
-        wanted = expected[constant_name].values
-        if len(values) != len(wanted) or any(
-            len(got) != len(want) or any(g != w and not (isinstance(g, float) and isinstance(w, float) and abs(g - w) <= 1e-15 * max(abs(w), 1e-300)) for g, w in zip(got, want))
-            for got, want in zip(values, wanted)
-        ):
+        if not _same_cells(values, expected[constant_name].values):
             changed.append(constant_name)
     return changed
+
+
+def _same_cells(got: list[list[Any]], wanted: tuple[tuple[Any, ...], ...]) -> bool:
+    def same(g: Any, w: Any) -> bool:
+        if isinstance(g, (int, float)) and isinstance(w, float) and not isinstance(g, bool):
+            return abs(g - w) <= 1e-15 * max(abs(w), 1e-300)  # a file keeps numbers to about 15 digits
+        return bool(g == w)
+
+    return len(got) == len(wanted) and all(len(g) == len(w) and all(map(same, g, w)) for g, w in zip(got, wanted))
 
 
 def name_prefix_missing(book: Book, name: str) -> bool:

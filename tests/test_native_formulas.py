@@ -49,7 +49,9 @@ def _diabetes() -> pd.DataFrame:
 # name: (table, target, hidden, settings, outputs)
 CASES = {
     "regression_tanh": (lambda: _invented(150, 1).drop(columns="passed"), "output", "6", ["activation=tanh"], ["value"]),
-    "regression_relu_two_layers_repeats": (lambda: _invented(150, 2).drop(columns="passed"), "output", "8,4", ["activation=relu", "repeats=2", "workers=1"], ["value"]),
+    "regression_relu_two_layers_repeats": (
+        lambda: _invented(150, 2).drop(columns="passed"), "output", "8,4", ["activation=relu", "repeats=2", "workers=1"], ["value"]
+    ),
     "regression_no_hidden_layer": (lambda: _invented(120, 3).drop(columns="passed"), "output", "0", [], ["value"]),
     "binary_logistic": (lambda: _invented(160, 4).drop(columns="output"), "passed", "5", ["activation=logistic"], ["probabilities", "class"]),
     "binary_threshold": (lambda: _invented(160, 5).drop(columns="output"), "passed", "4", ["threshold=0.3"], ["probabilities", "class"]),

@@ -176,3 +176,17 @@ def test_a_saved_workbook_keeps_its_file_permissions(tmp_path, capsys):
     path.chmod(0o640)
     assert _train(path, rows) == 0
     assert path.stat().st_mode & 0o777 == 0o640
+
+
+def test_check_notices_edited_native_formula_constants(tmp_path, capsys):
+    path = tmp_path / "lots.xlsx"
+    rows = _write_book(path)
+    _train(path, rows)
+    book = openpyxl.load_workbook(path)
+    sheet, cells = list(book.defined_names["snf_grades_m1_b1"].destinations)[0]
+    first = cells.replace("$", "").split(":")[0]
+    book[sheet][first].value += 0.5
+    book.save(path)
+    capsys.readouterr()
+    assert cli.main(["check", str(path)]) == 1
+    assert "snf_grades_m1_b1 differ from the model block" in capsys.readouterr().out

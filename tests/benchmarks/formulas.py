@@ -79,7 +79,7 @@ def main() -> None:
     if SOFFICE is None:
         raise SystemExit("LibreOffice is not installed: apt-get install libreoffice-calc-nogui")
     networks = [("10-8-1", invented(args.rows, 10, 1, 1), "8"), ("20-16-8-3", invented(args.rows, 20, 3, 2), "16,8")]
-    print(f"| network | rows | LibreOffice round trip with formulas (s) | without formulas (s) | formulas alone (s) | engine predict (ms) | formula length |")
+    print("| network | rows | LibreOffice round trip with formulas (s) | without formulas (s) | formulas alone (s) | engine predict (ms) | formula length |")
     print("|---|---|---|---|---|---|---|")
     with tempfile.TemporaryDirectory() as scratch:
         folder = Path(scratch)
