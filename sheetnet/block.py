@@ -52,6 +52,8 @@ class BlockInfo:
     holdout_rows: int
     holdout_metrics: dict[str, float] = field(default_factory=dict)
     blank_rows: str = "error"  # how the cell functions treat rows with a blank cell: error or skip
+    # where the model was trained from, when a bridge knows it: (range address, holdout share, split mode, split seed)
+    source: tuple[str, float, str, int] | None = None
 
 
 @dataclass(frozen=True)
@@ -125,6 +127,9 @@ def model_records(model: Model, info: BlockInfo) -> list[Record]:
         Record("fingerprint", (info.fingerprint,)),
         Record("blank_rows", (info.blank_rows,)),
     ]
+    if info.source is not None:
+        address, share, mode, split_seed = info.source
+        records.append(Record("source", (address, _round15(share), mode, int(split_seed))))
     for name, value in sorted(model.settings.items()):
         records.append(Record("setting", (name, _setting_text(value))))
     for spec in model.preparation.inputs:
@@ -339,8 +344,16 @@ def _model_of(records: list[Record]) -> tuple[Model, BlockInfo]:
         holdout_rows=holdout_rows,
         holdout_metrics={str(r.fields[0]): float(r.fields[1]) for r in by_key.get("holdout_metric", [])},
         blank_rows=str(one("blank_rows").fields[0]),
+        source=_source_of(by_key.get("source", [])),
     )
     return model, info
+
+
+def _source_of(found: list[Record]) -> tuple[str, float, str, int] | None:
+    if not found:  # optional: blocks trained without a bridge that knows the range have none
+        return None
+    address, share, mode, split_seed = found[0].fields
+    return (str(address), float(share), str(mode), int(split_seed))
 
 
 def _read_setting(value: Any) -> Any:

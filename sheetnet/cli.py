@@ -210,6 +210,40 @@ def run_formulas(args: argparse.Namespace, out: TextIO) -> int:
     return 0
 
 
+XL_STEPS = """Remaining steps, in desktop Excel on Windows (macOS: the macros only; Excel for Mac has no xlwings UDFs):
+  1. pip install sheetnet in the Python that Excel should use (the interpreter written to xlwings.conf).
+  2. xlwings addin install   (copies xlwings' open-source add-in into Excel's start-up folder)
+  3. Open the workbook; in the VBA editor set a reference to xlwings (Tools > References).
+  4. On the xlwings ribbon tab press Import Functions: SHEETNET_SPLIT, SHEETNET_TRAIN, ... appear as functions.
+  5. For the macros, add a button whose VBA calls for example
+       RunPython "import sheetnet.xl_macros as m; m.train_selection('grade', 'grades', '6', 'ignore=lot')"
+     (also m.refresh_models(), m.remove_model('grades'), m.export_formulas('grades', 'Data!J1')).
+"""
+
+
+def run_xl_setup(args: argparse.Namespace, out: TextIO) -> int:
+    from .workbook import open_book
+
+    book = open_book(args.book)
+    wanted = {"UDF MODULES": "sheetnet.xl_udfs"}
+    if args.interpreter_win:
+        wanted["INTERPRETER_WIN"] = args.interpreter_win
+    if args.interpreter_mac:
+        wanted["INTERPRETER_MAC"] = args.interpreter_mac
+    merged: dict[str, Any] = {}
+    if "xlwings.conf" in book.formulas.sheetnames:  # keep the keys already there, update ours
+        old = book.formulas["xlwings.conf"]
+        merged = {str(row[0]).upper(): row[1] for row in old.iter_rows(max_col=2, values_only=True) if row[0]}
+        del book.formulas["xlwings.conf"]
+    merged.update(wanted)
+    sheet = book.formulas.create_sheet("xlwings.conf")
+    for key, value in merged.items():
+        sheet.append([key, value])
+    _saved(book, out)
+    out.write("the workbook's xlwings.conf sheet now names sheetnet.xl_udfs as its UDF module\n" + XL_STEPS)
+    return 0
+
+
 def run_models(args: argparse.Namespace, out: TextIO) -> int:
     from . import functions
     from .workbook import model_names, open_book, read_model
@@ -302,6 +336,13 @@ def build_parser() -> argparse.ArgumentParser:
     native.add_argument("--to", help="an empty range to write into, like 'Data!H1'; default: a sheet of sheetnet's")
     native.add_argument("--output", default="value", choices=["value", "class", "probabilities"], help="what each formula gives (default value)")
 
+    xl = commands.add_parser("xl", help="prepare a workbook for desktop Excel through xlwings")
+    xl_commands = xl.add_subparsers(dest="xl_command", required=True)
+    setup = xl_commands.add_parser("setup", help="write the xlwings.conf sheet that points Excel at sheetnet's functions")
+    setup.add_argument("book", type=Path)
+    setup.add_argument("--interpreter-win", help="the python.exe Excel should run on Windows")
+    setup.add_argument("--interpreter-mac", help="the python Excel should run on macOS")
+
     models = commands.add_parser("models", help="list the models stored in a workbook file")
     models.add_argument("book", type=Path)
     check = commands.add_parser("check", help="verify every model block in a workbook file (exit code 1 if one fails)")
@@ -321,6 +362,8 @@ def main(argv: Sequence[str] | None = None) -> int:
             return 0
         if args.command == "functions":
             return run_functions(sys.stdout)
+        if args.command == "xl":
+            return run_xl_setup(args, sys.stdout)
         runners = {"train": run_train, "predict": run_predict, "formulas": run_formulas, "models": run_models, "check": run_check}
         return runners[args.command](args, sys.stdout)
     except SheetnetError as error:

@@ -216,7 +216,15 @@ def train(table: Any, target: Any, hidden: Any = None, settings: Any = None, spl
     return [list(row) for row in block]
 
 
-def train_block(table: Any, target: Any, hidden: Any = None, settings: Any = None, split: Any = None, progress: ProgressCallback | None = None) -> Cells:
+def train_block(
+    table: Any,
+    target: Any,
+    hidden: Any = None,
+    settings: Any = None,
+    split: Any = None,
+    progress: ProgressCallback | None = None,
+    source: tuple[str, float, str, int] | None = None,
+) -> Cells:
     """TRAIN without the cache and the message cell: raises `SheetnetError`; reports progress per epoch."""
     sheet = read_sheet_table(table)
     if is_blank(target):
@@ -260,6 +268,7 @@ def train_block(table: Any, target: Any, hidden: Any = None, settings: Any = Non
         holdout_rows=int(holdout.sum()),
         holdout_metrics=metrics,
         blank_rows=options["blank_rows"],
+        source=source,
     )
     return encode_block(model, info)
 
