@@ -244,6 +244,40 @@ def run_xl_setup(args: argparse.Namespace, out: TextIO) -> int:
     return 0
 
 
+def run_serve(args: argparse.Namespace, out: TextIO) -> int:
+    import os
+
+    import uvicorn
+
+    from .server import create_app, new_token
+
+    token = os.environ.get("SHEETNET_TOKEN") or new_token()
+    scheme = "https" if args.https else "http"
+    base = f"{scheme}://127.0.0.1:{args.port}"
+    tls: dict[str, str] = {}
+    if args.https:
+        from .tls import local_certificate
+
+        certificate, key = local_certificate(args.cert_dir)
+        tls = {"ssl_certfile": str(certificate), "ssl_keyfile": str(key)}
+        out.write(f"TLS certificate for 127.0.0.1 and localhost: {certificate}\n{TRUST_STEPS}")
+    out.write(f"sheetnet server on {base} (this machine only)\n")
+    out.write(f"access token: {token}\n")
+    out.write(f"task pane / dashboard: {base}/addin/taskpane.html#token={token}\n")
+    out.write(f"add-in manifest: {base}/addin/manifest.xml\n")
+    out.flush()
+    app = create_app(token, origin=base)
+    uvicorn.run(app, host="127.0.0.1", port=args.port, log_level="warning", **tls)  # type: ignore[arg-type]
+    return 0
+
+
+TRUST_STEPS = """To let Excel load the add-in over https, trust this certificate once:
+  Windows: double-click the .crt file > Install Certificate > Current User > Trusted Root Certification Authorities.
+  macOS: open it in Keychain Access, then set 'When using this certificate' to Always Trust.
+  Linux browsers: import it under Settings > Privacy and security > Certificates > Authorities.
+"""
+
+
 def run_models(args: argparse.Namespace, out: TextIO) -> int:
     from . import functions
     from .workbook import model_names, open_book, read_model
@@ -343,6 +377,11 @@ def build_parser() -> argparse.ArgumentParser:
     setup.add_argument("--interpreter-win", help="the python.exe Excel should run on Windows")
     setup.add_argument("--interpreter-mac", help="the python Excel should run on macOS")
 
+    serve = commands.add_parser("serve", help="run the local server for sheetnet's Office add-in (127.0.0.1 only)")
+    serve.add_argument("--port", type=int, default=8765, help="the port (default 8765)")
+    serve.add_argument("--https", action="store_true", help="serve over https with a locally generated certificate")
+    serve.add_argument("--cert-dir", type=Path, default=Path.home() / ".sheetnet" / "tls", help="where the certificate is kept")
+
     models = commands.add_parser("models", help="list the models stored in a workbook file")
     models.add_argument("book", type=Path)
     check = commands.add_parser("check", help="verify every model block in a workbook file (exit code 1 if one fails)")
@@ -364,6 +403,8 @@ def main(argv: Sequence[str] | None = None) -> int:
             return run_functions(sys.stdout)
         if args.command == "xl":
             return run_xl_setup(args, sys.stdout)
+        if args.command == "serve":
+            return run_serve(args, sys.stdout)
         runners = {"train": run_train, "predict": run_predict, "formulas": run_formulas, "models": run_models, "check": run_check}
         return runners[args.command](args, sys.stdout)
     except SheetnetError as error:
