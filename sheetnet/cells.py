@@ -25,6 +25,7 @@ Cells = list[list[Cell]]
 
 MARKER = "#SHEETNET!"  # starts every message a cell function returns instead of an answer
 MAX_CELLS = 2_000_000  # larger ranges are refused before any work starts
+NUMBER_TYPES = frozenset({float, int, type(None), np.float64, np.float32, np.int64, np.int32})
 
 
 def message_cell(text: str) -> Cells:
@@ -46,14 +47,17 @@ def as_grid(cells: Any, what: str) -> list[list[Any]]:
         cells = cells.tolist()
     if not isinstance(cells, (list, tuple)):
         return [[cells]]
-    rows = [list(r) if isinstance(r, (list, tuple, np.ndarray)) else [r] for r in cells]
-    if not rows:
+    if not cells:
         raise InputError(f"the {what} range is empty; select a range with a header row and data rows")
-    width = max(len(r) for r in rows)
+    rows = cells if all(type(r) is list for r in cells) else [list(r) if isinstance(r, (list, tuple, np.ndarray)) else [r] for r in cells]
+    widths = set(map(len, rows))
+    width = max(widths)
     if len(rows) * width > MAX_CELLS:
         raise InputError(
             f"the {what} range has {len(rows) * width:,} cells, more than the {MAX_CELLS:,} sheetnet reads; select only the rows and columns in use"
         )
+    if len(widths) == 1:
+        return list(rows)  # rectangular already: the rows are read, never changed, so they are not copied
     return [r + [None] * (width - len(r)) for r in rows]
 
 
@@ -84,11 +88,26 @@ def read_sheet_table(cells: Any, what: str = "table") -> SheetTable:
             raise InputError(f"the {what} has two columns named '{text}'; give each column its own name")
         names.append(text)
     body = grid[1:]
-    keep = [i for i, row in enumerate(body) if not all(is_blank(v) for v in row)]
-    if not keep:
+    columns = list(zip(*body)) if body else [() for _ in names]
+    blank = np.ones(len(body), dtype=bool)
+    typed: list[np.ndarray | list[Any]] = []
+    for column in columns:
+        if set(map(type, column)) <= NUMBER_TYPES:  # numbers and blanks only: one vectorised conversion
+            numbers = np.array(column, dtype=np.float64)  # blanks (None) become NaN
+            blank &= np.isnan(numbers)
+            typed.append(numbers)
+        else:
+            cleaned = [_clean(v) for v in column]
+            blank &= np.fromiter((v is None for v in cleaned), dtype=bool, count=len(cleaned))
+            typed.append(cleaned)
+    keep = np.flatnonzero(~blank)
+    if not len(keep):
         raise InputError(f"the {what} has a header but no data rows; include the rows below the header")
-    frame = pd.DataFrame([[_clean(v) for v in body[i]] for i in keep], columns=names, dtype=object)
-    return SheetTable(frame, np.array(keep), len(body))
+    data = {
+        name: values[keep] if isinstance(values, np.ndarray) else pd.Series([values[i] for i in keep], dtype=object)
+        for name, values in zip(names, typed)
+    }
+    return SheetTable(pd.DataFrame(data), keep, len(body))
 
 
 def _number_text(value: float | int) -> str:
@@ -111,7 +130,9 @@ def numeric_frame(frame: pd.DataFrame) -> pd.DataFrame:
     out = {}
     for name in frame.columns:
         values = frame[name]
-        if all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in values):
+        if values.dtype.kind == "f":
+            out[name] = values
+        elif all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in values):
             out[name] = values.astype(np.float64)
         else:
             out[name] = values
@@ -184,8 +205,12 @@ def column_of(cells: Any, what: str, height: int) -> tuple[str, list[Any]]:
     return str(grid[0][0]), values
 
 
-def as_cells(values: Sequence[Any]) -> list[Cell]:
+def as_cells(values: Sequence[Any] | np.ndarray) -> list[Cell]:
     """Python and NumPy values as plain cell values (NaN becomes a blank)."""
+    if isinstance(values, np.ndarray) and values.dtype.kind == "f" and np.isfinite(values).all():
+        return values.tolist()  # the common case, without a loop in Python
+    if isinstance(values, np.ndarray):
+        values = values.tolist()
     out: list[Cell] = []
     for v in values:
         if isinstance(v, np.generic):

@@ -47,6 +47,7 @@ CAUTION = "a decision aid, not a decision: check it for bias and follow local la
 CELL_OPTIONS = ("seed", "ignore", "inputs", "categories", "blank_rows")  # settings the cell layer reads itself
 TRAIN_CACHE_SIZE = 32
 _train_cache: OrderedDict[str, Cells] = OrderedDict()
+_decoded_cache: OrderedDict[str, tuple[Model, BlockInfo]] = OrderedDict()
 
 
 def cell_function(fn: Callable[..., Cells]) -> Callable[..., Cells]:
@@ -142,6 +143,15 @@ def _name_list(value: Any) -> list[str]:
     return [part.strip() for part in str(value).replace(";", ",").split(",") if part.strip()]
 
 
+def _model_inputs(sheet: SheetTable, model: Model, rows: np.ndarray) -> Any:
+    """The model's input columns for these rows: a float array in model order when all are numbers
+    (the engine's fast path, no pandas on the way), else a DataFrame."""
+    columns = [sheet.column(name).to_numpy() for name in model.input_names]
+    if model.preparation.all_numeric and all(c.dtype.kind == "f" for c in columns):
+        return np.column_stack([c[rows] for c in columns]) if columns else np.empty((int(rows.sum()), 0))
+    return _inputs_frame(sheet, model.input_names, rows)
+
+
 def _scalar_metrics(metrics: dict[str, Any]) -> dict[str, float]:
     return {k: float(v) for k, v in metrics.items() if isinstance(v, float)}
 
@@ -149,7 +159,15 @@ def _scalar_metrics(metrics: dict[str, Any]) -> dict[str, float]:
 def _decode(model: Any) -> tuple[Model, BlockInfo, dict[str, Any]]:
     if isinstance(model, str) and not model.strip():
         raise ModelError("no model given; pass the block SHEETNET.TRAIN returned (or its defined name)")
-    decoded, info = decode_block(as_grid(model, "model"))
+    grid = as_grid(model, "model")
+    # decoded models are immutable, so a block seen before (every cell the same) is not decoded again
+    key = hashlib.sha256(repr(grid).encode("utf-8")).hexdigest()
+    found = _decoded_cache.get(key)
+    if found is None:
+        found = _decoded_cache[key] = decode_block(grid)
+        while len(_decoded_cache) > TRAIN_CACHE_SIZE:
+            _decoded_cache.popitem(last=False)
+    decoded, info = found
     return decoded, info, {"skip_blanks": info.blank_rows == "skip"}
 
 
@@ -293,13 +311,14 @@ def predict(model: Any, table: Any, output: Any = None) -> Cells:
     wanted = _parse_output(output)
     sheet = read_sheet_table(table)
     rows = _rows_used(sheet, list(decoded.input_names), options["skip_blanks"])
-    frame = _inputs_frame(sheet, decoded.input_names, rows)
+    frame = _model_inputs(sheet, decoded, rows)
     header: list[Any] = []
     columns: list[list[Any]] = []
-    _in_sheet_rows(sheet.data_rows[rows], None, lambda: decoded.preparation.transform(frame))  # names a bad cell first
+    if not (isinstance(frame, np.ndarray) and np.isfinite(frame).all()):
+        _in_sheet_rows(sheet.data_rows[rows], None, lambda: decoded.preparation.transform(frame))  # names a bad cell first
     if "value" in wanted or ("probabilities" not in wanted and "interval" not in wanted):
         header.append(f"predicted {info.target}")
-        columns.append(as_cells(decoded.predict(frame).tolist()))
+        columns.append(as_cells(decoded.predict(frame)))
     if "probabilities" in wanted:
         if decoded.task == "regression":
             raise SettingError("this model predicts numbers, so it has no class probabilities; use output value or interval")
@@ -318,8 +337,11 @@ def predict(model: Any, table: Any, output: Any = None) -> Cells:
     if "flag" in wanted:
         header.append("outside training range")
         columns.append([bool(v) for v in decoded.out_of_range(frame)])
+    answered = sheet.data_rows[rows]
+    if len(answered) == sheet.n_rows:  # no blank rows: the answer rows are the columns zipped
+        return [header] + [list(row) for row in zip(*columns)]
     answer: Cells = [header] + [[""] * len(header) for _ in range(sheet.n_rows)]
-    for k, row in enumerate(sheet.data_rows[rows]):
+    for k, row in enumerate(answered):
         answer[row + 1] = [column[k] for column in columns]
     return answer
 

@@ -236,3 +236,10 @@ def test_manifest_and_script_point_at_this_server(client, base_url):
     assert f'const SHEETNET_BASE = "{base_url}";' in script
     icon = client.get("/addin/icon-32.png")
     assert icon.content[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_cors_answers_only_our_own_origin(client):
+    ours = client.get("/v1/functions", headers={"Origin": "http://127.0.0.1"})
+    assert ours.headers.get("access-control-allow-origin") == "http://127.0.0.1"
+    other = client.get("/v1/functions", headers={"Origin": "http://evil.example"})
+    assert "access-control-allow-origin" not in other.headers

@@ -1,0 +1,75 @@
+"""Round-trip time of SHEETNET.PREDICT over HTTP on loopback, beside the direct Python call, in one run.
+
+Run by hand:  python tests/benchmarks/server.py [--calls 200]
+
+A server is started in-process on 127.0.0.1 (uvicorn, one worker thread pool); a 10-8-1 model
+predicts 1 row and 10,000 rows; medians and 95th percentiles of both paths are printed. The HTTP
+time includes sending the encoded request (encoded once beforehand) and decoding the answer.
+"""
+
+from __future__ import annotations
+
+import argparse
+import statistics
+import threading
+import time
+
+import httpx
+import numpy as np
+import orjson
+import uvicorn
+
+from sheetnet import functions, server
+
+TOKEN = "bench-token-0123456789abcdef"
+
+
+def table(rows: int, seed: int = 0) -> list[list[object]]:
+    rng = np.random.default_rng(seed)
+    values = rng.normal(size=(rows, 10))
+    target = np.sin(values[:, 0]) + values[:, 1] * values[:, 2]
+    return [[f"x{j + 1}" for j in range(10)] + ["y"]] + [[*map(float, row), float(t)] for row, t in zip(values, target)]
+
+
+def timings(call, count: int) -> tuple[float, float]:
+    seconds = []
+    for _ in range(count):
+        start = time.perf_counter()
+        call()
+        seconds.append(time.perf_counter() - start)
+    seconds.sort()
+    return statistics.median(seconds), seconds[int(0.95 * (len(seconds) - 1))]
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser()
+    parser.add_argument("--calls", type=int, default=200)
+    args = parser.parse_args()
+    running = uvicorn.Server(uvicorn.Config(server.create_app(TOKEN), host="127.0.0.1", port=0, log_level="warning"))
+    thread = threading.Thread(target=running.run, daemon=True)
+    thread.start()
+    while not running.started:
+        time.sleep(0.05)
+    base = f"http://127.0.0.1:{running.servers[0].sockets[0].getsockname()[1]}"
+    model = functions.train(table(2000), "y", "8", "seed=0")
+    print("| rows | HTTP median (ms) | HTTP p95 (ms) | direct median (ms) | direct p95 (ms) | HTTP / direct (median) |")
+    print("|---|---|---|---|---|---|")
+    with httpx.Client(base_url=base, headers={"Authorization": f"Bearer {TOKEN}"}, timeout=60) as client:
+        for rows in (1, 10_000):
+            data = table(rows, seed=1)
+            body = orjson.dumps({"args": [model, data]})  # encoded once, as a client holding the range would
+            headers = {"content-type": "application/json"}
+
+            def call() -> None:
+                orjson.loads(client.post("/v1/functions/SHEETNET.PREDICT", content=body, headers=headers).raise_for_status().content)
+
+            call()  # warm up
+            http = timings(call, args.calls if rows == 1 else max(20, args.calls // 10))
+            direct = timings(lambda: functions.predict(model, data), args.calls if rows == 1 else max(20, args.calls // 10))
+            print(f"| {rows:,} | {http[0] * 1e3:.2f} | {http[1] * 1e3:.2f} | {direct[0] * 1e3:.2f} | {direct[1] * 1e3:.2f} | {http[0] / direct[0]:.1f}x |", flush=True)
+    running.should_exit = True
+    thread.join(10)
+
+
+if __name__ == "__main__":
+    main()
