@@ -196,8 +196,11 @@ def create_app(token: str, origin: str = "http://127.0.0.1", max_body: int = MAX
 
     @app.get("/v1/functions", summary="the cell functions this server runs")
     def list_functions() -> dict[str, Any]:
+        def arguments(entry: Any) -> list[dict[str, Any]]:
+            return [{"name": a.name, "help": a.help, "optional": a.optional, "kind": a.kind} for a in entry.arguments]
+
         return {"functions": [
-            {"name": f.name, "help": f.help, "returns": f.returns, "arguments": [{"name": a.name, "help": a.help, "optional": a.optional, "kind": a.kind} for a in f.arguments]}
+            {"name": f.name, "help": f.help, "returns": f.returns, "arguments": arguments(f)}
             for f in REGISTRY
         ]}
 
@@ -214,7 +217,8 @@ def create_app(token: str, origin: str = "http://127.0.0.1", max_body: int = MAX
             raise HTTPException(422, f"{entry.name} takes at most {len(entry.arguments)} arguments; got {len(body.args)}")
         required = sum(not a.optional for a in entry.arguments)
         if len(body.args) < required:
-            raise HTTPException(422, f"{entry.name} needs at least {required} arguments ({', '.join(a.name for a in entry.arguments[:required])}); got {len(body.args)}")
+            names = ", ".join(a.name for a in entry.arguments[:required])
+            raise HTTPException(422, f"{entry.name} needs at least {required} arguments ({names}); got {len(body.args)}")
         key = hashlib.sha256(entry.name.encode() + b"\0" + raw).hexdigest()  # identical requests: identical bytes
         loop = asyncio.get_running_loop()
         with lock:
@@ -243,7 +247,8 @@ def create_app(token: str, origin: str = "http://127.0.0.1", max_body: int = MAX
 
         def work() -> None:
             try:
-                block = functions.train_block(*args[:5], progress=progress)
+                table, target, hidden, settings, split = args[:5]
+                block = functions.train_block(table, target, hidden, settings, split, progress=progress)
                 job.result = _finite(block)
                 about = functions.about.__wrapped__(block)  # type: ignore[attr-defined]
                 models[job.name] = {"name": job.name, "about": _finite(about), "block": job.result, "trained": time.time()}

@@ -11,9 +11,9 @@ from concurrent.futures import ThreadPoolExecutor
 import httpx
 import numpy as np
 import pytest
+import sheetnet_demo
 import uvicorn
 
-import sheetnet_demo
 from sheetnet import cli, functions, server
 from sheetnet.addin import functions_metadata
 from sheetnet.registry import BY_NAME, REGISTRY, CellFunction

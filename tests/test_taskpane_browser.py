@@ -10,9 +10,9 @@ import time
 
 import numpy as np
 import pytest
+import sheetnet_demo
 import uvicorn
 
-import sheetnet_demo
 from sheetnet import server
 
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
