@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import json
-import threading
 import time
 import xml.etree.ElementTree as ElementTree
 from concurrent.futures import ThreadPoolExecutor
@@ -13,6 +12,7 @@ import numpy as np
 import pytest
 import sheetnet_demo
 import uvicorn
+from local_server import serving
 
 from sheetnet import cli, functions, server
 from sheetnet.addin import functions_metadata
@@ -24,18 +24,9 @@ AUTH = {"Authorization": f"Bearer {TOKEN}"}
 
 @pytest.fixture(scope="module")
 def base_url():
-    app = server.create_app(TOKEN, origin="http://127.0.0.1")
-    running = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=0, log_level="warning"))
-    thread = threading.Thread(target=running.run, daemon=True)
-    thread.start()
-    deadline = time.monotonic() + 20
-    while not running.started and time.monotonic() < deadline:
-        time.sleep(0.05)
-    host, port = running.servers[0].sockets[0].getsockname()[:2]
-    assert host == "127.0.0.1"
-    yield f"http://127.0.0.1:{port}"
-    running.should_exit = True
-    thread.join(10)
+    with serving(server.create_app(TOKEN, origin="http://127.0.0.1")) as address:
+        assert address.startswith("http://127.0.0.1:")
+        yield address
 
 
 @pytest.fixture(scope="module")

@@ -2,13 +2,10 @@
 
 from __future__ import annotations
 
-import threading
-import time
-
 import pytest
 import schemathesis
-import uvicorn
 from hypothesis import HealthCheck, given, settings
+from local_server import serving
 from schemathesis.checks import not_a_server_error
 
 from sheetnet import server
@@ -19,17 +16,8 @@ AUTH = {"Authorization": f"Bearer {TOKEN}"}
 
 @pytest.fixture(scope="module")
 def api_schema():
-    app = server.create_app(TOKEN)
-    running = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=0, log_level="warning"))
-    thread = threading.Thread(target=running.run, daemon=True)
-    thread.start()
-    deadline = time.monotonic() + 20
-    while not running.started and time.monotonic() < deadline:
-        time.sleep(0.05)
-    port = running.servers[0].sockets[0].getsockname()[1]
-    yield schemathesis.openapi.from_url(f"http://127.0.0.1:{port}/openapi.json", headers=AUTH)
-    running.should_exit = True
-    thread.join(10)
+    with serving(server.create_app(TOKEN)) as address:
+        yield schemathesis.openapi.from_url(f"{address}/openapi.json", headers=AUTH)
 
 
 def test_no_request_the_schema_allows_gets_a_server_error(api_schema):

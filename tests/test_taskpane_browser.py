@@ -5,13 +5,11 @@ is taken and checked for the loss curve's colour."""
 from __future__ import annotations
 
 import shutil
-import threading
-import time
 
 import numpy as np
 import pytest
 import sheetnet_demo
-import uvicorn
+from local_server import serving
 
 from sheetnet import server
 
@@ -26,16 +24,8 @@ TRAINING_BLUE = np.array([21, 101, 192])  # the pane's training-loss line, #1565
 
 @pytest.fixture(scope="module")
 def base_url():
-    app = server.create_app(TOKEN)
-    running = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=0, log_level="warning"))
-    thread = threading.Thread(target=running.run, daemon=True)
-    thread.start()
-    deadline = time.monotonic() + 20
-    while not running.started and time.monotonic() < deadline:
-        time.sleep(0.05)
-    yield f"http://127.0.0.1:{running.servers[0].sockets[0].getsockname()[1]}"
-    running.should_exit = True
-    thread.join(10)
+    with serving(server.create_app(TOKEN)) as address:
+        yield address
 
 
 def test_the_pane_trains_a_model_and_shows_its_metrics(base_url, tmp_path):

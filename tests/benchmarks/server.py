@@ -11,15 +11,18 @@ from __future__ import annotations
 
 import argparse
 import statistics
-import threading
+import sys
 import time
+from pathlib import Path
 
 import httpx
 import numpy as np
 import orjson
-import uvicorn
 
-from sheetnet import functions, server
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # the tests' server helper
+from local_server import serving  # noqa: E402
+
+from sheetnet import functions, server  # noqa: E402
 
 TOKEN = "bench-token-0123456789abcdef"
 
@@ -45,12 +48,11 @@ def main() -> None:
     parser = argparse.ArgumentParser()
     parser.add_argument("--calls", type=int, default=200)
     args = parser.parse_args()
-    running = uvicorn.Server(uvicorn.Config(server.create_app(TOKEN), host="127.0.0.1", port=0, log_level="warning"))
-    thread = threading.Thread(target=running.run, daemon=True)
-    thread.start()
-    while not running.started:
-        time.sleep(0.05)
-    base = f"http://127.0.0.1:{running.servers[0].sockets[0].getsockname()[1]}"
+    with serving(server.create_app(TOKEN)) as base:
+        measure(base, args.calls)
+
+
+def measure(base: str, calls: int) -> None:
     model = functions.train(table(2000), "y", "8", "seed=0")
     print("| rows | HTTP median (ms) | HTTP p95 (ms) | direct median (ms) | direct p95 (ms) | HTTP / direct (median) |")
     print("|---|---|---|---|---|---|")
@@ -64,11 +66,9 @@ def main() -> None:
                 orjson.loads(client.post("/v1/functions/SHEETNET.PREDICT", content=body, headers=headers).raise_for_status().content)
 
             call()  # warm up
-            http = timings(call, args.calls if rows == 1 else max(20, args.calls // 10))
-            direct = timings(lambda: functions.predict(model, data), args.calls if rows == 1 else max(20, args.calls // 10))
+            http = timings(call, calls if rows == 1 else max(20, calls // 10))
+            direct = timings(lambda: functions.predict(model, data), calls if rows == 1 else max(20, calls // 10))
             print(f"| {rows:,} | {http[0] * 1e3:.2f} | {http[1] * 1e3:.2f} | {direct[0] * 1e3:.2f} | {direct[1] * 1e3:.2f} | {http[0] / direct[0]:.1f}x |", flush=True)
-    running.should_exit = True
-    thread.join(10)
 
 
 if __name__ == "__main__":

@@ -1,0 +1,29 @@
+"""Run a sheetnet server on a free loopback port in a background thread (tests and benchmarks)."""
+
+from __future__ import annotations
+
+import threading
+import time
+from contextlib import contextmanager
+from typing import Iterator
+
+import uvicorn
+
+
+@contextmanager
+def serving(app) -> Iterator[str]:
+    """Yields the base address, like ``http://127.0.0.1:41234``; stops the server afterwards."""
+    running = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=0, log_level="warning"))
+    thread = threading.Thread(target=running.run, daemon=True)
+    thread.start()
+    deadline = time.monotonic() + 20
+    while not running.started and time.monotonic() < deadline:
+        time.sleep(0.05)
+    if not running.started:
+        raise RuntimeError("the test server did not start within 20 s")
+    host, port = running.servers[0].sockets[0].getsockname()[:2]
+    try:
+        yield f"http://{host}:{port}"
+    finally:
+        running.should_exit = True
+        thread.join(10)
