@@ -42,6 +42,7 @@ from .errors import SheetnetError
 from .registry import BY_NAME, REGISTRY
 
 MAX_BODY_BYTES = 32 * 1024 * 1024  # about a million numeric cells
+KEPT_JOBS = 100  # finished training jobs remembered for their callers
 ADDIN_FILES = Path(__file__).parent / "addin"
 
 
@@ -236,6 +237,9 @@ def create_app(token: str, origin: str = "http://127.0.0.1", max_body: int = MAX
     @app.post("/v1/jobs", status_code=202, summary="start a training job (SHEETNET.TRAIN with progress)")
     def start_job(body: JobBody) -> dict[str, Any]:
         job = Job(uuid.uuid4().hex, body.name)
+        finished = [j for j in jobs.values() if j.state != "running"]
+        for old in finished[: max(0, len(jobs) - KEPT_JOBS)]:  # keep memory bounded: forget the oldest finished jobs
+            jobs.pop(old.id, None)
         jobs[job.id] = job
         args = list(body.args) + [None] * (5 - len(body.args))
 
