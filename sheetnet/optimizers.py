@@ -9,7 +9,7 @@ the paper it follows.
 
 from __future__ import annotations
 
-from typing import Protocol
+from typing import Callable, Protocol
 
 import numpy as np
 from scipy.optimize import minimize
@@ -30,6 +30,36 @@ def _batch_bounds(n_rows: int, batch_rows: int) -> list[tuple[int, int]]:
     return [(start, min(start + size, n_rows)) for start in range(0, n_rows, size)]
 
 
+def _minibatch_epochs(
+    objective: BatchObjective,
+    theta: np.ndarray,
+    monitor: Monitor,
+    rng: np.random.Generator,
+    batch_rows: int,
+    step: Callable[[np.ndarray, np.ndarray], None],
+) -> tuple[np.ndarray, str]:
+    """Epochs of batch updates ``step(theta, grad)`` (in place) until a stopping rule fires.
+
+    Rows are reshuffled each epoch unless there is one batch; the epoch's loss
+    and gradient reported to the monitor are the row-weighted means over its batches.
+    """
+    bounds = _batch_bounds(objective.n_rows, batch_rows)
+    while True:
+        if len(bounds) > 1:
+            objective.shuffle(rng)
+        epoch_loss = 0.0
+        epoch_grad = np.zeros_like(theta)
+        for start, stop in bounds:
+            loss, grad = objective(theta, start, stop)
+            step(theta, grad)
+            weight = (stop - start) / objective.n_rows
+            epoch_loss += weight * loss
+            epoch_grad += weight * grad
+        reason = monitor.end_epoch(theta, epoch_loss, float(np.max(np.abs(epoch_grad))))
+        if reason:
+            return monitor.final_theta(theta), reason
+
+
 def gradient_descent(
     objective: BatchObjective,
     theta: np.ndarray,
@@ -45,25 +75,15 @@ def gradient_descent(
     ``batch_rows`` 0 is full-batch, 1 is the per-row update, anything between
     is mini-batch; rows are reshuffled each epoch unless full-batch.
     """
-    theta = theta.copy()
     velocity = np.zeros_like(theta)
-    bounds = _batch_bounds(objective.n_rows, batch_rows)
-    while True:
-        if len(bounds) > 1:
-            objective.shuffle(rng)
-        epoch_loss = 0.0
-        epoch_grad = np.zeros_like(theta)
-        for start, stop in bounds:
-            loss, grad = objective(theta, start, stop)
-            velocity *= momentum
-            velocity -= rate * grad
-            theta += velocity
-            weight = (stop - start) / objective.n_rows
-            epoch_loss += weight * loss
-            epoch_grad += weight * grad
-        reason = monitor.end_epoch(theta, epoch_loss, float(np.max(np.abs(epoch_grad))))
-        if reason:
-            return monitor.final_theta(theta), reason
+
+    def step(theta: np.ndarray, grad: np.ndarray) -> None:
+        nonlocal velocity  # updated in place; declared so the augmented assignments reach it
+        velocity *= momentum
+        velocity -= rate * grad
+        theta += velocity
+
+    return _minibatch_epochs(objective, theta.copy(), monitor, rng, batch_rows, step)
 
 
 def rprop(
@@ -183,33 +203,23 @@ def adam(
     ``m_hat = m / (1 - b1^t)``; ``v_hat = v / (1 - b2^t)``;
     ``theta <- theta - rate * m_hat / (sqrt(v_hat) + eps)``.
     """
-    theta = theta.copy()
     m = np.zeros_like(theta)
     v = np.zeros_like(theta)
     scratch = np.empty_like(theta)
     t = 0
-    bounds = _batch_bounds(objective.n_rows, batch_rows)
-    while True:
-        if len(bounds) > 1:
-            objective.shuffle(rng)
-        epoch_loss = 0.0
-        epoch_grad = np.zeros_like(theta)
-        for start, stop in bounds:
-            loss, grad = objective(theta, start, stop)
-            t += 1
-            m *= beta1
-            m += (1.0 - beta1) * grad
-            v *= beta2
-            np.multiply(grad, grad, out=scratch)
-            scratch *= 1.0 - beta2
-            v += scratch
-            # rate * m_hat / (sqrt(v_hat) + eps), written without temporaries for m_hat, v_hat
-            np.sqrt(v / (1.0 - beta2**t), out=scratch)
-            scratch += epsilon
-            theta -= (rate / (1.0 - beta1**t)) * m / scratch
-            weight = (stop - start) / objective.n_rows
-            epoch_loss += weight * loss
-            epoch_grad += weight * grad
-        reason = monitor.end_epoch(theta, epoch_loss, float(np.max(np.abs(epoch_grad))))
-        if reason:
-            return monitor.final_theta(theta), reason
+
+    def step(theta: np.ndarray, grad: np.ndarray) -> None:
+        nonlocal t, m, v, scratch  # the arrays are updated in place
+        t += 1
+        m *= beta1
+        m += (1.0 - beta1) * grad
+        v *= beta2
+        np.multiply(grad, grad, out=scratch)
+        scratch *= 1.0 - beta2
+        v += scratch
+        # rate * m_hat / (sqrt(v_hat) + eps), written without temporaries for m_hat, v_hat
+        np.sqrt(v / (1.0 - beta2**t), out=scratch)
+        scratch += epsilon
+        theta -= (rate / (1.0 - beta1**t)) * m / scratch
+
+    return _minibatch_epochs(objective, theta.copy(), monitor, rng, batch_rows, step)
