@@ -11,6 +11,7 @@ at prediction) or a list of rows. Rows in messages count data rows from 1.
 
 from __future__ import annotations
 
+import datetime
 import math
 import numbers
 import warnings
@@ -111,6 +112,8 @@ def _cell_kind(value: Any) -> str:
         if not text:
             return "blank"
         return "error" if text.upper() in SPREADSHEET_ERRORS else "text"
+    if isinstance(value, (datetime.date, datetime.time)):
+        return "date"
     return "text"
 
 
@@ -119,6 +122,11 @@ def _bad_cell(column: str, row: int, value: Any, kind: str, numeric: bool) -> Ba
         return BadValueError(column, row, value, "the cell is blank or not a number", "fill it in or remove the row")
     if kind == "error":
         return BadValueError(column, row, value, "the cell holds a spreadsheet error value", "fix the formula that produced it or remove the row")
+    if kind == "date" and numeric:
+        return BadValueError(
+            column, row, value, "a date or time in a numeric column",
+            "turn it into a number first (for example days since a start date, or the month), or leave the column out",
+        )
     if kind == "infinite":
         return BadValueError(column, row, value, "the value is infinite", "replace it with a finite number or remove the row")
     if numeric:

@@ -254,3 +254,11 @@ def test_sunspot_forecast_with_lags_beats_the_naive_forecast():
     model_rmse = np.sqrt(np.mean((forecast - actual) ** 2))
     naive_rmse = np.sqrt(np.mean((naive - actual) ** 2))
     assert model_rmse < 0.9 * naive_rmse, (model_rmse, naive_rmse)
+
+
+def test_dates_in_a_numeric_column_get_advice(shipments):
+    import datetime
+
+    bad = [list(r) for r in shipments[:60]]
+    bad[7][1] = datetime.datetime(2026, 3, 1)
+    _is_message(cellfn.train(bad, "spoiled", 3, "ignore=shipment"), "column 'transit_hours'", "row 8 of the table", "a date or time in a numeric column")
