@@ -312,31 +312,7 @@ def predict(model: Any, table: Any, output: Any = None) -> Cells:
     sheet = read_sheet_table(table)
     rows = _rows_used(sheet, list(decoded.input_names), options["skip_blanks"])
     frame = _model_inputs(sheet, decoded, rows)
-    header: list[Any] = []
-    columns: list[list[Any]] = []
-    if not (isinstance(frame, np.ndarray) and np.isfinite(frame).all()):
-        _in_sheet_rows(sheet.data_rows[rows], None, lambda: decoded.preparation.transform(frame))  # names a bad cell first
-    if "value" in wanted or ("probabilities" not in wanted and "interval" not in wanted):
-        header.append(f"predicted {info.target}")
-        columns.append(as_cells(decoded.predict(frame)))
-    if "probabilities" in wanted:
-        if decoded.task == "regression":
-            raise SettingError("this model predicts numbers, so it has no class probabilities; use output value or interval")
-        probabilities = decoded.predict_proba(frame)
-        for j, label in enumerate(decoded.classes):
-            header.append(f"P({label})")
-            columns.append(as_cells(probabilities[:, j].tolist()))
-    if "interval" in wanted:
-        if len(decoded.members) < 2:
-            raise SettingError("an interval needs several networks; train with the setting repeats=5 (or more)")
-        if decoded.task != "regression":
-            raise SettingError("an interval is for models that predict numbers; for classes use output probabilities")
-        spread = decoded.predict_spread(frame)
-        header += [f"{info.target} lowest network", f"{info.target} highest network"]
-        columns += [as_cells(spread["low"].tolist()), as_cells(spread["high"].tolist())]
-    if "flag" in wanted:
-        header.append("outside training range")
-        columns.append([bool(v) for v in decoded.out_of_range(frame)])
+    header, columns = _in_sheet_rows(sheet.data_rows[rows], None, lambda: _predictions(decoded, info, frame, wanted))
     answered = sheet.data_rows[rows]
     if len(answered) == sheet.n_rows:  # no blank rows: the answer rows are the columns zipped
         return [header] + [list(row) for row in zip(*columns)]
@@ -344,6 +320,35 @@ def predict(model: Any, table: Any, output: Any = None) -> Cells:
     for k, row in enumerate(answered):
         answer[row + 1] = [column[k] for column in columns]
     return answer
+
+
+def _predictions(decoded: Model, info: BlockInfo, frame: Any, wanted: list[str]) -> tuple[list[Any], list[list[Any]]]:
+    """Header and answer columns for PREDICT; the network runs once per kind of output."""
+    header: list[Any] = []
+    columns: list[list[Any]] = []
+    if "probabilities" in wanted and decoded.task == "regression":
+        raise SettingError("this model predicts numbers, so it has no class probabilities; use output value or interval")
+    wants_value = "value" in wanted or ("probabilities" not in wanted and "interval" not in wanted)
+    probabilities = decoded.predict_proba(frame) if decoded.task != "regression" and (wants_value or "probabilities" in wanted) else None
+    if wants_value:
+        header.append(f"predicted {info.target}")
+        columns.append(as_cells(decoded.predict(frame) if probabilities is None else decoded.classes_of(probabilities)))
+    if probabilities is not None and "probabilities" in wanted:
+        for j, label in enumerate(decoded.classes):
+            header.append(f"P({label})")
+            columns.append(as_cells(probabilities[:, j]))
+    if "interval" in wanted:
+        if len(decoded.members) < 2:
+            raise SettingError("an interval needs several networks; train with the setting repeats=5 (or more)")
+        if decoded.task != "regression":
+            raise SettingError("an interval is for models that predict numbers; for classes use output probabilities")
+        spread = decoded.predict_spread(frame)
+        header += [f"{info.target} lowest network", f"{info.target} highest network"]
+        columns += [as_cells(spread["low"]), as_cells(spread["high"])]
+    if "flag" in wanted:
+        header.append("outside training range")
+        columns.append([bool(v) for v in decoded.out_of_range(frame)])
+    return header, columns
 
 
 def _scored_rows(decoded: Model, info: BlockInfo, sheet: SheetTable, split: Any, skip: bool) -> np.ndarray:

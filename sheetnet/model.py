@@ -138,7 +138,10 @@ class Model:
         """
         if self.task == "regression":
             return self._values(self._member_outputs(X)).mean(axis=0)
-        probabilities = self.predict_proba(X)
+        return self.classes_of(self.predict_proba(X))
+
+    def classes_of(self, probabilities: np.ndarray) -> np.ndarray:
+        """The predicted class of each row from its probabilities (the threshold decides for two classes)."""
         if self.task == "binary":
             index = (probabilities[:, 1] >= self.threshold).astype(np.int64)
         else:
