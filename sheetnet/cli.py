@@ -151,7 +151,7 @@ def run_train(args: argparse.Namespace, out: TextIO) -> int:
             mode = f"stratified {args.target}" if texts else "random"
         elif mode == "stratified":
             mode = f"stratified {args.target}"
-        split = functions.split.__wrapped__(table, args.holdout, args.seed, mode)  # type: ignore[attr-defined]
+        split = functions.raising(functions.split)(table, args.holdout, args.seed, mode)
     bar = ProgressLine(f"training {args.name}")
     block = functions.train_block(table, args.target, args.hidden, _settings_text(args.set, args.seed), split, bar)
     bar.done()
@@ -159,13 +159,13 @@ def run_train(args: argparse.Namespace, out: TextIO) -> int:
 
     results = owned_sheet(book, f"sn {args.name}")
     results["A2"] = f"model {args.name}: {args.target} predicted from {args.table}. {CAUTION}"
-    answer = functions.predict.__wrapped__(block, table, "value")  # type: ignore[attr-defined]
+    answer = functions.raising(functions.predict)(block, table, "value")
     split_column = split if split is not None else [["split"]] + [["train"] for _ in answer[1:]]
     write_block(results, "A4", [["table row", split_column[0][0], f"actual {args.target}", *answer[0]]])
     target_index = [str(c) for c in table[0]].index(args.target)
     rows = [[i + 2, split_column[i + 1][0], table[i + 1][target_index], *answer[i + 1]] for i in range(len(answer) - 1)]
     write_block(results, "A5", rows)
-    about = functions.about.__wrapped__(block)  # type: ignore[attr-defined]
+    about = functions.raising(functions.about)(block)
     write_block(results, "G4", about)
     _saved(book, out)
     out.write(f"model {args.name} stored under the defined name {args.name}\n")
@@ -187,7 +187,7 @@ def run_predict(args: argparse.Namespace, out: TextIO) -> int:
     book = open_book(args.book)
     block = read_model(book, args.model)
     table = read_range(book, args.table)
-    answer = functions.predict.__wrapped__(block, table, args.output)  # type: ignore[attr-defined]
+    answer = functions.raising(functions.predict)(block, table, args.output)
     assert not str(answer[0][0]).startswith(MARKER)
     if args.to:
         sheet, corner = check_empty(book, args.to, len(answer), len(answer[0]))

@@ -56,14 +56,6 @@ def _cells(frame: pd.DataFrame) -> list[list[Any]]:
     return [list(frame.columns)] + rows
 
 
-def _check(answer: list[list[Any]]) -> list[list[Any]]:
-    from .cells import MARKER
-
-    if answer and answer[0] and isinstance(answer[0][0], str) and answer[0][0].startswith(MARKER):
-        raise InputError(answer[0][0])
-    return answer
-
-
 def _header(sheet: Any, row: int, column: int, values: list[Any]) -> None:
     for j, value in enumerate(values):
         cell = sheet.cell(row, column + j, value)
@@ -80,16 +72,16 @@ def _put(sheet: Any, row: int, column: int, rows: list[list[Any]]) -> None:
 def write_scenario(workbook: Any, scenario: Scenario, progress: ProgressCallback | None) -> ScenarioResult:
     """Train, check and lay out one scenario; returns its holdout metrics."""
     table = _cells(scenario.table)
-    split = _check(functions.split.__wrapped__(table, scenario.holdout_share, 0, scenario.split_mode))  # type: ignore[attr-defined]
+    split = functions.raising(functions.split)(table, scenario.holdout_share, 0, scenario.split_mode)
     block = functions.train_block(table, scenario.target, scenario.hidden, scenario.settings, split, progress)
     outputs = "value" if scenario.table[scenario.target].dtype.kind == "f" else "value, probabilities"
-    predicted = _check(functions.predict.__wrapped__(block, table, outputs + ", flag"))  # type: ignore[attr-defined]
-    scored = _check(functions.score.__wrapped__(block, table, split))  # type: ignore[attr-defined]
+    predicted: list[list[Any]] = functions.raising(functions.predict)(block, table, outputs + ", flag")
+    scored: list[list[Any]] = functions.raising(functions.score)(block, table, split)
     if scenario.level_column:
         predicted, extra = _level_forecast(scenario, table, split, predicted)
         # the model's own metrics are about the change; the level forecast's follow them
         scored = [scored[0]] + [[r[0] if r[0] == "rows" else f"{scenario.target} {r[0]}", r[1]] for r in scored[1:]] + extra
-    about = _check(functions.about.__wrapped__(block, table))  # type: ignore[attr-defined]
+    about = functions.raising(functions.about)(block, table)
 
     sheet = workbook.create_sheet(scenario.sheet)
     width = len(table[0])

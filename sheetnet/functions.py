@@ -67,6 +67,11 @@ def cell_function(fn: Callable[..., Cells]) -> Callable[..., Cells]:
     return guarded
 
 
+def raising(fn: Callable[..., Cells]) -> Callable[..., Cells]:
+    """A cell function without its message cell: raises `SheetnetError`, for bridges that report errors their own way."""
+    return fn.__wrapped__  # type: ignore[attr-defined]
+
+
 def _sheet_rows(text: str) -> str:
     # the engine counts data rows from 1; the user's range has the header as row 1
     head, sep, rest = text.partition(", row ")

@@ -254,7 +254,7 @@ def create_app(token: str, origin: str = "http://127.0.0.1", max_body: int = MAX
                 table, target, hidden, settings, split = args[:5]
                 block = functions.train_block(table, target, hidden, settings, split, progress=progress)
                 job.result = _finite(block)
-                about = functions.about.__wrapped__(block)  # type: ignore[attr-defined]
+                about = functions.raising(functions.about)(block)
                 models[job.name] = {"name": job.name, "about": _finite(about), "block": job.result, "trained": time.time()}
                 job.state = "done"
             except Cancelled as error:

@@ -102,12 +102,10 @@ def _train(book: Any, address: str, table: list[list[Any]], target: str, name: s
     if holdout > 0:
         if mode == "auto":
             mode = f"stratified {target}" if any(isinstance(v, str) for v in targets) else "random"
-        split = functions.split.__wrapped__(table, holdout, seed, mode)  # type: ignore[attr-defined]
-        if split and str(split[0][0]).startswith(MARKER):
-            raise InputError(str(split[0][0])[len(MARKER):].strip())
+        split = functions.raising(functions.split)(table, holdout, seed, mode)
     block = functions.train_block(table, target, hidden, settings, split, source=(address, holdout, mode, seed))
     _store(book, name, block)
-    summary = dict((row[0], row[1]) for row in functions.about.__wrapped__(block)[1:])  # type: ignore[attr-defined]
+    summary = dict((row[0], row[1]) for row in functions.raising(functions.about)(block)[1:])
     metric = next((f"{k} {v:.4g}" for k, v in summary.items() if str(k).startswith("holdout ") and isinstance(v, float)), "no holdout")
     return f"sheetnet: model {name} trained ({summary['layers']}, stopped by {summary['stopped by']}; {metric})"
 

@@ -67,7 +67,7 @@ def build(out: Path = DEFAULT_OUT, rows: int = 150) -> Path:
         formulas.cell(3, column, formula)
         column += 6  # room for each answer to spill to the right
 
-    split = functions.split.__wrapped__(cells, 0.2, 0, "stratified grade")
+    split = functions.raising(functions.split)(cells, 0.2, 0, "stratified grade")
     settings_range = [[name, value] for name, value in SETTINGS]
     block = functions.train_block(cells, "grade", "6", settings_range, split)
     store_model(Book(out, workbook, workbook), "starter_model", block, replace=True)
