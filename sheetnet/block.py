@@ -21,19 +21,20 @@ import json
 import math
 from dataclasses import dataclass, field
 from types import MappingProxyType
-from typing import Any, Sequence
+from typing import Any, Mapping, Sequence
 
 import numpy as np
 
 from .errors import ModelError
-from .model import Member, Model
+from .model import FORMAT_VERSION, Member, Model
 from .network import ACTIVATIONS, parameter_count
 from .preparation import CategoryInput, NumericInput, Preparation, TargetPreparation
+from .settings import SETTINGS_BY_NAME
 
-FORMAT_VERSION = 1
 MAGIC = "sheetnet model block"
 WIDTH = 9  # a key and eight values per row
 CURVE_POINTS = 200  # loss curves longer than this are stored at evenly spread epochs
+VALUE_KINDS = ("text", "int", "float", "bool", "none")  # how settings, given arguments and class labels keep their type
 
 
 class BlockError(ModelError):
@@ -54,6 +55,9 @@ class BlockInfo:
     blank_rows: str = "error"  # how the cell functions treat rows with a blank cell: error or skip
     # where the model was trained from, when a bridge knows it: (range address, holdout share, split mode, split seed)
     source: tuple[str, float, str, int] | None = None
+    # the arguments given to TRAIN exactly as given: "hidden" (the raw hidden-layers argument) and every
+    # setting the user wrote, lower-cased name -> raw value (str, int, float, bool or None); format 2 on
+    given: Mapping[str, Any] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -71,39 +75,44 @@ def _numbers_of(values: Sequence[float] | np.ndarray) -> tuple[float, ...]:
     return tuple(_round15(v) for v in np.asarray(values, dtype=np.float64).ravel())
 
 
-def _label_fields(label: Any) -> tuple[str, str]:
-    if isinstance(label, (bool, np.bool_)):
-        return ("bool", "TRUE" if label else "FALSE")
-    if isinstance(label, (int, np.integer)):
-        return ("int", str(int(label)))
-    if isinstance(label, (float, np.floating)):
-        return ("float", repr(float(label)))
-    return ("text", str(label))
+def _typed_fields(value: Any, what: str) -> tuple[str, str]:
+    """A value as (kind, text), so decoding gives back the same Python type and value (floats by repr: exact)."""
+    if value is None:
+        return ("none", "")
+    if isinstance(value, (bool, np.bool_)):
+        return ("bool", "TRUE" if value else "FALSE")
+    if isinstance(value, (int, np.integer)):
+        return ("int", str(int(value)))
+    if isinstance(value, (float, np.floating)):
+        if not math.isfinite(float(value)):
+            raise ModelError(f"the model cannot be stored: {what} is {float(value)!r}, not a finite number; give a finite number and train again")
+        return ("float", repr(float(value)))
+    if isinstance(value, str):
+        return ("text", value)
+    raise ModelError(f"the model cannot be stored: {what} is a {type(value).__name__}; give a number, a text, TRUE/FALSE or nothing, and train again")
 
 
-def _label_value(kind: str, text: str) -> Any:
+def _typed_value(kind: Any, text: Any, what: str) -> Any:
+    """The value `_typed_fields` wrote; ``what`` names it in the message (like "the setting 'epochs'")."""
+    text = "" if _blank_padding(text) else str(text)
     try:
-        if kind == "bool":
+        if kind == "none" and text == "":
+            return None
+        if kind == "bool" and text in ("TRUE", "FALSE"):
             return text == "TRUE"
         if kind == "int":
             return int(text)
         if kind == "float":
-            return float(text)
+            number = float(text)
+            if math.isfinite(number):
+                return number
+        if kind == "text":
+            return text
     except ValueError:
-        raise BlockError(f"the model block has a class label '{text}' that is not a valid {kind}; the block is damaged: train again") from None
-    if kind == "text":
-        return text
-    raise BlockError(f"the model block has a class label of unknown kind '{kind}'; the block is damaged: train again")
-
-
-def _setting_text(value: Any) -> Any:
-    if value is None:
-        return "none"
-    if isinstance(value, bool):
-        return "TRUE" if value else "FALSE"
-    if isinstance(value, (int, float)):
-        return _round15(value)
-    return str(value)
+        pass
+    if kind not in VALUE_KINDS:
+        raise BlockError(f"the model block records {what} with a kind {kind!r} this sheetnet does not know; it is damaged: train again")
+    raise BlockError(f"the model block records {what} as '{text[:40]}', which is not a valid {kind}; it is damaged: train again")
 
 
 def _sampled_curve(curve: Sequence[float]) -> list[float]:
@@ -131,7 +140,9 @@ def model_records(model: Model, info: BlockInfo) -> list[Record]:
         address, share, mode, split_seed = info.source
         records.append(Record("source", (address, _round15(share), mode, int(split_seed))))
     for name, value in sorted(model.settings.items()):
-        records.append(Record("setting", (name, _setting_text(value))))
+        records.append(Record("setting", (str(name), *_typed_fields(value, f"the setting '{name}'"))))
+    for name, value in info.given.items():
+        records.append(Record("given", (str(name), *_typed_fields(value, f"the argument '{name}'"))))
     for spec in model.preparation.inputs:
         if isinstance(spec, NumericInput):
             records.append(Record("input", (spec.name, "number"), _numbers_of([spec.mean, spec.scale, spec.low, spec.high])))
@@ -141,7 +152,7 @@ def model_records(model: Model, info: BlockInfo) -> list[Record]:
     if model.task == "regression":
         records.append(Record("target_scaling", (), _numbers_of([model.target.mean, model.target.scale])))
     for index, label in enumerate(model.classes):
-        records.append(Record("class", (index, *_label_fields(label))))
+        records.append(Record("class", (index, *_typed_fields(label, f"class label {index + 1}"))))
     for name, value in info.holdout_metrics.items():
         records.append(Record("holdout_metric", (name, _round15(value))))
     for index, member in enumerate(model.members):
@@ -164,9 +175,17 @@ def _canonical(value: Any) -> str:
     return "s:" + str(value)
 
 
+def _trimmed(fields: tuple[Any, ...]) -> tuple[Any, ...]:
+    """Fields without the empty cells at the end, which read back as padding (an empty text value, say)."""
+    end = len(fields)
+    while end and _blank_padding(fields[end - 1]):
+        end -= 1
+    return fields[:end]
+
+
 def checksum(records: Sequence[Record]) -> str:
     """SHA-256 over every key, field and number, in order."""
-    canonical = [[r.key, [_canonical(f) for f in r.fields], [_canonical(n) for n in r.numbers]] for r in records]
+    canonical = [[r.key, [_canonical(f) for f in _trimmed(r.fields)], [_canonical(n) for n in r.numbers]] for r in records]
     return hashlib.sha256(json.dumps(canonical, separators=(",", ":")).encode("utf-8")).hexdigest()
 
 
@@ -192,6 +211,11 @@ def encode_block(model: Model, info: BlockInfo) -> list[list[Any]]:
 
 def _blank(value: Any) -> bool:
     return value is None or (isinstance(value, str) and not value.strip()) or (isinstance(value, float) and math.isnan(value))
+
+
+def _blank_padding(value: Any) -> bool:
+    """An empty cell (a text of spaces is a value, kept as written)."""
+    return value is None or (isinstance(value, str) and value == "") or (isinstance(value, float) and math.isnan(value))
 
 
 def _records_of(grid: list[list[Any]]) -> tuple[list[Record], str | None]:
@@ -220,7 +244,7 @@ def _records_of(grid: list[list[Any]]) -> tuple[list[Record], str | None]:
             current = None
             break
         fields = list(row[1:])
-        while fields and _blank(fields[-1]):
+        while fields and _blank_padding(fields[-1]):
             fields.pop()
         current = [str(key), *fields]
         numbers = []
@@ -247,7 +271,7 @@ def decode_block(cells: Any) -> tuple[Model, BlockInfo]:
     if grid[0][0] != MAGIC:
         raise BlockError(f"the model argument is not a sheetnet model block (its first cell is {grid[0][0]!r}); pass the whole block SHEETNET.TRAIN returned")
     version = grid[0][1] if width > 1 else None
-    if isinstance(version, bool) or not isinstance(version, (int, float)) or version != int(version):
+    if isinstance(version, bool) or not isinstance(version, (int, float)) or not math.isfinite(version) or version != int(version) or version < 1:
         raise BlockError(f"the model block's format version is {version!r}; the block is damaged: train again")
     if int(version) > FORMAT_VERSION:
         raise BlockError(
@@ -259,12 +283,12 @@ def decode_block(cells: Any) -> tuple[Model, BlockInfo]:
     if stored != checksum(records):
         raise BlockError("the model block was changed after training (its checksum does not match); undo the change, or train the model again")
     try:
-        return _model_of(records)
+        return _model_of(records, int(version))
     except (KeyError, IndexError, TypeError, ValueError) as error:
         raise BlockError(f"the model block is damaged ({error}); train the model again") from None
 
 
-def _model_of(records: list[Record]) -> tuple[Model, BlockInfo]:
+def _model_of(records: list[Record], version: int) -> tuple[Model, BlockInfo]:
     by_key: dict[str, list[Record]] = {}
     for record in records:
         by_key.setdefault(record.key, []).append(record)
@@ -282,7 +306,8 @@ def _model_of(records: list[Record]) -> tuple[Model, BlockInfo]:
     if len(sizes) != int(depth) or len(sizes) < 2 or min(sizes) < 1:
         raise BlockError("the model block's layer sizes are inconsistent; it is damaged: train again")
     target_name, task = one("target").fields
-    settings = {str(r.fields[0]): _read_setting(r.fields[1]) for r in by_key.get("setting", [])}
+    settings = _settings_of(by_key.get("setting", []), version)
+    given = {str(r.fields[0]): _typed_value(*_kind_and_text(r), f"the argument '{r.fields[0]}'") for r in by_key.get("given", [])}
 
     categories: dict[str, list[str]] = {}
     for r in by_key.get("category", []):
@@ -304,7 +329,7 @@ def _model_of(records: list[Record]) -> tuple[Model, BlockInfo]:
             raise BlockError(f"the model block's input '{name}' has an unknown role {role!r}; it is damaged: train again")
     preparation = Preparation(tuple(inputs), named=True)
 
-    classes = tuple(_label_value(str(r.fields[1]), str(r.fields[2])) for r in sorted(by_key.get("class", []), key=lambda r: int(r.fields[0])))
+    classes = tuple(_class_label(r) for r in sorted(by_key.get("class", []), key=lambda r: int(r.fields[0])))
     if task == "regression":
         mean, scale = (_number(v, "target scaling") for v in one("target_scaling").numbers)
         target = TargetPreparation("regression", mean, scale)
@@ -333,7 +358,7 @@ def _model_of(records: list[Record]) -> tuple[Model, BlockInfo]:
     if not members:
         raise BlockError("the model block holds no trained network; it is damaged: train again")
 
-    model = Model(preparation, target, sizes, str(activation), tuple(members), str(algorithm), MappingProxyType(settings), int(seed))
+    model = Model(preparation, target, sizes, str(activation), tuple(members), str(algorithm), MappingProxyType(settings), int(seed), version)
     training_rows, holdout_rows = (int(v) for v in one("rows").fields)
     info = BlockInfo(
         target=str(target_name),
@@ -345,6 +370,7 @@ def _model_of(records: list[Record]) -> tuple[Model, BlockInfo]:
         holdout_metrics={str(r.fields[0]): float(r.fields[1]) for r in by_key.get("holdout_metric", [])},
         blank_rows=str(one("blank_rows").fields[0]),
         source=_source_of(by_key.get("source", [])),
+        given=MappingProxyType(given),
     )
     return model, info
 
@@ -356,14 +382,49 @@ def _source_of(found: list[Record]) -> tuple[str, float, str, int] | None:
     return (str(address), float(share), str(mode), int(split_seed))
 
 
-def _read_setting(value: Any) -> Any:
+def _kind_and_text(record: Record) -> tuple[Any, Any]:
+    """Kind and value text of a `setting` or `given` row of format 2 (a blank value was trimmed with the padding)."""
+    return record.fields[1], record.fields[2] if len(record.fields) > 2 else None
+
+
+def _class_label(record: Record) -> Any:
+    kind, text = record.fields[1], record.fields[2] if len(record.fields) > 2 else None
+    if kind == "none":
+        raise BlockError("the model block records a class label that is empty; it is damaged: train again")
+    return _typed_value(kind, text, f"class label {record.fields[0]}")
+
+
+def _settings_of(found: list[Record], version: int) -> dict[str, Any]:
+    settings: dict[str, Any] = {}
+    for record in found:
+        name = str(record.fields[0])
+        if version == 1:
+            settings[name] = _format_1_setting(name, record.fields[1])
+        else:
+            settings[name] = _typed_value(*_kind_and_text(record), f"the setting '{name}'")
+    threshold = settings.get("threshold", 0.5)  # the one setting prediction reads
+    if isinstance(threshold, bool) or not isinstance(threshold, (int, float)) or not 0.0 <= threshold <= 1.0:
+        raise BlockError(f"the model block's setting 'threshold' is {threshold!r}, not a share from 0 to 1; it is damaged: train again")
+    return settings
+
+
+def _format_1_setting(name: str, value: Any) -> Any:
+    """Format 1 stored settings as bare cells: the type comes from the setting's declaration where it is known."""
     if value == "none":
         return None
     if value in ("TRUE", "FALSE"):
         return value == "TRUE"
-    if isinstance(value, float) and value.is_integer():
-        return int(value)
-    return value
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return value
+    number = _number(value, f"setting '{name}'")
+    declared = SETTINGS_BY_NAME.get(name)
+    if declared is not None and declared.kind is float:
+        return number
+    if number.is_integer():
+        return int(number)
+    if declared is not None and declared.kind is int:
+        raise BlockError(f"the model block's setting '{name}' is {value!r}, not a whole number; it is damaged: train again")
+    return number
 
 
 def table_fingerprint(columns: Sequence[Sequence[Any]]) -> str:

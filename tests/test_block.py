@@ -1,7 +1,9 @@
 """The model block: round trips, tamper detection, versions, and that reading it runs nothing."""
 
+import dataclasses
 import json
 from pathlib import Path
+from types import MappingProxyType
 
 import numpy as np
 import pandas as pd
@@ -10,9 +12,11 @@ import pytest
 import sheetnet
 from sheetnet import block
 from sheetnet.block import BlockError, BlockInfo, decode_block, encode_block
+from sheetnet.settings import SETTINGS, resolve_settings
 
 INFO = BlockInfo("output", "2026-01-01T00:00:00Z", "sheetnet test", "f" * 64, 80, 20, {"rmse": 0.25})
-FIXTURE = Path(__file__).parent / "data" / "block_format_1.json"
+DATA = Path(__file__).parent / "data"
+FIXTURE = DATA / "block_format_1.json"
 
 
 def _mixed_model(rng, task="regression", repeats=1):
@@ -122,3 +126,82 @@ def test_blocks_of_format_1_stay_readable():
     model, info = decode_block(stored["block"])
     assert info.target == "output"
     np.testing.assert_allclose(model.predict(pd.DataFrame(stored["rows"])), stored["predictions"], rtol=1e-12)
+
+
+def test_blocks_of_format_1_read_setting_types_from_the_declarations():
+    model, info = decode_block(json.loads(FIXTURE.read_text())["block"])
+    assert model.format_version == 1 and info.given == {}
+    declared = {s.name: s.kind for s in SETTINGS}
+    for name, value in model.settings.items():
+        assert value is None or type(value) is declared[name], name
+    # format 1 wrote whole-number floats as bare numbers: 50.0 for a float setting stays a float
+    assert model.settings["rprop_step_max"] == 50.0 and type(model.settings["rprop_step_max"]) is float
+    assert model.settings["rate"] == 0.0 and type(model.settings["rate"]) is float
+    assert model.settings["epochs"] == 50 and type(model.settings["epochs"]) is int
+    assert model.settings["workers"] is None
+
+
+def test_blocks_of_format_2_stay_readable():
+    # written once when format 2 began (tests/data/block_format_2.json) and kept: later versions must read it
+    # and predict the same. Binary classifier, a text input, two repeats of 400 epochs with validation curves.
+    stored = json.loads((DATA / "block_format_2.json").read_text())
+    model, info = decode_block(stored["block"])
+    assert model.format_version == 2
+    assert (info.target, info.blank_rows, info.source) == ("status", "skip", ("'Deliveries'!A1:D201", 0.2, "stratified", 5))
+    assert info.given["hidden"] == "5,3" and info.given["categories"] is None
+    assert type(info.given["patience"]) is float and type(info.given["decay"]) is int
+    assert model.settings["threshold"] == 0.4 and type(model.settings["tolerance"]) is float
+    rows = pd.DataFrame(stored["rows"])
+    np.testing.assert_allclose(model.predict_proba(rows), stored["probabilities"], rtol=1e-12)
+    assert model.predict(rows).tolist() == stored["predictions"]
+
+
+def _other_value(setting):
+    """A valid value other than the default, preferring whole-number floats (the type a round trip used to lose)."""
+    if setting.choices:
+        return next(c for c in setting.choices if c != setting.default)
+    candidates = (1.0, 0.0, 0.25, 3.0) if setting.kind is float else (2, 3, 1)
+    return next(
+        v for v in candidates
+        if v != setting.default and (setting.low is None or v >= setting.low) and (setting.high is None or v <= setting.high)
+    )
+
+
+def _exactly(mapping):
+    return {name: (type(value), value) for name, value in mapping.items()}
+
+
+def test_every_setting_keeps_its_type_and_value(rng):
+    _, model = _mixed_model(rng)
+    for setting in SETTINGS:
+        used = resolve_settings({setting.name: _other_value(setting)})
+        with_setting = dataclasses.replace(model, settings=MappingProxyType(used))
+        decoded, _ = decode_block(encode_block(with_setting, INFO))
+        assert _exactly(decoded.settings) == _exactly(used), setting.name
+    defaults = resolve_settings({})  # None for the settings that pick for themselves
+    decoded, _ = decode_block(encode_block(dataclasses.replace(model, settings=MappingProxyType(defaults)), INFO))
+    assert _exactly(decoded.settings) == _exactly(defaults)
+    assert decoded.settings["validation_share"] is None
+
+
+def test_the_arguments_as_given_come_back_exactly(rng):
+    _, model = _mixed_model(rng)
+    given = {
+        "hidden": "8,4", "epochs": "500", "rate": 0.30000000000000004, "tolerance": 1.0, "patience": 6.0, "repeats": 6,
+        "seed": 12345678901234567890, "ignore": "id, name", "inputs": None, "categories": "  ", "blank_rows": "Skip",
+        "threshold": True, "task": "", "decay": 0.0,
+    }
+    for hidden in ("8,4", 6, 6.0, None):
+        info = dataclasses.replace(INFO, given={**given, "hidden": hidden})
+        _, decoded = decode_block(encode_block(model, info))
+        assert _exactly(decoded.given) == _exactly(info.given)
+        assert list(decoded.given) == list(info.given)  # in the order given
+        assert decoded == info
+
+
+def test_arguments_the_block_cannot_keep_are_refused_when_writing(rng):
+    _, model = _mixed_model(rng)
+    with pytest.raises(sheetnet.errors.ModelError, match="the argument 'rate' is inf, not a finite number"):
+        encode_block(model, dataclasses.replace(INFO, given={"rate": float("inf")}))
+    with pytest.raises(sheetnet.errors.ModelError, match="the argument 'epochs' is a list"):
+        encode_block(model, dataclasses.replace(INFO, given={"epochs": [1, 2]}))
