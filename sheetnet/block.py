@@ -340,9 +340,7 @@ def _model_of(records: list[Record], version: int) -> tuple[Model, BlockInfo]:
     if preparation.width != sizes[0] or target.outputs != sizes[-1]:
         raise BlockError("the model block's inputs or outputs do not match its layer sizes; it is damaged: train again")
 
-    curves: dict[tuple[int, str], tuple[float, ...]] = {}
-    for r in by_key.get("curve", []):
-        curves[(int(r.fields[0]), str(r.fields[1]))] = tuple(r.numbers[1::2])
+    curves = {(int(r.fields[0]), str(r.fields[1])): r.numbers for r in by_key.get("curve", [])}
     weights = {int(r.fields[0]): r for r in by_key.get("weights", [])}
     members = []
     for r in sorted(by_key.get("member", []), key=lambda r: int(r.fields[0])):
@@ -354,7 +352,9 @@ def _model_of(records: list[Record], version: int) -> tuple[Model, BlockInfo]:
         if not np.isfinite(theta).all():
             raise BlockError("the model block holds a weight that is not a finite number; it is damaged: train again")
         theta.setflags(write=False)
-        members.append(Member(theta, stopped_by, epochs, curves.get((index, "training"), ()), curves.get((index, "validation"), ()), best_epoch))
+        training_epochs, training_curve = _curve_of(curves.get((index, "training"), ()), epochs, f"training curve of network {index + 1}")
+        validation_epochs, validation_curve = _curve_of(curves.get((index, "validation"), ()), epochs, f"validation curve of network {index + 1}")
+        members.append(Member(theta, stopped_by, epochs, training_curve, validation_curve, best_epoch, training_epochs, validation_epochs))
     if not members:
         raise BlockError("the model block holds no trained network; it is damaged: train again")
 
@@ -373,6 +373,21 @@ def _model_of(records: list[Record], version: int) -> tuple[Model, BlockInfo]:
         given=MappingProxyType(given),
     )
     return model, info
+
+
+def _curve_of(numbers: tuple[float, ...], epochs: int, what: str) -> tuple[tuple[int, ...], tuple[float, ...]]:
+    """(epochs, losses) from stored (epoch, loss) pairs: whole epochs from 1 to the member's last, rising."""
+    points = np.array(numbers, dtype=np.float64)
+    steps = points[0::2]
+    if (
+        len(points) % 2
+        or not np.isfinite(points).all()
+        or (steps != np.round(steps)).any()
+        or (len(steps) and (steps[0] < 1 or steps[-1] > epochs))
+        or (np.diff(steps) <= 0).any()
+    ):
+        raise BlockError(f"the model block's {what} does not hold (epoch, loss) pairs with rising epochs from 1 to {epochs}; it is damaged: train again")
+    return tuple(int(e) for e in steps), tuple(float(v) for v in points[1::2])
 
 
 def _source_of(found: list[Record]) -> tuple[str, float, str, int] | None:

@@ -9,7 +9,7 @@ used and the record of how each member's training ended.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any, Mapping
+from typing import Any, Mapping, Sequence
 
 import numpy as np
 
@@ -22,7 +22,13 @@ FORMAT_VERSION = 2  # of the model block (sheetnet.block) this model is written 
 
 @dataclass(frozen=True, eq=False)  # arrays inside: compare members by identity
 class Member:
-    """One trained network of a model (a model with repeats has several)."""
+    """One trained network of a model (a model with repeats has several).
+
+    A curve is its losses (``training_curve``) beside the epoch of each point
+    (``training_epochs``). A fresh fit records every epoch, so its epochs are
+    ``range(1, epochs + 1)``, filled in when not given; a model read from a
+    block has at most 200 points per curve, at the epochs the block stored.
+    """
 
     theta: np.ndarray  # flat parameters, read-only float64
     stopped_by: str
@@ -30,6 +36,15 @@ class Member:
     training_curve: tuple[float, ...]
     validation_curve: tuple[float, ...]  # empty when no validation share was held back
     best_epoch: int  # the epoch whose parameters were kept (== epochs without early stopping)
+    training_epochs: Sequence[int] = ()  # epoch of each training_curve point; empty: every epoch from 1
+    validation_epochs: Sequence[int] = ()  # epoch of each validation_curve point; empty: every epoch from 1
+
+    def __post_init__(self) -> None:
+        for epochs, curve in (("training_epochs", self.training_curve), ("validation_epochs", self.validation_curve)):
+            if not getattr(self, epochs):
+                object.__setattr__(self, epochs, range(1, len(curve) + 1))
+            if len(getattr(self, epochs)) != len(curve):
+                raise ValueError(f"{epochs} has {len(getattr(self, epochs))} points but its curve {len(curve)}")  # internal invariant
 
 
 @dataclass(frozen=True, eq=False)  # arrays inside: compare models by identity

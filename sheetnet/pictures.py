@@ -30,24 +30,29 @@ def _save(figure: Figure, path: str | Path) -> Path:
     return path
 
 
-def loss_curve_picture(model: Model, path: str | Path, title: str = "Training curve") -> Path:
-    """Training (and validation) loss per epoch of the model's first member, the kept epoch marked."""
+def loss_curve_figure(model: Model, title: str = "Training curve") -> Figure:
+    """Training (and validation) loss of the model's first member at its recorded epochs, the kept epoch marked."""
     member = model.members[0]
     figure = Figure(figsize=(6.4, 3.8))
     axes = figure.add_subplot()
-    epochs = np.arange(1, member.epochs + 1)
-    axes.plot(epochs, member.training_curve, color=TRAINING, label="training loss")
+    # a model read from a block keeps at most 200 points per curve, so each curve brings its own epochs
+    axes.plot(np.asarray(member.training_epochs), member.training_curve, color=TRAINING, label="training loss")
     if member.validation_curve:
-        axes.plot(epochs, member.validation_curve, color=VALIDATION, label="validation loss")
+        axes.plot(np.asarray(member.validation_epochs), member.validation_curve, color=VALIDATION, label="validation loss")
         axes.axvline(member.best_epoch, color=HIGHLIGHT, linestyle="--", linewidth=1, label=f"kept: epoch {member.best_epoch}")
-    if min(member.training_curve) > 0:
+    if member.training_curve and min(member.training_curve) > 0:
         axes.set_yscale("log")
     axes.set_xlabel("epoch")
     axes.set_ylabel("loss")
     axes.set_title(f"{title}\n{model.algorithm}, stopped by '{member.stopped_by}' after {member.epochs} epochs", color=INK, fontsize=10)
     axes.legend(frameon=False)
     axes.grid(alpha=0.3)
-    return _save(figure, path)
+    return figure
+
+
+def loss_curve_picture(model: Model, path: str | Path, title: str = "Training curve") -> Path:
+    """The loss curve (`loss_curve_figure`) as a PNG file."""
+    return _save(loss_curve_figure(model, title), path)
 
 
 def predicted_vs_actual_picture(actual: Sequence[float], predicted: Sequence[float], path: str | Path, title: str = "Predicted against actual") -> Path:

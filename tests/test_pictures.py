@@ -31,3 +31,42 @@ def test_confusion_matrix_picture(tmp_path):
     path = pictures.confusion_picture(np.array([[5, 1], [2, 7]]), ["no", "yes"], tmp_path / "nested" / "confusion.png")
     assert path.parent.name == "nested"
     _looks_drawn(path)
+
+
+def _decoded(model):
+    from sheetnet.block import BlockInfo, decode_block, encode_block
+
+    info = BlockInfo("y", "2026-01-01T00:00:00Z", "sheetnet test", "0" * 64, 200, 0)
+    return decode_block(encode_block(model, info))[0]
+
+
+def test_a_decoded_long_regression_curve_is_drawn_at_its_stored_epochs(tmp_path, rng):
+    X = rng.normal(size=(60, 2))
+    fresh = sheetnet.fit(X, X[:, 0] - X[:, 1], hidden=(3,), epochs=400, validation_share=0, patience=400, tolerance=0.0, gradient_threshold=0.0)
+    member = _decoded(fresh).members[0]
+    assert fresh.epochs == 400 and len(member.training_curve) == 200  # the block keeps 200 of the 400 points
+    assert member.training_epochs[0] == 1 and member.training_epochs[-1] == 400
+    lines = pictures.loss_curve_figure(_decoded(fresh)).axes[0].get_lines()
+    np.testing.assert_array_equal(lines[0].get_xdata(), member.training_epochs)
+    np.testing.assert_array_equal(lines[0].get_ydata(), member.training_curve)
+    _looks_drawn(pictures.loss_curve_picture(_decoded(fresh), tmp_path / "regression.png"))
+    # a fresh fit draws every epoch
+    np.testing.assert_array_equal(pictures.loss_curve_figure(fresh).axes[0].get_lines()[0].get_xdata(), np.arange(1, 401))
+
+
+def test_a_decoded_classifier_draws_its_validation_curve_at_its_stored_epochs(tmp_path, rng):
+    X = rng.normal(size=(200, 3))
+    y = np.where(X[:, 0] + rng.normal(scale=0.8, size=200) > 0, "yes", "no")
+    fresh = sheetnet.fit(X, y, hidden=(8,), epochs=400, validation_share=0.3, patience=400, tolerance=0.0, gradient_threshold=0.0, decay=0.0)
+    decoded = _decoded(fresh)
+    member = decoded.members[0]
+    assert fresh.epochs == 400 and len(member.validation_curve) == 200
+    lines = pictures.loss_curve_figure(decoded).axes[0].get_lines()
+    np.testing.assert_array_equal(lines[0].get_xdata(), member.training_epochs)
+    np.testing.assert_array_equal(lines[1].get_xdata(), member.validation_epochs)
+    np.testing.assert_array_equal(lines[1].get_ydata(), member.validation_curve)
+    assert lines[2].get_xdata()[0] == fresh.members[0].best_epoch  # the kept epoch is marked where it was
+    # the stored points are the fresh curve's losses at those epochs
+    kept = np.asarray(member.validation_epochs) - 1
+    np.testing.assert_allclose(member.validation_curve, np.asarray(fresh.members[0].validation_curve)[kept], rtol=1e-14)
+    _looks_drawn(pictures.loss_curve_picture(decoded, tmp_path / "classifier.png"))

@@ -75,6 +75,7 @@ def test_stopping_rule_epochs_is_recorded(rng):
     assert model.stopped_by == "epochs"
     assert model.epochs == 5 and len(model.loss_curve["training"]) == 5
     assert model.loss_curve["validation"] == ()
+    assert list(model.members[0].training_epochs) == [1, 2, 3, 4, 5] and list(model.members[0].validation_epochs) == []
 
 
 def test_stopping_rule_target_loss(rng):
