@@ -5,11 +5,18 @@ over contiguous rows, with ``objective.n_rows`` and ``objective.shuffle(rng)``),
 a starting vector and a `Monitor`, and returns the final vector and the name
 of the stopping rule that ended it. Each docstring states its update rule and
 the paper it follows.
+
+`OPTIMIZERS` is the one table of algorithms, keyed by the name the setting
+``algorithm`` takes: each entry holds the function and which settings feed
+which of its arguments. `run` looks an algorithm up and calls it; adding one
+is one function and one entry (the setting's choices follow from the table).
 """
 
 from __future__ import annotations
 
-from typing import Callable, Protocol
+from dataclasses import dataclass, field
+from types import MappingProxyType
+from typing import Any, Callable, Mapping, Protocol
 
 import numpy as np
 from scipy.optimize import minimize
@@ -223,3 +230,58 @@ def adam(
         theta -= (rate / (1.0 - beta1**t)) * m / scratch
 
     return _minibatch_epochs(objective, theta.copy(), monitor, rng, batch_rows, step)
+
+
+@dataclass(frozen=True)
+class Optimizer:
+    """One entry of `OPTIMIZERS`: the function, and which settings it reads.
+
+    ``reads`` maps each argument of ``function`` to the setting that supplies
+    it (``rate`` and ``batch`` as `sheetnet.training.plan_training` resolved
+    them); ``fixed`` holds arguments that tell variants apart. A mini-batch
+    method also takes the random generator that shuffles the rows.
+    """
+
+    function: Callable[..., tuple[np.ndarray, str]]
+    reads: Mapping[str, str]
+    fixed: Mapping[str, Any] = field(default_factory=lambda: MappingProxyType({}))
+    mini_batches: bool = False  # takes ``rng`` and updates per batch of ``batch`` rows
+
+
+def _entry(function: Callable[..., tuple[np.ndarray, str]], reads: dict[str, str], fixed: dict[str, Any] | None = None, mini_batches: bool = False) -> Optimizer:
+    return Optimizer(function, MappingProxyType(reads), MappingProxyType(fixed or {}), mini_batches)
+
+
+_RPROP_READS = {
+    "increase": "rprop_increase", "decrease": "rprop_decrease", "step_init": "rprop_step",
+    "step_max": "rprop_step_max", "step_min": "rprop_step_min",
+}
+
+# in the order the setting 'algorithm' lists its choices
+OPTIMIZERS: Mapping[str, Optimizer] = MappingProxyType({
+    "gd": _entry(gradient_descent, {"rate": "rate", "momentum": "momentum", "batch_rows": "batch"}, mini_batches=True),
+    "rprop+": _entry(rprop, _RPROP_READS, {"improved": False}),
+    "irprop+": _entry(rprop, _RPROP_READS, {"improved": True}),
+    "lbfgs": _entry(lbfgs, {"memory": "lbfgs_memory", "tolerance": "tolerance"}),
+    "adam": _entry(
+        adam,
+        {"rate": "rate", "beta1": "adam_beta1", "beta2": "adam_beta2", "epsilon": "adam_epsilon", "batch_rows": "batch"},
+        mini_batches=True,
+    ),
+})
+
+
+def run(
+    algorithm: str,
+    objective: BatchObjective,
+    theta: np.ndarray,
+    monitor: Monitor,
+    rng: np.random.Generator,
+    settings: Mapping[str, Any],
+) -> tuple[np.ndarray, str]:
+    """Train with the algorithm named ``algorithm``, its arguments read from ``settings`` by the table."""
+    entry = OPTIMIZERS[algorithm]
+    arguments = {argument: settings[setting] for argument, setting in entry.reads.items()}
+    if entry.mini_batches:
+        arguments["rng"] = rng
+    return entry.function(objective, theta, monitor, **entry.fixed, **arguments)

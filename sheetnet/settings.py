@@ -14,8 +14,9 @@ from dataclasses import dataclass
 from typing import Any, Mapping
 
 from .errors import SettingError
+from .optimizers import OPTIMIZERS
 
-ALGORITHMS = ("auto", "gd", "rprop+", "irprop+", "lbfgs", "adam")
+ALGORITHMS = ("auto", *OPTIMIZERS)  # the optimizer table's names, in its order
 ACTIVATIONS = ("tanh", "logistic", "relu")
 TASKS = ("auto", "regression", "binary", "multiclass")
 PRECISIONS = ("auto", "float64", "float32")

@@ -116,9 +116,10 @@ def train_member(
     theta = network.initial_parameters(sizes, activation, rng)
     held = _validation_rows(len(inputs), plan.validation_share, rng, labels)
     dtype = np.float32 if plan.dtype == "float32" else np.float64
+    optimizer = optimizers.OPTIMIZERS[plan.algorithm]
     train = network.Objective(
         sizes, activation, head, inputs[~held], outputs[~held], settings["decay"], dtype,
-        batch_rows=plan.batch_rows if plan.algorithm in ("gd", "adam") else None,
+        batch_rows=plan.batch_rows if optimizer.mini_batches else None,
     )
     validation_loss = None
     if held.any():
@@ -132,21 +133,9 @@ def train_member(
         patience=settings["patience"],
     )
     monitor = Monitor(rules, validation_loss, progress)
+    chosen = {**settings, "rate": plan.rate, "batch": plan.batch_rows}  # the plan's resolution of the auto choices
     with _one_blas_thread():
-        if plan.algorithm == "lbfgs":
-            theta, reason = optimizers.lbfgs(train, theta, monitor, settings["lbfgs_memory"], settings["tolerance"])
-        elif plan.algorithm in ("rprop+", "irprop+"):
-            theta, reason = optimizers.rprop(
-                train, theta, monitor, plan.algorithm == "irprop+", settings["rprop_increase"],
-                settings["rprop_decrease"], settings["rprop_step"], settings["rprop_step_max"], settings["rprop_step_min"],
-            )
-        elif plan.algorithm == "adam":
-            theta, reason = optimizers.adam(
-                train, theta, monitor, rng, plan.rate, settings["adam_beta1"], settings["adam_beta2"],
-                settings["adam_epsilon"], plan.batch_rows,
-            )
-        else:
-            theta, reason = optimizers.gradient_descent(train, theta, monitor, rng, plan.rate, settings["momentum"], plan.batch_rows)
+        theta, reason = optimizers.run(plan.algorithm, train, theta, monitor, rng, chosen)
     theta = np.array(theta, dtype=np.float64)
     if reason == "diverged" or not np.isfinite(theta).all():
         raise TrainingError(

@@ -1,10 +1,13 @@
 """Each training algorithm against a worked example small enough to follow by hand."""
 
+import inspect
+
 import numpy as np
 import pytest
 from scipy.optimize import rosen, rosen_der
 
 from sheetnet import optimizers
+from sheetnet.settings import ALGORITHMS, SETTINGS_BY_NAME, resolve_settings
 from sheetnet.stopping import Monitor, StoppingRules
 
 
@@ -14,7 +17,7 @@ class Quadratic:
     n_rows = 1
 
     def __init__(self, scale=1.0):
-        self.scale = scale
+        self.scale = np.asarray(scale)
 
     def __call__(self, theta, start=0, stop=None):
         return float(np.sum(self.scale * theta**2)), 2 * self.scale * theta
@@ -123,3 +126,43 @@ def test_mini_batches_cover_every_row_once_per_epoch():
     first_epoch = objective.order[:3]
     assert [len(batch) for batch in first_epoch] == [2, 2, 1]
     assert sorted(sum(first_epoch, [])) == [1.0, 2.0, 3.0, 4.0, 5.0]
+
+
+# --- the table of algorithms ------------------------------------------------------------
+
+def test_each_table_entry_supplies_exactly_its_functions_arguments():
+    for name, entry in optimizers.OPTIMIZERS.items():
+        parameters = set(inspect.signature(entry.function).parameters)
+        supplied = {"objective", "theta", "monitor", *entry.reads, *entry.fixed} | ({"rng"} if entry.mini_batches else set())
+        assert supplied == parameters, name
+        assert set(entry.reads.values()) <= set(SETTINGS_BY_NAME), name
+
+
+def test_the_algorithm_setting_offers_the_tables_names():
+    assert ALGORITHMS == ("auto", "gd", "rprop+", "irprop+", "lbfgs", "adam")
+    assert SETTINGS_BY_NAME["algorithm"].choices == ("auto", *optimizers.OPTIMIZERS)
+
+
+@pytest.mark.parametrize(
+    "algorithm, direct",
+    [
+        ("gd", lambda q, t, m, rng, s: optimizers.gradient_descent(q, t, m, rng, 0.05, s["momentum"], 0)),
+        ("rprop+", lambda q, t, m, rng, s: optimizers.rprop(q, t, m, False, 1.3, 0.4, 0.02, 0.7, 1e-5)),
+        ("irprop+", lambda q, t, m, rng, s: optimizers.rprop(q, t, m, True, 1.3, 0.4, 0.02, 0.7, 1e-5)),
+        ("lbfgs", lambda q, t, m, rng, s: optimizers.lbfgs(q, t, m, 3, s["tolerance"])),
+        ("adam", lambda q, t, m, rng, s: optimizers.adam(q, t, m, rng, 0.05, 0.8, 0.99, 1e-7, 0)),
+    ],
+)
+def test_run_feeds_each_setting_to_its_argument(algorithm, direct):
+    # distinct values for every setting an algorithm reads, so a swapped pair would show in the result
+    settings = resolve_settings({
+        "rprop_increase": 1.3, "rprop_decrease": 0.4, "rprop_step": 0.02, "rprop_step_max": 0.7, "rprop_step_min": 1e-5,
+        "adam_beta1": 0.8, "adam_beta2": 0.99, "adam_epsilon": 1e-7, "lbfgs_memory": 3, "momentum": 0.7,
+    })
+    settings.update(rate=0.05, batch=0)  # as plan_training resolves them
+    start = np.array([0.9, -0.4, 0.3])
+    theta, reason = optimizers.run(algorithm, Quadratic([1.0, 3.0, 0.5]), start, _monitor(6), np.random.default_rng(1), settings)
+    expected, expected_reason = direct(Quadratic([1.0, 3.0, 0.5]), start, _monitor(6), np.random.default_rng(1), settings)
+    np.testing.assert_array_equal(theta, expected)
+    assert reason == expected_reason
+    assert not np.array_equal(theta, start)
