@@ -63,6 +63,12 @@ def _class_labels(y: Any, task: str) -> np.ndarray | None:
     return None if target.task == "regression" else target.class_indices(read_target(y))
 
 
+def auto_split_mode(y: Any, task: str = "auto") -> str:
+    """What holdout mode "auto" means, for every door: stratified when the target is learned
+    as classes (by the task setting or its auto rule), else random."""
+    return "random" if _class_labels(y, task) is None else "stratified"
+
+
 def holdout_evaluation(
     X: Any,
     y: Any,
@@ -78,9 +84,9 @@ def holdout_evaluation(
     ``ordered`` for time series (the last rows are held out).
     """
     n = len(read_target(y))
-    labels = _class_labels(y, settings.get("task", "auto")) if mode in ("auto", "stratified") else None
     if mode == "auto":
-        mode = "random" if labels is None else "stratified"
+        mode = auto_split_mode(y, settings.get("task", "auto"))
+    labels = _class_labels(y, settings.get("task", "auto")) if mode == "stratified" else None
     held = holdout_mask(n, share, seed, mode, labels)
     model = fit(take_rows(X, ~held), take_rows(y, ~held), hidden, seed, **settings)
     return HoldoutResult(model, held, score(model, take_rows(X, held), take_rows(y, held)))
