@@ -248,7 +248,9 @@ class Optimizer:
     mini_batches: bool = False  # takes ``rng`` and updates per batch of ``batch`` rows
 
 
-def _entry(function: Callable[..., tuple[np.ndarray, str]], reads: dict[str, str], fixed: dict[str, Any] | None = None, mini_batches: bool = False) -> Optimizer:
+def _entry(
+    function: Callable[..., tuple[np.ndarray, str]], reads: dict[str, str], fixed: dict[str, Any] | None = None, mini_batches: bool = False
+) -> Optimizer:
     return Optimizer(function, MappingProxyType(reads), MappingProxyType(fixed or {}), mini_batches)
 
 
