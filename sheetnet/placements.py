@@ -35,6 +35,11 @@ def column_letters(number: int) -> str:
     return letters
 
 
+def same_title(a: str, b: str) -> bool:
+    """Sheet titles and defined names are compared ignoring case, as spreadsheets compare them."""
+    return a.casefold() == b.casefold()
+
+
 def quote_sheet(title: str) -> str:
     """A sheet name as a formula or a defined name writes it: always quoted, quotes doubled."""
     return "'" + title.replace("'", "''") + "'"

@@ -23,7 +23,7 @@ from typing import Any, Iterable
 from .block import WIDTH, decode_block
 from .errors import InputError
 from .formulas import formula_constants, name_prefix
-from .placements import CellBlock, NamePlacement, Placements, SheetPlan, cell_block
+from .placements import CellBlock, NamePlacement, Placements, SheetPlan, cell_block, same_title
 
 MODEL_SHEET_PREFIX = "sheetnet_"
 RESULTS_SHEET_PREFIX = "sn "
@@ -44,11 +44,6 @@ def check_model_name(name: str) -> str:
             "and avoid names that look like cell addresses (such as AB12)"
         )
     return name
-
-
-def same_name(a: str, b: str) -> bool:
-    """Spreadsheet names (defined names, sheet titles) ignore case."""
-    return a.casefold() == b.casefold()
 
 
 def _sheet_title(prefix: str, name: str) -> str:
@@ -120,5 +115,5 @@ def removal_placements(name: str, existing_names: Iterable[str]) -> Placements:
 
 __all__ = [
     "CONSTANTS_COLUMN", "MODEL_SHEET_PREFIX", "OWNED_MARK", "check_model_name", "constant_owner", "model_placements",
-    "model_sheet_name", "name_prefix", "names_of_model", "removal_placements", "results_sheet_name", "same_name",
+    "model_sheet_name", "name_prefix", "names_of_model", "removal_placements", "results_sheet_name", "same_title",
 ]
