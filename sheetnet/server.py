@@ -3,14 +3,18 @@
 Listens on 127.0.0.1 only. Every call needs ``Authorization: Bearer TOKEN``
 except the add-in's static files under ``/addin/`` (the task pane page reads
 the token from its address, ``#token=...``). Request bodies are limited in
-size; errors are JSON with the same messages the cells show, produced in one
-place (the exception handlers below).
+size. Every error answer, from the token gate to a cell function's refusal,
+is JSON ``{"detail": TEXT}`` built by `error_response`, with the same messages
+the cells show.
 
 - ``GET /v1/functions``: the registry.
 - ``POST /v1/functions/{name}`` with ``{"args": [...]}``: ``{"result": [[...]]}``. Runs off the
   event loop; identical requests under way at the same time are computed once.
-- ``POST /v1/jobs`` with ``{"name": MODEL, "args": [TRAIN's arguments]}``: a training job, with
-  ``GET /v1/jobs/{id}`` for progress (epoch, losses, curve) and ``DELETE /v1/jobs/{id}`` to cancel.
+- ``POST /v1/jobs`` with ``{"name": MODEL, "args": [TRAIN's arguments], "existing_names": [...]}``: a
+  training job (`sheetnet.jobs`), with ``GET /v1/jobs/{id}`` for progress (epoch, losses, curve; when
+  done the block, and the placements if ``existing_names`` was given) and ``DELETE /v1/jobs/{id}`` to cancel.
+- ``POST /v1/placements`` with ``{"name": MODEL, "block": [[...]], "existing_names": [...]}``: what a
+  door writes to store the model (`sheetnet.service.model_placements`, as JSON).
 - ``GET /v1/models``: the models this server trained, with their summaries.
 - ``/openapi.json``: the schema (token required).
 """
@@ -21,29 +25,33 @@ import asyncio
 import hashlib
 import hmac
 import json
-import math
+import logging
 import secrets
 import threading
-import time
-import uuid
-from dataclasses import dataclass, field
+from http import HTTPStatus
 from pathlib import Path
-from typing import Any
+from typing import Annotated, Any, Mapping
 
 from fastapi import FastAPI, HTTPException, Request
 from fastapi.exceptions import RequestValidationError
-from fastapi.responses import JSONResponse, Response
+from fastapi.responses import Response
 from pydantic import BaseModel, Field
+from starlette.exceptions import HTTPException as StarletteHTTPException
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
-from . import __version__, functions
+from . import __version__, service
 from .cells import MARKER
 from .errors import SheetnetError
+from .jobs import BoardFull, JobBoard, JobRequestError, UnknownJob, finite
 from .registry import BY_NAME, REGISTRY
 
 MAX_BODY_BYTES = 32 * 1024 * 1024  # about a million numeric cells
-KEPT_JOBS = 100  # finished training jobs remembered for their callers
 ADDIN_FILES = Path(__file__).parent / "addin"
+# the HTTP status of each refusal sheetnet raises on purpose; any other SheetnetError is a 400
+STATUS_OF_ERROR: tuple[tuple[type[SheetnetError], int], ...] = ((UnknownJob, 404), (JobRequestError, 422), (BoardFull, 429))
+log = logging.getLogger(__name__)
+
+Cell = bool | int | float | str | None
 
 
 class CallBody(BaseModel):
@@ -53,41 +61,44 @@ class CallBody(BaseModel):
 class JobBody(BaseModel):
     name: str = Field(description="the model's name, as it will be stored in the workbook")
     args: list[Any] = Field(description="SHEETNET.TRAIN's arguments: table, target, [hidden], [settings], [split]")
+    existing_names: list[str] | None = Field(
+        None, description="the workbook's defined names now; when given, a done job carries the model's placements"
+    )
 
 
-class Cancelled(SheetnetError):
-    """A training job was cancelled by its caller."""
+class PlacementsBody(BaseModel):
+    name: str = Field(description="the model's name")
+    block: list[Annotated[list[Cell], Field(min_length=1)]] = Field(
+        min_length=1, description="the model block, as SHEETNET.TRAIN returned it (a list of rows, none empty)"
+    )
+    existing_names: list[str] = Field(default_factory=list, description="the workbook's defined names now")
 
 
-@dataclass
-class Job:
-    id: str
-    name: str
-    state: str = "running"  # running, done, failed, cancelled
-    epoch: int = 0
-    epochs: int = 0
-    training_loss: float | None = None
-    validation_loss: float | None = None
-    curve: list[list[float | None]] = field(default_factory=list)
-    message: str | None = None
-    result: list[list[Any]] | None = None
-    cancel: threading.Event = field(default_factory=threading.Event)
-
-    def view(self) -> dict[str, Any]:
-        return {
-            "id": self.id, "name": self.name, "state": self.state, "epoch": self.epoch, "epochs": self.epochs,
-            "training_loss": self.training_loss, "validation_loss": self.validation_loss,
-            "curve": self.curve[-500:], "message": self.message, "result": self.result,
-        }
+def error_response(status: int, detail: str, headers: Mapping[str, str] | None = None) -> Response:
+    """The one shape of every error this server answers: ``{"detail": TEXT}`` with its status.
+    A Starlette response is itself an ASGI app, so the plain ASGI layers send it too."""
+    return Response(json.dumps({"detail": detail}).encode(), status_code=status, headers=headers, media_type="application/json")
 
 
-def _finite(value: Any) -> Any:
-    """JSON cannot carry NaN or infinity: they go out as blanks (None)."""
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    if isinstance(value, list):
-        return [_finite(v) for v in value]
-    return value
+def status_of(error: SheetnetError) -> int:
+    return next((status for kind, status in STATUS_OF_ERROR if isinstance(error, kind)), 400)
+
+
+def _plain_detail(status: int, detail: Any, request: Request) -> str:
+    """Our own messages pass as they are; the framework's bare status phrases get words that say what to do."""
+    if status == 404 and detail == HTTPStatus.NOT_FOUND.phrase:
+        return f"the sheetnet server has no address '{request.url.path}'; GET /openapi.json lists what it answers"
+    if status == 405 and detail == HTTPStatus.METHOD_NOT_ALLOWED.phrase:
+        return f"'{request.url.path}' does not take {request.method} requests; GET /openapi.json lists what it answers"
+    return detail if isinstance(detail, str) else HTTPStatus(status).phrase
+
+
+def _problems(error: RequestValidationError) -> str:
+    def place(location: Any) -> str:
+        parts = [str(p) for p in location if p != "body"]
+        return " item ".join(parts) if parts else "the body"
+
+    return "; ".join(f"{place(e.get('loc', ()))}: {e.get('msg', 'not accepted')}" for e in error.errors())
 
 
 class BodyLimit:
@@ -102,7 +113,7 @@ class BodyLimit:
             return
         declared = dict(scope.get("headers", [])).get(b"content-length")
         if declared is not None and declared.isdigit() and int(declared) > self.limit:
-            await _too_large(self.limit, send)
+            await self._too_large(scope, receive, send)
             return
         # read the whole body first (it is bounded by the limit), then hand it on in one piece
         parts, seen, more = [], 0, True
@@ -114,7 +125,7 @@ class BodyLimit:
             parts.append(message.get("body", b""))
             seen += len(parts[-1])
             if seen > self.limit:
-                await _too_large(self.limit, send)
+                await self._too_large(scope, receive, send)
                 return
             more = message.get("more_body", False)
         body, delivered = b"".join(parts), False
@@ -127,6 +138,10 @@ class BodyLimit:
             return await receive()
 
         await self.app(scope, replay, send)
+
+    async def _too_large(self, scope: Scope, receive: Receive, send: Send) -> None:
+        refusal = error_response(413, f"the request body is larger than {self.limit:,} bytes; send fewer cells per call")
+        await refusal(scope, receive, send)
 
 
 class TokenGate:
@@ -144,9 +159,8 @@ class TokenGate:
         path = scope.get("path", "")
         public = scope.get("method") == "OPTIONS" or path.startswith("/addin/") or path == "/"
         if not public and not hmac.compare_digest(headers.get(b"authorization", b""), self.expected):
-            body = json.dumps({"detail": "missing or wrong access token; send the header 'Authorization: Bearer TOKEN' printed by sheetnet serve"}).encode()
-            await send({"type": "http.response.start", "status": 401, "headers": [(b"content-type", b"application/json")]})
-            await send({"type": "http.response.body", "body": body})
+            refusal = error_response(401, "missing or wrong access token; send the header 'Authorization: Bearer TOKEN' printed by sheetnet serve")
+            await refusal(scope, receive, send)
             return
         if headers.get(b"origin") != self.origin:
             await self.app(scope, receive, send)
@@ -165,31 +179,36 @@ class TokenGate:
         await self.app(scope, receive, with_cors)
 
 
-async def _too_large(limit: int, send: Send) -> None:
-    body = json.dumps({"detail": f"the request body is larger than {limit:,} bytes; send fewer cells per call"}).encode()
-    await send({"type": "http.response.start", "status": 413, "headers": [(b"content-type", b"application/json")]})
-    await send({"type": "http.response.body", "body": body})
-
-
-def create_app(token: str, origin: str = "http://127.0.0.1", max_body: int = MAX_BODY_BYTES) -> FastAPI:
-    """The application; ``origin`` is where it is served from (the only origin CORS allows)."""
+def create_app(token: str, origin: str = "http://127.0.0.1", max_body: int = MAX_BODY_BYTES, jobs: JobBoard | None = None) -> FastAPI:
+    """The application; ``origin`` is where it is served from (the only origin CORS allows);
+    ``jobs`` holds the training jobs (a fresh `JobBoard` when not given; also at ``app.state.jobs``)."""
     if len(token) < 16:
         raise ValueError("the access token must be at least 16 characters")
     app = FastAPI(title="sheetnet local server", version=__version__, description=__doc__)
-    jobs: dict[str, Job] = {}
-    models: dict[str, dict[str, Any]] = {}
+    board = app.state.jobs = jobs if jobs is not None else JobBoard()
     running: dict[str, asyncio.Future[Any]] = {}
     lock = threading.Lock()
 
+    # --- every error answer, in one place ---------------------------------------------------
+
+    @app.exception_handler(StarletteHTTPException)
+    async def http_refusal(request: Request, error: StarletteHTTPException) -> Response:
+        return error_response(error.status_code, _plain_detail(error.status_code, error.detail, request), error.headers)
 
     @app.exception_handler(RequestValidationError)
-    async def malformed(request: Request, error: RequestValidationError) -> JSONResponse:
-        problems = "; ".join(f"{'.'.join(str(p) for p in e.get('loc', ()))}: {e.get('msg')}" for e in error.errors())
-        return JSONResponse({"detail": f"the request body is not what this call takes ({problems}); send JSON like {{\"args\": [...]}}"}, 422)
+    async def malformed(request: Request, error: RequestValidationError) -> Response:
+        return error_response(422, f"the request body is not what this call takes ({_problems(error)}); GET /openapi.json shows what each call takes")
 
     @app.exception_handler(SheetnetError)
-    async def refused(request: Request, error: SheetnetError) -> JSONResponse:
-        return JSONResponse({"detail": str(error)}, 400)
+    async def refused(request: Request, error: SheetnetError) -> Response:
+        return error_response(status_of(error), str(error))
+
+    @app.exception_handler(Exception)
+    async def broken(request: Request, error: Exception) -> Response:  # a bug: logged, answered in words
+        log.error("unexpected error answering %s %s", request.method, request.url.path, exc_info=error)
+        return error_response(500, "the sheetnet server hit an unexpected problem; this is a bug, please report it with what you sent")
+
+    # --- the calls --------------------------------------------------------------------------
 
     @app.get("/", include_in_schema=False)
     def home() -> Response:
@@ -236,55 +255,25 @@ def create_app(token: str, origin: str = "http://127.0.0.1", max_body: int = MAX
 
     @app.post("/v1/jobs", status_code=202, summary="start a training job (SHEETNET.TRAIN with progress)")
     def start_job(body: JobBody) -> dict[str, Any]:
-        job = Job(uuid.uuid4().hex, body.name)
-        finished = [j for j in jobs.values() if j.state != "running"]
-        for old in finished[: max(0, len(jobs) - KEPT_JOBS)]:  # keep memory bounded: forget the oldest finished jobs
-            jobs.pop(old.id, None)
-        jobs[job.id] = job
-        args = list(body.args) + [None] * (5 - len(body.args))
-
-        def progress(epoch: int, most: int, training: float, validation: float | None) -> None:
-            if job.cancel.is_set():
-                raise Cancelled("the training was cancelled")
-            job.epoch, job.epochs, job.training_loss, job.validation_loss = epoch, most, training, validation
-            job.curve.append([epoch, _finite(training), _finite(validation)])
-
-        def work() -> None:
-            try:
-                table, target, hidden, settings, split = args[:5]
-                block = functions.train_block(table, target, hidden, settings, split, progress=progress)
-                job.result = _finite(block)
-                about = functions.raising(functions.about)(block)
-                models[job.name] = {"name": job.name, "about": _finite(about), "block": job.result, "trained": time.time()}
-                job.state = "done"
-            except Cancelled as error:
-                job.state, job.message = "cancelled", str(error)
-            except SheetnetError as error:
-                job.state, job.message = "failed", f"{MARKER} {error}"
-            except Exception as error:  # a bug: reported, never a dead job
-                job.state, job.message = "failed", f"{MARKER} unexpected {type(error).__name__}: {error}"
-
-        if len(body.args) < 2:
-            raise HTTPException(422, "a training job needs at least the table and the target column's name")
-        threading.Thread(target=work, daemon=True, name=f"sheetnet-job-{job.id[:8]}").start()
+        job = board.submit(body.name, body.args, body.existing_names)
         return {"id": job.id, "state": job.state}
 
     @app.get("/v1/jobs/{job_id}", summary="a training job's progress and, when done, its model block")
     def job_status(job_id: str) -> dict[str, Any]:
-        if job_id not in jobs:
-            raise HTTPException(404, f"there is no job '{job_id}'")
-        return jobs[job_id].view()
+        return board.get(job_id).view()
 
     @app.delete("/v1/jobs/{job_id}", summary="cancel a training job")
     def cancel_job(job_id: str) -> dict[str, Any]:
-        if job_id not in jobs:
-            raise HTTPException(404, f"there is no job '{job_id}'")
-        jobs[job_id].cancel.set()
-        return {"id": job_id, "state": "cancelling" if jobs[job_id].state == "running" else jobs[job_id].state}
+        return {"id": job_id, "state": board.cancel(job_id)}
+
+    @app.post("/v1/placements", summary="what storing a model writes into a workbook (sheets, cells, defined names)")
+    def model_placements(body: PlacementsBody) -> Response:
+        placements = service.model_placements(body.name, body.block, body.existing_names)
+        return Response(_dumps_strict(placements.to_json()), media_type="application/json")
 
     @app.get("/v1/models", summary="the models this server has trained")
     def list_models() -> dict[str, Any]:
-        return {"models": [{k: v for k, v in m.items() if k != "block"} for m in sorted(models.values(), key=lambda m: -m["trained"])]}
+        return {"models": board.models()}
 
     @app.get("/addin/{file_name}", include_in_schema=False)
     def addin_file(file_name: str, request: Request) -> Response:
@@ -322,7 +311,7 @@ def _dumps(answer: dict[str, Any]) -> bytes:
     try:
         return _dumps_strict(answer)
     except ValueError:  # a NaN or infinity somewhere: JSON has none, so it goes out as a blank
-        return _dumps_strict({**answer, "result": _finite(answer["result"])})
+        return _dumps_strict({**answer, "result": finite(answer["result"])})
 
 
 def _call_body(raw: bytes) -> CallBody:

@@ -14,8 +14,9 @@ import sheetnet_demo
 import uvicorn
 from local_server import serving
 
-from sheetnet import cli, functions, server
+from sheetnet import cli, functions, server, service
 from sheetnet.addin import functions_metadata
+from sheetnet.jobs import JobBoard
 from sheetnet.registry import BY_NAME, REGISTRY, CellFunction
 
 TOKEN = "test-token-0123456789abcdef"
@@ -23,8 +24,13 @@ AUTH = {"Authorization": f"Bearer {TOKEN}"}
 
 
 @pytest.fixture(scope="module")
-def base_url():
-    with serving(server.create_app(TOKEN, origin="http://127.0.0.1")) as address:
+def app():
+    return server.create_app(TOKEN, origin="http://127.0.0.1")
+
+
+@pytest.fixture(scope="module")
+def base_url(app):
+    with serving(app) as address:
         assert address.startswith("http://127.0.0.1:")
         yield address
 
@@ -140,18 +146,142 @@ def test_identical_concurrent_requests_are_computed_once(client, monkeypatch):
     assert all(r == results[0] for r in results)
 
 
+def _until_finished(client, job_id):
+    for _ in range(1200):
+        status = client.get(f"/v1/jobs/{job_id}").json()
+        if status["state"] != "running":
+            return status
+        time.sleep(0.05)
+    raise AssertionError("the job did not finish in time")
+
+
 def test_training_jobs_report_progress_and_list_the_model(client, table):
     job = client.post("/v1/jobs", json={"name": "shipments", "args": [table, "spoiled", "5", "epochs=300"]})
     assert job.status_code == 202
-    for _ in range(400):
-        status = client.get(f"/v1/jobs/{job.json()['id']}").json()
-        if status["state"] != "running":
-            break
-        time.sleep(0.05)
+    status = _until_finished(client, job.json()["id"])
     assert status["state"] == "done" and status["epoch"] == len(status["curve"]) > 0
-    assert status["result"][0][0] == "sheetnet model block"
+    assert status["result"][0][0] == "sheetnet model block" and status["placements"] is None
     listed = client.get("/v1/models").json()["models"]
     assert listed[0]["name"] == "shipments" and "block" not in listed[0]
+
+
+def test_a_job_given_the_workbook_names_answers_the_services_placements(client, table):
+    names = ["rates", "snf_boxes_m1_b1", "boxes"]
+    job = client.post("/v1/jobs", json={"name": "boxes", "args": [table, "spoiled", "3", "epochs=30"], "existing_names": names})
+    status = _until_finished(client, job.json()["id"])
+    assert status["state"] == "done"
+    assert status["placements"] == service.model_placements("boxes", status["result"], names).to_json()
+    assert status["placements"]["drop_names"] == ["snf_boxes_m1_b1", "boxes"]
+
+
+def test_a_refused_job_request_leaves_no_job_behind(client, app, table):
+    before = len(app.state.jobs.jobs())
+    for _ in range(50):
+        refused = client.post("/v1/jobs", json={"name": "lonely", "args": [table]})
+        assert refused.status_code == 422
+    assert refused.json() == {"detail": "a training job needs at least the table and the target column's name (table, target); got 1 argument"}
+    bad_name = client.post("/v1/jobs", json={"name": "A1", "args": [table, "spoiled"]})
+    assert bad_name.status_code == 400 and "cannot be a model name" in bad_name.json()["detail"]
+    assert client.post("/v1/jobs", json={"name": "x", "args": [table, "spoiled"], "existing_names": [1]}).status_code == 422
+    assert len(app.state.jobs.jobs()) == before
+
+
+def test_a_failed_job_reports_the_cells_message(client):
+    rows = [["a", "y"]] + [[float(i), float(2 * i)] for i in range(1, 20)]
+    rows[5][0] = "many"  # text in the numeric input column a
+    job = client.post("/v1/jobs", json={"name": "broken", "args": [rows, "y"]}).json()
+    status = _until_finished(client, job["id"])
+    assert status["state"] == "failed" and status["message"] == functions.train(rows, "y")[0][0]
+    assert "row 6 of the table" in status["message"]
+
+
+def test_a_full_board_refuses_new_jobs_with_429(table):
+    release = __import__("threading").Event()
+    block = functions.train(table, "spoiled", "2", "epochs=5")
+
+    def held(*args, **kwargs):
+        assert release.wait(60)
+        return block
+
+    with serving(server.create_app(TOKEN, jobs=JobBoard(max_running=1, trainer=held))) as address:
+        with httpx.Client(base_url=address, headers=AUTH, timeout=60) as session:
+            first = session.post("/v1/jobs", json={"name": "one", "args": [table, "spoiled"]})
+            full = session.post("/v1/jobs", json={"name": "two", "args": [table, "spoiled"]})
+            assert first.status_code == 202 and full.status_code == 429
+            assert full.json()["detail"].startswith("1 models are training already, the most this server runs at once")
+            release.set()
+            assert _until_finished(session, first.json()["id"])["state"] == "done"
+            assert session.post("/v1/jobs", json={"name": "two", "args": [table, "spoiled"]}).status_code == 202
+
+
+def test_unknown_jobs_answer_404(client):
+    for method in ("GET", "DELETE"):
+        answer = client.request(method, "/v1/jobs/0123abc")
+        assert answer.status_code == 404 and answer.json()["detail"].startswith("there is no training job '0123abc'")
+
+
+# --- placements --------------------------------------------------------------------------------
+
+def test_placements_are_the_services_answer(client, table):
+    block = functions.train(table, "spoiled", "3", "epochs=30")
+    names = ["Shipments", "snf_shipments_m1_W1n", "snf_other_target", "rates"]
+    answer = client.post("/v1/placements", json={"name": "shipments", "block": block, "existing_names": names})
+    assert answer.status_code == 200
+    assert answer.json() == service.model_placements("shipments", block, names).to_json()
+    assert answer.json()["sheets"] == [{"title": "sheetnet_shipments", "visibility": "veryHidden"}]
+    without = client.post("/v1/placements", json={"name": "shipments", "block": block}).json()
+    assert without["drop_names"] == [] and without["names"] == answer.json()["names"]
+
+
+def test_placements_refuse_a_bad_name_or_a_damaged_block_with_the_services_message(client, table):
+    block = functions.train(table, "spoiled", "3", "epochs=30")
+    bad_name = client.post("/v1/placements", json={"name": "R1C1", "block": block})
+    assert bad_name.status_code == 400
+    with pytest.raises(Exception) as expected:
+        service.model_placements("R1C1", block)
+    assert bad_name.json() == {"detail": str(expected.value)}
+    edited = [list(row) for row in block]
+    edited[5] = [*edited[5][:2], 12345, *edited[5][3:]]
+    damaged = client.post("/v1/placements", json={"name": "shipments", "block": edited})
+    assert damaged.status_code == 400
+    with pytest.raises(Exception) as expected:
+        service.model_placements("shipments", edited)
+    assert damaged.json() == {"detail": str(expected.value)}
+    for junk in ([], [[]], [["sheetnet model block"]], [[{"a": 1}]], [["x", None, 1e308, True]]):
+        answer = client.post("/v1/placements", json={"name": "shipments", "block": junk})
+        assert answer.status_code in (400, 422) and isinstance(answer.json()["detail"], str), junk
+    assert client.post("/v1/placements", json={"name": "shipments", "block": [[]]}).json()["detail"] == (
+        "the request body is not what this call takes (block item 0: List should have at least 1 item after validation, not 0); "
+        "GET /openapi.json shows what each call takes"
+    )
+
+
+# --- one shape for every error ----------------------------------------------------------------
+
+def test_every_error_answer_has_one_shape_and_plain_words(client, base_url):
+    with httpx.Client(base_url=base_url) as anonymous:
+        answers = {"token": anonymous.get("/v1/models")}
+    big = b'{"args": [' + b"1," * (server.MAX_BODY_BYTES // 2) + b"1]}"
+    answers["size"] = client.post("/v1/functions/SHEETNET.LAGS", content=big, headers={"content-type": "application/json"})
+    answers["route"] = client.get("/v1/nothing-here")
+    answers["method"] = client.put("/v1/models")
+    answers["function"] = client.post("/v1/functions/SHEETNET.NOTHING", json={"args": []})
+    answers["validation"] = client.post("/v1/jobs", json={"args": "no name"})
+    answers["sheetnet"] = client.post("/v1/placements", json={"name": "ok", "block": [["not a block"]]})
+    statuses = {kind: answer.status_code for kind, answer in answers.items()}
+    assert statuses == {"token": 401, "size": 413, "route": 404, "method": 405, "function": 404, "validation": 422, "sheetnet": 400}
+    for kind, answer in answers.items():
+        body = answer.json()
+        assert list(body) == ["detail"] and isinstance(body["detail"], str), kind
+        assert answer.headers["content-type"] == "application/json", kind
+        for python_word in ("Traceback", "<class", "{'", "Field required"[:0] or "loc=", "[{"):
+            assert python_word not in body["detail"], (kind, body["detail"])
+    assert answers["route"].json()["detail"] == "the sheetnet server has no address '/v1/nothing-here'; GET /openapi.json lists what it answers"
+    assert answers["method"].json()["detail"] == "'/v1/models' does not take PUT requests; GET /openapi.json lists what it answers"
+    assert answers["validation"].json()["detail"] == (
+        "the request body is not what this call takes (name: Field required; args: Input should be a valid list); "
+        "GET /openapi.json shows what each call takes"
+    )
 
 
 def test_a_training_job_can_be_cancelled(client):

@@ -1,0 +1,173 @@
+"""Training jobs without HTTP: refusals leave nothing behind, bounds, cancelling, messages, placements."""
+
+from __future__ import annotations
+
+import threading
+
+import numpy as np
+import pytest
+import sheetnet_demo
+
+from sheetnet import functions, service
+from sheetnet.errors import InputError
+from sheetnet.jobs import BoardFull, JobBoard, JobRequestError, UnknownJob, check_train_arguments
+
+WAIT = 60  # seconds a test waits for a job at most
+
+
+@pytest.fixture(scope="module")
+def table():
+    frame = sheetnet_demo.cold_chain_shipments(rows=120, seed=4).drop(columns="shipment")
+    return [list(frame.columns)] + frame.astype(object).values.tolist()
+
+
+def _finish(job):
+    assert job.finished.wait(WAIT), "the job did not finish in time"
+    return job.view()
+
+
+class Gate:
+    """A stand-in trainer that holds every job until released, then answers a fixed block."""
+
+    def __init__(self, block=None):
+        self.release, self.block = threading.Event(), block
+
+    def __call__(self, table, target, hidden, settings, split, progress=None):
+        assert self.release.wait(WAIT)
+        if self.block is None:
+            raise RuntimeError("no block given")
+        return self.block
+
+
+@pytest.mark.parametrize("args", [[], [[["a", "y"], [1, 2]]], [1, 2, 3, 4, 5, 6], "table and target"])
+def test_a_refused_request_leaves_no_job_behind(args):
+    board = JobBoard()
+    for _ in range(500):  # repeated bad requests must not grow the board
+        with pytest.raises(JobRequestError):
+            board.submit("model1", args)
+    assert board.jobs() == [] and board.running_count() == 0
+
+
+def test_refusal_messages_say_what_a_job_needs():
+    with pytest.raises(JobRequestError, match=r"^a training job needs at least the table and the target column's name \(table, target\); got 1 argument$"):
+        check_train_arguments([[["a"]]])
+    with pytest.raises(JobRequestError, match=r"^SHEETNET.TRAIN takes at most 5 arguments; got 6$"):
+        check_train_arguments([1, 2, 3, 4, 5, 6])
+    assert check_train_arguments(["t", "y"]) == ["t", "y", None, None, None]
+
+
+def test_a_bad_model_name_or_names_list_is_refused_before_registering(table):
+    board = JobBoard()
+    with pytest.raises(InputError, match="cannot be a model name"):
+        board.submit("AB12", [table, "spoiled"])  # looks like a cell address
+    with pytest.raises(JobRequestError, match="existing_names must be a list"):
+        board.submit("shipments", [table, "spoiled"], existing_names="snf_x")
+    with pytest.raises(JobRequestError, match="existing_names must be a list"):
+        board.submit("shipments", [table, "spoiled"], existing_names=["ok", 3])
+    assert board.jobs() == []
+
+
+def test_a_done_job_has_its_block_its_curve_and_the_listed_model(table):
+    board = JobBoard()
+    view = _finish(board.submit("shipments", [table, "spoiled", "3", "epochs=40; seed=1"]))
+    assert view["state"] == "done" and view["message"] is None
+    assert view["result"][0][0] == "sheetnet model block"
+    assert view["epoch"] == len(view["curve"]) > 0 and view["curve"][0][0] == 1
+    assert view["placements"] is None  # the request carried no workbook names
+    direct = functions.train(table, "spoiled", "3", "epochs=40; seed=1")
+    assert [row[0] for row in view["result"]] == [row[0] for row in direct]  # the same block layout as the cell's
+    [model] = board.models()
+    assert model["name"] == "shipments" and dict(model["about"])["target"] == "spoiled"
+
+
+def test_a_done_job_carries_the_services_placements_when_it_was_given_the_names(table):
+    board = JobBoard()
+    names = ["rates", "Shipments", "snf_shipments_m1_b1", "snf_other_m1_b1"]
+    view = _finish(board.submit("shipments", [table, "spoiled", "3", "epochs=30"], existing_names=names))
+    assert view["state"] == "done"
+    expected = service.model_placements("shipments", view["result"], names).to_json()
+    assert view["placements"] == expected
+    assert expected["drop_names"] == ["Shipments", "snf_shipments_m1_b1"]  # the model's old names, nobody else's
+    assert {n["name"] for n in expected["names"]} >= {"shipments", "snf_shipments_m1_W1n", "snf_shipments_classes"}
+
+
+def test_a_failed_job_says_what_the_train_cell_says():
+    rows = [["a", "b", "y"]] + [[float(i), float(i % 3), float(2 * i)] for i in range(1, 30)]
+    rows[3][0] = "x"  # text in a numeric column, on the sheet's row 4 of the table
+    board = JobBoard()
+    view = _finish(board.submit("broken", [rows, "y"]))
+    assert view["state"] == "failed" and view["result"] is None
+    assert view["message"] == "#SHEETNET! column 'a', row 4 of the table: text in a numeric column ('x'); type a number, or clear the text and remove the row"
+    assert view["message"] == functions.train(rows, "y")[0][0]
+    missing = _finish(board.submit("broken", [rows, "nope"]))
+    assert missing["message"] == "#SHEETNET! the table has no column named 'nope'; its columns are: a, b, y"
+    assert board.models() == []
+
+
+def test_an_unexpected_error_fails_the_job_with_a_message_to_report():
+    gate = Gate(block=None)  # raises RuntimeError when released
+    gate.release.set()
+    view = _finish(JobBoard(trainer=gate).submit("buggy", [[["a", "y"], [1, 2]], "y"]))
+    assert view["state"] == "failed"
+    assert view["message"] == "#SHEETNET! unexpected RuntimeError: no block given. Please report this with the workbook"
+
+
+def test_a_running_job_can_be_cancelled():
+    rng = np.random.default_rng(0)
+    big = [["a", "b", "c", "y"]] + [[*map(float, rng.normal(size=3)), float(rng.normal())] for _ in range(3000)]
+    board = JobBoard()
+    job = board.submit("long", [big, "y", "16", "epochs=100000; patience=100000; validation_share=0"])
+    for _ in range(WAIT * 20):
+        if job.epoch >= 2 or job.finished.wait(0.05):
+            break
+    assert job.state == "running" and job.epoch >= 2
+    assert board.cancel(job.id) == "cancelling"
+    view = _finish(job)
+    assert view["state"] == "cancelled" and view["message"] == "the training was cancelled"
+    assert view["epoch"] < 100000 and view["result"] is None
+    assert board.cancel(job.id) == "cancelled"  # cancelling again reports the final state
+    assert board.models() == []
+
+
+def test_unknown_jobs_are_refused_in_words():
+    board = JobBoard()
+    with pytest.raises(UnknownJob, match="there is no training job 'nope'"):
+        board.get("nope")
+    with pytest.raises(UnknownJob):
+        board.cancel("nope")
+
+
+def test_running_jobs_are_bounded_and_a_full_board_registers_nothing(table):
+    block = functions.train(table, "spoiled", "2", "epochs=5")
+    gate = Gate(block)
+    board = JobBoard(max_running=2, trainer=gate)
+    first, second = board.submit("one", [table, "spoiled"]), board.submit("two", [table, "spoiled"])
+    with pytest.raises(BoardFull, match=r"^2 models are training already, the most this server runs at once; wait for one"):
+        board.submit("three", [table, "spoiled"])
+    assert [j.id for j in board.jobs()] == [first.id, second.id] and board.running_count() == 2
+    gate.release.set()
+    assert _finish(first)["state"] == _finish(second)["state"] == "done"
+    third = board.submit("three", [table, "spoiled"])  # room again
+    assert _finish(third)["state"] == "done"
+    names = [m["name"] for m in board.models()]
+    assert names[0] == "three" and sorted(names[1:]) == ["one", "two"]  # newest first
+
+
+def test_finished_jobs_and_models_kept_are_bounded(table):
+    block = functions.train(table, "spoiled", "2", "epochs=5")
+    gate = Gate(block)
+    gate.release.set()
+    board = JobBoard(kept_finished=3, kept_models=2, trainer=gate)
+    ids = []
+    for i in range(8):
+        job = board.submit(f"m{i}x", [table, "spoiled"])
+        _finish(job)
+        ids.append(job.id)
+    assert [j.id for j in board.jobs()] == ids[-3:]  # the oldest finished jobs are forgotten first
+    with pytest.raises(UnknownJob):
+        board.get(ids[0])
+    assert [m["name"] for m in board.models()] == ["m7x", "m6x"]
+    again = board.submit("M7X", [table, "spoiled"])  # the same model under another case: one entry
+    _finish(again)
+    assert [m["name"] for m in board.models()] == ["M7X", "m6x"]
+
