@@ -13,6 +13,7 @@ import math
 from dataclasses import dataclass
 from typing import Any, Mapping
 
+from . import defaults as d
 from .errors import SettingError
 from .optimizers import OPTIMIZERS
 
@@ -35,19 +36,20 @@ class Setting:
 
 
 SETTINGS: tuple[Setting, ...] = (
-    Setting("algorithm", str, "auto", "training algorithm; auto: L-BFGS below 50,000 training rows, Adam from there on", choices=ALGORITHMS),
+    Setting("algorithm", str, "auto", f"training algorithm; auto: L-BFGS below {d.LBFGS_ROW_LIMIT:,} training rows, Adam from there on", choices=ALGORITHMS),
     Setting("activation", str, "tanh", "activation of the hidden layers", choices=ACTIVATIONS),
     Setting("task", str, "auto", "regression, binary or multiclass; auto decides from the target column", choices=TASKS),
-    Setting("epochs", int, 1000, "most epochs (passes over the training rows; one L-BFGS or Rprop iteration each)", low=1, high=1_000_000),
-    Setting("target_loss", float, 0.0, "stop once the training loss is at or below this (0: off)", low=0.0),
-    Setting("gradient_threshold", float, 1e-6, "stop once the largest partial derivative is at or below this", low=0.0),
-    Setting("tolerance", float, 1e-6, "a loss must fall by this share of itself to count as progress", low=0.0, high=1.0),
-    Setting("patience", int, 10, "epochs without progress before stopping (validation loss, or training loss when no validation share)", low=1, high=100_000),
-    Setting("validation_share", float, None, "share of training rows held back for early stopping; none: 0.15 from 100 training rows on, else 0", low=0.0, high=0.5, allow_none=True),
+    Setting("epochs", int, d.EPOCHS, "most epochs (passes over the training rows; one L-BFGS or Rprop iteration each)", low=1, high=1_000_000),
+    Setting("target_loss", float, d.TARGET_LOSS, "stop once the training loss is at or below this (0: off)", low=0.0),
+    Setting("gradient_threshold", float, d.GRADIENT_THRESHOLD, "stop once the largest partial derivative is at or below this", low=0.0),
+    Setting("tolerance", float, d.TOLERANCE, "a loss must fall by this share of itself to count as progress", low=0.0, high=1.0),
+    Setting("patience", int, d.PATIENCE, "epochs without progress before stopping (validation loss, or training loss when no validation share)", low=1, high=100_000),
+    Setting("validation_share", float, None, f"share of training rows held back for early stopping; none: {d.AUTO_VALIDATION_SHARE:g} from {d.VALIDATION_ROW_LIMIT:,} training rows on, else 0", low=0.0, high=0.5, allow_none=True),
     Setting("decay", float, 1e-4, "L2 weight decay: adds decay/2 * sum of squared weights (biases excluded) to the summed loss", low=0.0),
-    Setting("rate", float, None, "learning rate; none: 0.1 for gd, 0.005 for adam (the paper suggests 0.001; 0.005 converged about 3x sooner on large tables)", low=0.0, allow_none=True),
+    Setting("rate", float, None, f"learning rate; none: {d.GD_RATE:g} for gd, {d.ADAM_RATE:g} for adam "
+        f"(the paper suggests {d.ADAM_PAPER_RATE:g}; {d.ADAM_RATE:g} converged about 3x sooner on large tables)", low=0.0, allow_none=True),
     Setting("momentum", float, 0.9, "momentum of gradient descent", low=0.0, high=0.999),
-    Setting("batch", int, None, "rows per update for gd and adam; 0: all rows; none: all rows for gd, 512 for adam", low=0, allow_none=True),
+    Setting("batch", int, None, f"rows per update for gd and adam; 0: all rows; none: all rows for gd, {d.ADAM_BATCH_ROWS} for adam", low=0, allow_none=True),
     Setting("rprop_increase", float, 1.2, "Rprop step growth when the gradient keeps its sign (eta+)", low=1.0),
     Setting("rprop_decrease", float, 0.5, "Rprop step shrink when the gradient changes sign (eta-)", low=0.0, high=1.0),
     Setting("rprop_step", float, 0.1, "Rprop initial step size (Delta_0)", low=0.0),
@@ -60,7 +62,7 @@ SETTINGS: tuple[Setting, ...] = (
     Setting("repeats", int, 1, "networks trained from different seeds and averaged", low=1, high=1000),
     Setting("workers", int, None, "processes for repeats; none: one per core", low=1, high=256, allow_none=True),
     Setting("threshold", float, 0.5, "binary models: probability of the second class at or above which it is predicted", low=0.0, high=1.0),
-    Setting("precision", str, "auto", "arithmetic of training; auto: float32 from 1,000 training rows on, else float64 (prediction is always float64)", choices=PRECISIONS),
+    Setting("precision", str, "auto", f"arithmetic of training; auto: float32 from {d.FLOAT32_ROW_LIMIT:,} training rows on, else float64 (prediction is always float64)", choices=PRECISIONS),
 )
 
 SETTINGS_BY_NAME: dict[str, Setting] = {s.name: s for s in SETTINGS}

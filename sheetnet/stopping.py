@@ -25,6 +25,8 @@ from typing import Callable
 
 import numpy as np
 
+from . import defaults
+
 STOP_REASONS = ("target_loss", "gradient", "validation", "stalled", "epochs")
 DIVERGED_FACTOR = 1e6  # a training loss this many times the first epoch's means the steps are too large
 
@@ -34,11 +36,13 @@ ProgressCallback = Callable[[int, int, float, float | None], None]
 
 @dataclass(frozen=True)
 class StoppingRules:
-    epochs: int
-    target_loss: float = 0.0
-    gradient_threshold: float = 0.0
-    tolerance: float = 1e-6
-    patience: int = 20
+    """The rules' limits; the defaults are the settings' defaults."""
+
+    epochs: int = defaults.EPOCHS
+    target_loss: float = defaults.TARGET_LOSS
+    gradient_threshold: float = defaults.GRADIENT_THRESHOLD
+    tolerance: float = defaults.TOLERANCE
+    patience: int = defaults.PATIENCE
 
 
 @dataclass

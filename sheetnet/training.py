@@ -17,22 +17,21 @@ import numpy as np
 from threadpoolctl import ThreadpoolController
 
 from . import network, optimizers
+from .defaults import (
+    ADAM_BATCH_ROWS,
+    AUTO_RATES,
+    AUTO_VALIDATION_SHARE,
+    FLOAT32_ROW_LIMIT,
+    LBFGS_ROW_LIMIT,
+    MIN_ROWS,
+    VALIDATION_ROW_LIMIT,
+)
 from .errors import LengthMismatchError, NotEnoughRowsError, SettingError, TrainingError
 from .model import Member, Model
 from .preparation import fit_preparation, fit_target, read_table, read_target
 from .settings import resolve_settings
 from .splits import holdout_mask
 from .stopping import Monitor, ProgressCallback, StoppingRules
-
-MIN_ROWS = 4
-LBFGS_ROW_LIMIT = 50_000  # auto: L-BFGS below this many training rows, Adam from here on
-FLOAT32_ROW_LIMIT = 1_000  # auto precision: float32 from here on
-VALIDATION_ROW_LIMIT = 100  # auto validation share: 0.15 from here on
-AUTO_VALIDATION_SHARE = 0.15
-ADAM_BATCH_ROWS = 512
-# the paper's 0.001 reached the same holdout quality in about 3x the epochs on 100,000 rows
-ADAM_RATE = 0.005
-
 
 _THREADPOOLS: ThreadpoolController | None = None
 
@@ -60,7 +59,7 @@ class Plan:
 
 
 def plan_training(n_rows: int, settings: dict[str, Any]) -> Plan:
-    """Resolve the 'auto' choices for a table of ``n_rows`` training rows."""
+    """Resolve the 'auto' choices for a table of ``n_rows`` training rows (the numbers live in `sheetnet.defaults`)."""
     algorithm = settings["algorithm"]
     if algorithm == "auto":
         algorithm = "lbfgs" if n_rows < LBFGS_ROW_LIMIT else "adam"
@@ -72,7 +71,7 @@ def plan_training(n_rows: int, settings: dict[str, Any]) -> Plan:
         share = AUTO_VALIDATION_SHARE if n_rows >= VALIDATION_ROW_LIMIT else 0.0
     rate = settings["rate"]
     if rate is None:
-        rate = {"gd": 0.1, "adam": ADAM_RATE}.get(algorithm, 0.0)
+        rate = AUTO_RATES.get(algorithm, 0.0)
     batch = settings["batch"]
     if batch is None:
         batch = ADAM_BATCH_ROWS if algorithm == "adam" else 0

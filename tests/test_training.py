@@ -5,7 +5,10 @@ import pandas as pd
 import pytest
 
 import sheetnet
-from sheetnet import errors
+from sheetnet import defaults, errors
+from sheetnet.settings import SETTINGS, resolve_settings
+from sheetnet.stopping import StoppingRules
+from sheetnet.training import plan_training
 
 XOR_X = np.array([[0, 0], [0, 1], [1, 0], [1, 1]], dtype=float)
 XOR_Y = np.array([0, 1, 1, 0])
@@ -268,3 +271,40 @@ def test_bad_cells_at_prediction_are_named(rng):
         model.predict(rows)
     huge = np.full((4, 2), 1e308)  # finite, though their sum overflows
     assert np.isfinite(model.predict(huge)).all()
+
+
+# --- the auto choices and the defaults come from one table ---------------------------------
+
+def test_plan_training_switches_at_the_declared_row_counts():
+    auto = resolve_settings({})
+    below, at = plan_training(defaults.LBFGS_ROW_LIMIT - 1, auto), plan_training(defaults.LBFGS_ROW_LIMIT, auto)
+    assert (below.algorithm, at.algorithm) == ("lbfgs", "adam")
+    assert (at.rate, at.batch_rows) == (defaults.ADAM_RATE, defaults.ADAM_BATCH_ROWS)
+    assert plan_training(defaults.VALIDATION_ROW_LIMIT - 1, auto).validation_share == 0.0
+    assert plan_training(defaults.VALIDATION_ROW_LIMIT, auto).validation_share == defaults.AUTO_VALIDATION_SHARE
+    assert (plan_training(defaults.FLOAT32_ROW_LIMIT - 1, auto).dtype, plan_training(defaults.FLOAT32_ROW_LIMIT, auto).dtype) == ("float64", "float32")
+    gd = plan_training(10, resolve_settings({"algorithm": "gd"}))
+    assert (gd.rate, gd.batch_rows) == (defaults.GD_RATE, 0)
+    assert plan_training(10, resolve_settings({"algorithm": "irprop+"})).rate == 0.0
+
+
+def test_help_texts_quote_the_declared_numbers():
+    help_of = {s.name: s.help for s in SETTINGS}
+    assert f"below {defaults.LBFGS_ROW_LIMIT:,} training rows" in help_of["algorithm"]
+    assert f"none: {defaults.AUTO_VALIDATION_SHARE:g} from {defaults.VALIDATION_ROW_LIMIT:,} training rows" in help_of["validation_share"]
+    assert f"none: {defaults.GD_RATE:g} for gd, {defaults.ADAM_RATE:g} for adam" in help_of["rate"]
+    assert f"{defaults.ADAM_BATCH_ROWS} for adam" in help_of["batch"]
+    assert f"float32 from {defaults.FLOAT32_ROW_LIMIT:,} training rows" in help_of["precision"]
+
+
+def test_stopping_rules_default_to_the_settings_defaults():
+    settings = resolve_settings({})
+    rules = StoppingRules()
+    for name in ("epochs", "target_loss", "gradient_threshold", "tolerance", "patience"):
+        assert getattr(rules, name) == settings[name], name
+
+
+def test_too_few_rows_names_the_declared_minimum():
+    rows = defaults.MIN_ROWS - 1
+    with pytest.raises(errors.NotEnoughRowsError, match=f"at least {defaults.MIN_ROWS} rows; got {rows}"):
+        sheetnet.fit([[i] for i in range(rows)], list(range(rows)))
