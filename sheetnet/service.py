@@ -18,12 +18,15 @@ from __future__ import annotations
 
 import hashlib
 import re
-from typing import Any, Iterable
+from dataclasses import dataclass
+from typing import Any, Callable, Iterable
 
 from .block import WIDTH, decode_block
-from .errors import InputError
+from .cells import parse_settings
+from .errors import InputError, SettingError, SheetnetError
 from .formulas import formula_constants, name_prefix
-from .placements import CellBlock, NamePlacement, Placements, SheetPlan, cell_block, same_title
+from .placements import CellBlock, FormulaBlock, NamePlacement, Placements, SheetPlan, cell_block, column_letters, quote_sheet, same_title
+from .stopping import ProgressCallback
 
 MODEL_SHEET_PREFIX = "sheetnet_"
 RESULTS_SHEET_PREFIX = "sn "
@@ -117,3 +120,195 @@ __all__ = [
     "CONSTANTS_COLUMN", "MODEL_SHEET_PREFIX", "OWNED_MARK", "check_model_name", "constant_owner", "model_placements",
     "model_sheet_name", "name_prefix", "names_of_model", "removal_placements", "results_sheet_name", "same_title",
 ]
+
+
+# --- visible sheets of ours and native formulas -------------------------------------------
+
+def check_owned_sheet(title: str, first_cell: Any) -> None:
+    """A visible sheet named ``title`` may be replaced only if sheetnet wrote it (its A1 says so);
+    ``first_cell`` is that sheet's A1 now, or None when there is no such sheet."""
+    if first_cell is not None and first_cell != OWNED_MARK:
+        raise InputError(f"the workbook has a sheet '{title}' that sheetnet did not write; rename that sheet or choose another model name")
+
+
+def results_placements(title: str, blocks: Iterable[tuple[int, int, list[list[Any]]]]) -> Placements:
+    """A visible sheet of ours, made afresh: our mark in A1, then each (top, left, rows) block."""
+    cells = [cell_block(title, 1, 1, [[OWNED_MARK]])] + [cell_block(title, top, left, rows) for top, left, rows in blocks]
+    return Placements(drop_sheets=(title,), sheets=(SheetPlan(title, "visible"),), cells=tuple(cells))
+
+
+def native_formula_placements(
+    name: str, block: list[list[Any]], header: list[Any], data_rows: list[int], source: tuple[str, int, int],
+    to: tuple[str, int, int], output: str = "value",
+) -> tuple[Placements, int]:
+    """Titles and one native formula per output cell for each data row of a table.
+
+    ``header`` is the table's first row; ``data_rows`` the offsets below it of rows holding data;
+    ``source`` (sheet, first column, header row) locates the table; ``to`` (sheet, top, left) the
+    first title cell. Returns the placements and the number of rows written.
+    """
+    from .formulas import native_formula
+
+    model, info = decode_block(block)
+    names = [str(v).strip() if v is not None else "" for v in header]
+    missing = [n for n in model.input_names if n not in names]
+    if missing:
+        raise InputError(f"the table has no column named {', '.join(repr(m) for m in missing)}; the model needs {', '.join(model.input_names)}")
+    if output == "probabilities" and model.task != "regression":
+        titles = [f"native P({c})" for c in model.classes]
+    else:
+        titles = [f"native {'class' if output == 'class' else 'predicted'} {info.target}"]
+    sheet, first_column, header_row = source
+    to_sheet, top, left = to
+    columns = {n: column_letters(first_column + names.index(n)) for n in model.input_names}
+    quoted = quote_sheet(sheet)
+    formulas: list[FormulaBlock] = []
+    for offset in data_rows:
+        refs = {n: f"{quoted}!${col}{header_row + offset}" for n, col in columns.items()}
+        row = tuple(native_formula(model, name, refs, output, j) for j in range(len(titles)))
+        formulas.append(FormulaBlock(to_sheet, top + offset, left, (row,)))
+    return Placements(cells=(cell_block(to_sheet, top, left, [titles]),), formulas=tuple(formulas)), len(data_rows)
+
+
+# --- training from a range, and refreshing ------------------------------------------------
+
+HOLDOUT_MODES = ("auto", "random", "stratified", "ordered")
+DEFAULT_HIDDEN = "4"  # one hidden layer of 4 units, at every door
+DEFAULT_HOLDOUT = 0.2
+
+
+@dataclass(frozen=True)
+class TrainRequest:
+    """One training request as every door receives it.
+
+    ``seed`` seeds both the holdout split and the training; ``mode`` is one of `HOLDOUT_MODES`
+    (auto: stratified by the target when it is learned as classes, else random; stratified
+    means stratified by the target); ``address`` is where the table lives, recorded in the block
+    so the model can be refreshed from it."""
+
+    table: list[list[Any]]
+    target: str
+    hidden: Any = DEFAULT_HIDDEN
+    settings: Any = None
+    holdout: float = DEFAULT_HOLDOUT
+    mode: str = "auto"
+    seed: int | None = None  # None: the settings' seed, else 0
+    address: str | None = None
+
+
+@dataclass(frozen=True)
+class Trained:
+    block: list[list[Any]]
+    split: list[list[Any]] | None  # the split column (header first), when rows were held out
+
+
+def _seeded(settings: Any, seed: int | None) -> tuple[int, list[list[Any]]]:
+    """One seed for the split and the training: the door's seed, else the settings' seed, else 0."""
+    given = parse_settings(settings)
+    written = given.get("seed")
+    if written is not None and seed is not None and _number_or_none(written) != seed:
+        raise SettingError(f"the seed is given twice ({seed} and {written}); give it once")
+    chosen = seed if seed is not None else (0 if written is None else _whole_seed(written))
+    given["seed"] = chosen
+    return chosen, [[name, value] for name, value in given.items()]
+
+
+def _whole_seed(value: Any) -> int:
+    number = _number_or_none(value)
+    if number is None or not number.is_integer() or number < 0:
+        raise SettingError(f"the seed is {value}; give a whole number of 0 or more")
+    return int(number)
+
+
+def _number_or_none(value: Any) -> float | None:
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        return None
+    return number if number == number and abs(number) != float("inf") else None
+
+
+def split_mode(table: list[list[Any]], target: str, mode: str, settings: Any) -> str:
+    """The split mode SPLIT is called with: `HOLDOUT_MODES` resolved against the table's target."""
+    from .cells import numeric_frame, read_sheet_table
+    from .evaluation import auto_split_mode
+
+    if mode not in HOLDOUT_MODES:
+        raise SettingError(f"holdout mode '{mode}' is not known; choose one of: {', '.join(HOLDOUT_MODES)}")
+    if mode == "auto":
+        sheet = read_sheet_table(table)
+        values = numeric_frame(sheet.frame[[sheet.column(target).name]])[target].to_numpy()
+        task = str(parse_settings(settings).get("task") or "auto").strip().lower()
+        try:
+            mode = auto_split_mode(values, task if task in ("regression", "binary", "multiclass") else "auto")
+        except SheetnetError:
+            mode = "random"  # the target is unusable as it is: training names the bad cell
+    return f"stratified {target}" if mode == "stratified" else mode
+
+
+def train_model(request: TrainRequest, progress: ProgressCallback | None = None) -> Trained:
+    """Split (when ``holdout`` > 0) and train, exactly as every door does it."""
+    from . import functions
+
+    seed, settings = _seeded(request.settings, request.seed)
+    split = None
+    if request.holdout > 0:
+        mode = split_mode(request.table, request.target, request.mode, settings)
+        split = functions.raising(functions.split)(request.table, request.holdout, seed, mode)
+    source = None if request.address is None else (request.address, float(request.holdout), request.mode, seed)
+    block = functions.train_block(request.table, request.target, request.hidden, settings, split, progress, source=source)
+    return Trained(block, split)
+
+
+def retrain_request(block: list[list[Any]], table: list[list[Any]]) -> TrainRequest:
+    """The request that trained a stored model, over the table as it is now: the settings as the
+    user gave them (not as resolved), the same hidden layers, holdout, mode and seed."""
+    model, info = decode_block(block)
+    if info.source is None:
+        raise InputError("this model does not record the range it was trained from, so it cannot be refreshed; train it from a workbook range")
+    address, holdout, mode, seed = info.source
+    given = dict(getattr(info, "given", {}) or {})
+    if given:
+        hidden = given.pop("hidden", DEFAULT_HIDDEN)
+        settings = [[k, v] for k, v in given.items() if k != "seed"]
+    else:  # a format-1 block: rebuild the request from the settings as used
+        hidden = ",".join(map(str, model.hidden)) or "0"
+        settings = [[k, v] for k, v in model.settings.items() if v is not None]
+        settings += [["inputs", ", ".join(model.input_names)], ["blank_rows", info.blank_rows]]
+        categories = [spec.name for spec in model.preparation.inputs if not hasattr(spec, "mean")]
+        if categories:
+            settings.append(["categories", ", ".join(categories)])
+    return TrainRequest(table, info.target, hidden, settings, holdout, mode if mode in HOLDOUT_MODES else "auto", seed, address)
+
+
+def data_changed(block: list[list[Any]], table: list[list[Any]]) -> bool:
+    """Whether the columns and rows a stored model was trained on differ now (its fingerprint)."""
+    from . import functions
+
+    about = functions.raising(functions.about)(block, table)
+    found = [row[1] for row in about if row[0] == "data since training"]
+    return not found or found[0] != "unchanged"
+
+
+@dataclass(frozen=True)
+class RefreshOutcome:
+    name: str
+    state: str  # retrained, unchanged, no-source, failed
+    message: str = ""
+    block: list[list[Any]] | None = None
+
+
+def refresh_model(name: str, block: list[list[Any]], read_table: Callable[[str], list[list[Any]]], dry_run: bool = False) -> RefreshOutcome:
+    """Retrain a stored model when its source range changed since training; the door stores the new block."""
+    try:
+        _, info = decode_block(block)
+        if info.source is None:
+            return RefreshOutcome(name, "no-source", "it does not record the range it was trained from")
+        table = read_table(info.source[0])
+        if not data_changed(block, table):
+            return RefreshOutcome(name, "unchanged")
+        if dry_run:
+            return RefreshOutcome(name, "stale", f"its data in {info.source[0]} changed since training")
+        return RefreshOutcome(name, "retrained", f"from {info.source[0]}", train_model(retrain_request(block, table)).block)
+    except SheetnetError as error:
+        return RefreshOutcome(name, "failed", str(error))

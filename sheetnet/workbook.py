@@ -1,44 +1,38 @@
-"""Workbook files through openpyxl: read ranges, keep model blocks on very hidden
-sheets under defined names, write results to sheets of ours, and save safely.
+"""Workbook files: open them, read ranges and stored models, and save what sheetnet placed.
 
-Safety rules: results go only to sheets sheetnet owns (their first cell says
-so) or to a range the user names that is empty; a model of the same name is
-replaced only on request; a workbook holding parts openpyxl would drop on
-saving (charts, images, pivot tables, ...) is never overwritten: the result
-goes to a new file beside it. Saves are atomic (a temporary file renamed over
-the original) and the previous file is kept as ``BOOK.bak``.
+Reading goes through openpyxl (cached values for reading, formulas to tell a
+formula without a saved result from a blank). Everything a command writes is
+collected as `Placements` in ``Book.log`` (decided by `sheetnet.service`,
+gathered by `sheetnet.workbook_models`) and applied by `save_book` in one
+atomic save that keeps the file's permissions and a backup.
 """
 
 from __future__ import annotations
 
 import os
-import re
 import shutil
 import tempfile
 import zipfile
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import openpyxl
 from openpyxl.utils.cell import get_column_letter, quote_sheetname, range_boundaries
-from openpyxl.workbook.defined_name import DefinedName
 from openpyxl.workbook.workbook import Workbook
 from openpyxl.worksheet.worksheet import Worksheet
 
-from .block import MAGIC, WIDTH
+from .block import MAGIC
 from .errors import InputError, SheetnetError
+from .placements import PlacementLog
+from .sheet_writer import apply_to_workbook
 
-OWNED_MARK = "sheetnet results"  # first cell of every visible sheet sheetnet writes
-MODEL_SHEET_PREFIX = "sheetnet_"
 # package parts openpyxl does not carry through a save (it keeps the VBA project with keep_vba=True)
 UNREAD_PARTS = (
     "xl/charts/", "xl/drawings/", "xl/media/", "xl/pivotTables/", "xl/pivotCache/", "xl/embeddings/",
     "xl/slicers/", "xl/slicerCaches/", "xl/timelines/", "xl/timelineCaches/", "xl/chartsheets/",
     "xl/activeX/", "xl/ctrlProps/", "xl/threadedComments/", "xl/model/", "xl/queryTables/", "xl/connections.xml",
 )
-NAME_PATTERN = re.compile(r"^[A-Za-z_][A-Za-z0-9_.]{0,200}$")
-ADDRESS_LIKE = re.compile(r"^([A-Za-z]{1,3}[0-9]+|[Rr][0-9]*[Cc]?[0-9]*|[Cc][0-9]*)$")
 
 
 class WorkbookError(SheetnetError):
@@ -52,6 +46,7 @@ class Book:
     path: Path
     formulas: Workbook
     values: Workbook
+    log: PlacementLog = field(default_factory=PlacementLog)  # what this command will write, applied by save_book
 
     @property
     def keeps_macros(self) -> bool:
@@ -125,15 +120,6 @@ def read_range(book: Book, reference: str) -> list[list[Any]]:
     return grid
 
 
-def check_model_name(name: str) -> str:
-    if not NAME_PATTERN.match(name) or ADDRESS_LIKE.match(name):
-        raise InputError(
-            f"'{name}' cannot be a model name; use letters, digits, '_' and '.', start with a letter, "
-            "and avoid names that look like cell addresses (such as AB12)"
-        )
-    return name
-
-
 # --- models -------------------------------------------------------------------------------
 
 def model_names(book: Book) -> list[str]:
@@ -153,184 +139,31 @@ def model_names(book: Book) -> list[str]:
     return sorted(found)
 
 
+def defined_name(book: Book, name: str) -> str | None:
+    """The workbook's spelling of a defined name, found ignoring case as spreadsheets do."""
+    folded = name.casefold()
+    return next((n for n in book.formulas.defined_names if n.casefold() == folded), None)
+
+
 def read_model(book: Book, name: str) -> list[list[Any]]:
-    """The block stored under a defined name."""
-    if name not in book.formulas.defined_names:
+    """The block stored under a defined name (compared ignoring case)."""
+    found = defined_name(book, name)
+    if found is None:
         known = model_names(book)
         raise InputError(f"the workbook has no model named '{name}'" + (f"; its models are: {', '.join(known)}" if known else "; train one first"))
-    destinations = list(book.formulas.defined_names[name].destinations)
+    destinations = list(book.formulas.defined_names[found].destinations)
     if len(destinations) != 1:
         raise InputError(f"the defined name '{name}' does not point at one range, so it is not a sheetnet model")
     sheet, cells = destinations[0]
     return read_range(book, f"{quote_sheetname(sheet)}!{cells}")
 
 
-def store_model(book: Book, name: str, block: list[list[Any]], replace: bool = False) -> str:
-    """Write a block onto a very hidden sheet of ours under a workbook-level defined name."""
-    check_model_name(name)
-    if name in book.formulas.defined_names and not replace:
-        raise InputError(f"the workbook already has a name '{name}'; choose another model name, or ask to replace it (--replace)")
-    if name in book.formulas.defined_names and name not in model_names(book):
-        raise InputError(f"the name '{name}' in the workbook belongs to something else, not a sheetnet model; choose another model name")
-    sheet_name = (MODEL_SHEET_PREFIX + name)[:31]
-    for workbook in (book.formulas, book.values):
-        if sheet_name in workbook.sheetnames:
-            del workbook[sheet_name]
-        sheet = workbook.create_sheet(sheet_name)
-        sheet.sheet_state = "veryHidden"
-        for row in block:
-            sheet.append([None if v == "" else v for v in row])
-    reference = f"{quote_sheetname(sheet_name)}!$A$1:${get_column_letter(WIDTH)}${len(block)}"
-    book.formulas.defined_names[name] = DefinedName(name, attr_text=reference)
-    _store_constants(book, name, sheet_name, block)
-    return reference
-
-
-CONSTANTS_COLUMN = WIDTH + 2  # the native formulas' constants start two columns right of the block
-
-
-def _store_constants(book: Book, name: str, sheet_name: str, block: list[list[Any]]) -> None:
-    """Lay out the named ranges native formulas read, beside the block; replaces the model's old ones."""
-    from .block import decode_block
-    from .formulas import formula_constants, name_prefix
-
-    model, _ = decode_block(block)
-    prefix = name_prefix(name)
-    for old in [n for n in book.formulas.defined_names if n.startswith(prefix)]:
-        del book.formulas.defined_names[old]
-    row = 1
-    for constant in formula_constants(model, name):
-        height, width = constant.shape
-        for workbook in (book.formulas, book.values):
-            sheet = workbook[sheet_name]
-            for i, values in enumerate(constant.values):
-                for j, value in enumerate(values):
-                    sheet.cell(row + i, CONSTANTS_COLUMN + j, value)
-        first = f"${get_column_letter(CONSTANTS_COLUMN)}${row}"
-        last = f"${get_column_letter(CONSTANTS_COLUMN + width - 1)}${row + height - 1}"
-        book.formulas.defined_names[constant.name] = DefinedName(constant.name, attr_text=f"{quote_sheetname(sheet_name)}!{first}:{last}")
-        row += height + 1
-
-
-def write_native_formulas(book: Book, name: str, table_reference: str, to: str | None, output: str) -> tuple[str, int]:
-    """One native formula per output cell for each data row of the table; returns where and how many rows."""
-    from openpyxl.worksheet.formula import ArrayFormula
-
-    from .block import decode_block
-    from .cells import is_blank
-    from .formulas import native_formula
-
-    model, info = decode_block(read_model(book, name))
-    if name_prefix_missing(book, name):
-        _store_constants(book, name, list(book.formulas.defined_names[name].destinations)[0][0], read_model(book, name))
-    grid = read_range(book, table_reference)
-    sheet_name, cells = split_reference(table_reference)
-    min_col, min_row = range_boundaries(cells)[:2]
-    header = [str(v).strip() if v is not None else "" for v in grid[0]]
-    missing = [n for n in model.input_names if n not in header]
-    if missing:
-        raise InputError(f"the table has no column named {', '.join(repr(m) for m in missing)}; the model needs {', '.join(model.input_names)}")
-    columns = {n: get_column_letter(min_col + header.index(n)) for n in model.input_names}
-    if output == "probabilities" and model.task != "regression":
-        titles = [f"native P({c})" for c in model.classes]
-    else:
-        titles = [f"native {'class' if output == 'class' else 'predicted'} {info.target}"]
-    if to:
-        sheet, corner = check_empty(book, to, len(grid), len(titles))
-    else:
-        sheet, corner = owned_sheet(book, f"sn formulas {name}"), "A3"
-    start_col, start_row = range_boundaries(corner + ":" + corner)[:2]
-    for j, title in enumerate(titles):
-        sheet.cell(start_row, start_col + j, title)
-    quoted = quote_sheetname(sheet_name)
-    written = 0
-    for i, row in enumerate(grid[1:], start=1):
-        if all(is_blank(v) for v in row):
-            continue
-        refs = {n: f"{quoted}!${col}{min_row + i}" for n, col in columns.items()}
-        for j in range(len(titles)):
-            target = f"{get_column_letter(start_col + j)}{start_row + i}"
-            sheet[target] = ArrayFormula(target, native_formula(model, name, refs, output, j))
-        written += 1
-    return f"{sheet.title}!{corner}", written
-
-
-def changed_constants(book: Book, name: str) -> list[str]:
-    """Names of the model's native-formula constants whose cells differ from what its block implies."""
-    from .block import decode_block
-    from .formulas import formula_constants, name_prefix
-
-    model, _ = decode_block(read_model(book, name))
-    expected = {c.name: c for c in formula_constants(model, name)}
-    stored = {n for n in book.formulas.defined_names if n.startswith(name_prefix(name))}
-    changed = sorted(stored ^ set(expected)) if stored else []
-    for constant_name in sorted(stored & set(expected)):
-        sheet, cells = list(book.formulas.defined_names[constant_name].destinations)[0]
-        values = read_range(book, f"{quote_sheetname(sheet)}!{cells}")
-        if not _same_cells(values, expected[constant_name].values):
-            changed.append(constant_name)
-    return changed
-
-
-def _same_cells(got: list[list[Any]], wanted: tuple[tuple[Any, ...], ...]) -> bool:
-    def same(g: Any, w: Any) -> bool:
-        if isinstance(g, (int, float)) and isinstance(w, float) and not isinstance(g, bool):
-            return abs(g - w) <= 1e-15 * max(abs(w), 1e-300)  # a file keeps numbers to about 15 digits
-        return bool(g == w)
-
-    return len(got) == len(wanted) and all(len(g) == len(w) and all(map(same, g, w)) for g, w in zip(got, wanted))
-
-
-def name_prefix_missing(book: Book, name: str) -> bool:
-    from .formulas import name_prefix
-
-    return not any(n.startswith(name_prefix(name)) for n in book.formulas.defined_names)
-
-
-# --- our visible sheets ---------------------------------------------------------------------
-
-def owned_sheet(book: Book, title: str) -> Worksheet:
-    """A fresh visible sheet of ours: replaced if sheetnet made it, refused if the user did."""
-    title = title[:31]
-    if title in book.formulas.sheetnames:
-        existing = book.formulas[title]
-        if existing["A1"].value != OWNED_MARK:
-            raise InputError(f"the workbook has a sheet '{title}' that sheetnet did not write; rename that sheet or choose another model name")
-        index = book.formulas.sheetnames.index(title)
-        del book.formulas[title]
-        sheet = book.formulas.create_sheet(title, index)
-    else:
-        sheet = book.formulas.create_sheet(title)
-    sheet["A1"] = OWNED_MARK
-    return sheet
-
-
-def write_block(sheet: Worksheet, top_left: str, rows: list[list[Any]]) -> None:
-    column, row = range_boundaries(top_left + ":" + top_left)[:2]
-    for i, values in enumerate(rows):
-        for j, value in enumerate(values):
-            sheet.cell(row + i, column + j, None if value == "" else value)
-
-
-def check_empty(book: Book, reference: str, height: int, width: int) -> tuple[Worksheet, str]:
-    """The sheet and top-left cell of a user-named target range, refused unless it is empty."""
-    sheet_name, cells = split_reference(reference)
-    sheet = _sheet(book.formulas, sheet_name)
-    min_col, min_row = range_boundaries(cells)[:2]
-    for r in range(min_row, min_row + height):
-        for c in range(min_col, min_col + width):
-            if sheet.cell(r, c).value is not None:
-                raise InputError(
-                    f"cell {sheet_name}!{get_column_letter(c)}{r} is not empty; sheetnet writes only into empty cells: "
-                    "clear the range or name another one"
-                )
-    return sheet, f"{get_column_letter(min_col)}{min_row}"
-
-
 # --- saving -------------------------------------------------------------------------------
 
 def save_book(book: Book) -> tuple[Path, str]:
     """Save without losing anything; returns where it went and why, if not over the original."""
+    for part in book.log.parts:  # interim: placements applied through openpyxl; the package writer replaces this
+        apply_to_workbook(book.formulas, part)
     lost = unread_parts(book.path)
     target = book.path
     note = ""

@@ -1,0 +1,113 @@
+"""The file door's writes: models, result sheets and native formulas placed into an open `Book`.
+
+Every rule (sheet names, defined names, where the block and the constants go)
+comes from `sheetnet.service`; this module checks the request against what the
+file holds now and adds the service's placements to ``book.log``. Nothing is
+written until `sheetnet.workbook.save_book`.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from openpyxl.utils.cell import get_column_letter, quote_sheetname, range_boundaries
+
+from . import service
+from .block import decode_block
+from .errors import InputError
+from .formulas import formula_constants
+from .workbook import Book, _sheet, defined_name, model_names, read_model, read_range, split_reference
+
+
+def store_model(book: Book, name: str, block: list[list[Any]], replace: bool = False) -> str:
+    """Place a block on its hidden sheet under a workbook-level defined name; returns the reference."""
+    service.check_model_name(name)
+    existing = defined_name(book, name)
+    if existing is not None and existing.casefold() not in {m.casefold() for m in model_names(book)}:
+        raise InputError(f"the name '{existing}' in the workbook belongs to something else, not a sheetnet model; choose another model name")
+    if existing is not None and not replace:
+        raise InputError(f"the workbook already has a model '{existing}'; choose another model name, or ask to replace it (--replace)")
+    sheet = service.model_sheet_name(name)
+    for other in model_names(book):
+        destinations = list(book.formulas.defined_names[other].destinations)
+        if not service.same_title(other, name) and destinations and service.same_title(destinations[0][0], sheet):
+            raise InputError(f"the model '{other}' already lives on the sheet '{sheet}'; choose a model name that differs in its first characters")
+    placements = service.model_placements(name, block, list(book.formulas.defined_names))
+    book.log.add(placements)
+    return placements.names[0].reference
+
+
+def results_sheet(book: Book, title: str, blocks: list[tuple[int, int, list[list[Any]]]]) -> str:
+    """Place a visible sheet of ours (refused if the user has a sheet of that name); returns its title."""
+    current = next((s for s in book.formulas.worksheets if service.same_title(s.title, title)), None)
+    service.check_owned_sheet(title, None if current is None else current["A1"].value)
+    book.log.add(service.results_placements(title, blocks))
+    return title
+
+
+def check_empty(book: Book, reference: str, height: int, width: int) -> tuple[str, int, int]:
+    """The sheet, top row and left column of a user-named target range, refused unless it is empty."""
+    sheet_name, cells = split_reference(reference)
+    sheet = _sheet(book.formulas, sheet_name)
+    min_col, min_row = range_boundaries(cells)[:2]
+    for r in range(min_row, min_row + height):
+        for c in range(min_col, min_col + width):
+            if sheet.cell(r, c).value is not None:
+                raise InputError(
+                    f"cell {sheet_name}!{get_column_letter(c)}{r} is not empty; sheetnet writes only into empty cells: "
+                    "clear the range or name another one"
+                )
+    return sheet.title, min_row, min_col
+
+
+def write_native_formulas(book: Book, name: str, table_reference: str, to: str | None, output: str) -> tuple[str, int]:
+    """One native formula per output cell for each data row of the table; returns where and how many rows.
+    The model's constants are placed again too, so the formulas always find them."""
+    from .cells import is_blank
+
+    block = read_model(book, name)
+    grid = read_range(book, table_reference)
+    sheet_name, cells = split_reference(table_reference)
+    min_col, min_row = range_boundaries(cells)[:2]
+    data_rows = [i for i, row in enumerate(grid[1:], start=1) if not all(is_blank(v) for v in row)]
+    stored_name = defined_name(book, name) or name
+    width = 1
+    model, _ = decode_block(block)
+    if output == "probabilities" and model.task != "regression":
+        width = len(model.classes)
+    if to:
+        target_sheet, top, left = check_empty(book, to, len(grid), width)
+    else:
+        target_sheet = results_sheet(book, service.results_sheet_name(stored_name, "formulas"), [])
+        top, left = 3, 1
+    if service.names_of_model(stored_name, book.formulas.defined_names) == [stored_name]:  # constants missing: place them
+        book.log.add(service.model_placements(stored_name, block, list(book.formulas.defined_names)))
+    placements, rows = service.native_formula_placements(
+        stored_name, block, grid[0], data_rows, (_sheet(book.formulas, sheet_name).title, min_col, min_row), (target_sheet, top, left), output
+    )
+    book.log.add(placements)
+    return f"{target_sheet}!{get_column_letter(left)}{top}", rows
+
+
+def changed_constants(book: Book, name: str) -> list[str]:
+    """Names of the model's native-formula constants whose cells differ from what its block implies."""
+    stored_name = defined_name(book, name) or name
+    model, _ = decode_block(read_model(book, name))
+    expected = {c.name.casefold(): c for c in formula_constants(model, stored_name)}
+    stored = {n.casefold(): n for n in service.names_of_model(stored_name, book.formulas.defined_names) if not service.same_title(n, stored_name)}
+    changed = sorted(stored[k] for k in set(stored) - set(expected)) + sorted(expected[k].name for k in set(expected) - set(stored)) if stored else []
+    for key in sorted(set(stored) & set(expected)):
+        sheet, cells = list(book.formulas.defined_names[stored[key]].destinations)[0]
+        values = read_range(book, f"{quote_sheetname(sheet)}!{cells}")
+        if not _same_cells(values, expected[key].values):
+            changed.append(stored[key])
+    return changed
+
+
+def _same_cells(got: list[list[Any]], wanted: tuple[tuple[Any, ...], ...]) -> bool:
+    def same(g: Any, w: Any) -> bool:
+        if isinstance(g, (int, float)) and isinstance(w, float) and not isinstance(g, bool):
+            return abs(g - w) <= 1e-15 * max(abs(w), 1e-300)  # a file keeps numbers to about 15 digits
+        return bool(g == w)
+
+    return len(got) == len(wanted) and all(len(g) == len(w) and all(map(same, g, w)) for g, w in zip(got, wanted))
