@@ -21,7 +21,9 @@ import pandas as pd
 
 from . import __version__
 from .block import BlockInfo, _canonical, decode_block, encode_block, table_fingerprint
+from .cell_text import cell_in_words, label_in_words, labels_in_words, number_in_words
 from .cells import (
+    NUMBERS_IN_TEXT,
     Cells,
     SheetTable,
     as_cells,
@@ -32,19 +34,33 @@ from .cells import (
     numeric_frame,
     parse_hidden,
     parse_settings,
+    range_row,
+    read_numbers_in_text,
     read_sheet_table,
     row_label,
 )
-from .errors import BadValueError, InputError, ModelError, SettingError, SheetnetError, UnknownCategoryError
+from .errors import BadValueError, CellError, InputError, ModelError, SettingError, SheetnetError
 from .evaluation import permutation_importance
 from .evaluation import score as score_model
+from .limits import MAX_NUMBER, check_network_size
+from .metrics import ROC_AUC_LEFT_OUT, mape_left_out_reason
 from .model import Model
+from .preparation import NumericInput, fit_target, numbers_of, planned_width, read_table, read_target, task_choice_in_words
+from .settings import resolve_settings
 from .splits import holdout_mask
 from .stopping import ProgressCallback
 from .training import fit
 
 CAUTION = "a decision aid, not a decision: check it for bias and follow local law and licensed practice"
-CELL_OPTIONS = ("seed", "ignore", "inputs", "categories", "blank_rows")  # settings the cell layer reads itself
+CELL_OPTIONS = ("seed", "ignore", "inputs", "categories", "blank_rows", "numbers_in_text")  # settings the cell layer reads itself
+TRAIN_NUMBER_TEXT_FIX = (
+    "convert the column to numbers in the sheet, or add the setting numbers_in_text=point (reads 1,234.5 and 12% as numbers) "
+    "or numbers_in_text=comma (reads 1.234,5 as numbers)"
+)
+PREDICT_NUMBER_TEXT_FIX = (
+    "convert the column to numbers in the sheet (the model was trained on numbers), "
+    "or retrain the model with the setting numbers_in_text=point or numbers_in_text=comma"
+)
 TRAIN_CACHE_SIZE = 32
 _train_cache: OrderedDict[str, Cells] = OrderedDict()
 _decoded_cache: OrderedDict[str, tuple[Model, BlockInfo]] = OrderedDict()
@@ -57,8 +73,6 @@ def cell_function(fn: Callable[..., Cells]) -> Callable[..., Cells]:
     def guarded(*args: Any, **kwargs: Any) -> Cells:
         try:
             return fn(*args, **kwargs)
-        except (BadValueError, UnknownCategoryError) as error:
-            return message_cell(_sheet_rows(str(error)))
         except SheetnetError as error:
             return message_cell(str(error))
         except Exception as error:  # a bug: still no crash in the cell, and a message to report
@@ -72,28 +86,23 @@ def raising(fn: Callable[..., Cells]) -> Callable[..., Cells]:
     return fn.__wrapped__  # type: ignore[attr-defined]
 
 
-def _sheet_rows(text: str) -> str:
-    # the engine counts data rows from 1; the user's range has the header as row 1
-    head, sep, rest = text.partition(", row ")
-    if sep and rest.split(":")[0].isdigit():
-        number = int(rest.split(":")[0])
-        return f"{head}, {row_label(number - 1)}{rest[len(str(number)):]}"
-    return text
-
-
 # --- shared steps -------------------------------------------------------------------------
 
 def _in_sheet_rows(data_rows: np.ndarray, target: str | None, call: Callable[[], Any]) -> Any:
-    """Run ``call``; a bad cell it finds is reported at its row in the user's range."""
+    """Run ``call``; a bad cell it finds (counted among ``data_rows``) is reported at its row in the user's range."""
     try:
         return call()
-    except (BadValueError, UnknownCategoryError) as error:
+    except CellError as error:
+        if error.range_row is not None:
+            raise
         column = target if error.column == "target" and target else error.column
-        raise error.moved(int(data_rows[error.row - 1]) + 1, column) from None
+        raise error.seen_at(range_row(int(data_rows[error.row - 1])), column) from None
 
 
 def _rows_used(table: SheetTable, columns: list[str], skip_blanks: bool) -> np.ndarray:
     """Mask over the table's data rows: rows with every needed column filled (or all, without skipping)."""
+    for name in columns:
+        table.column(name)  # a missing column is named before any row is looked at
     if not skip_blanks:
         return np.ones(len(table.frame), dtype=bool)
     filled = np.ones(len(table.frame), dtype=bool)
@@ -128,7 +137,9 @@ def _read_split(split: Any, table: SheetTable) -> np.ndarray:
         value = values[row]
         text = "" if is_blank(value) else str(value).strip().lower()
         if text not in ("train", "holdout"):
-            raise InputError(f"the split has {value!r} in {row_label(int(row))}; each data row needs 'train' or 'holdout' (use SHEETNET.SPLIT)")
+            raise InputError(
+                f"the split has {cell_in_words(value)} in {row_label(int(row))}; each data row needs 'train' or 'holdout' (use SHEETNET.SPLIT)"
+            )
         held[k] = text == "holdout"
     return held
 
@@ -137,9 +148,22 @@ def _options(settings: dict[str, Any]) -> tuple[dict[str, Any], dict[str, Any]]:
     cell = {k: settings.pop(k) for k in list(settings) if k in CELL_OPTIONS}
     blank_rows = str(cell.get("blank_rows", "error")).strip().lower()
     if blank_rows not in ("error", "skip"):
-        raise SettingError(f"setting 'blank_rows' got {cell['blank_rows']!r}; choose error (a blank cell is a mistake) or skip (leave such rows out)")
+        raise SettingError(
+            f"setting 'blank_rows' got {cell_in_words(cell['blank_rows'])}; choose error (a blank cell is a mistake) or skip (leave such rows out)"
+        )
     cell["blank_rows"] = blank_rows
+    cell["numbers_in_text"] = _numbers_in_text_mode(cell.get("numbers_in_text"))
     return cell, settings
+
+
+def _numbers_in_text_mode(value: Any) -> str:
+    mode = "error" if value is None or is_blank(value) else str(value).strip().lower()
+    if mode not in NUMBERS_IN_TEXT:
+        raise SettingError(
+            f"setting 'numbers_in_text' got {cell_in_words(value)}; choose error (numbers typed as text are refused), "
+            "point (read 1,234.5 and 12% as numbers) or comma (read 1.234,5 as numbers)"
+        )
+    return mode
 
 
 def _name_list(value: Any) -> list[str]:
@@ -153,7 +177,9 @@ def _model_inputs(sheet: SheetTable, model: Model, rows: np.ndarray) -> Any:
     (the engine's fast path, no pandas on the way), else a DataFrame."""
     columns = [sheet.column(name).to_numpy() for name in model.input_names]
     if model.preparation.all_numeric and all(c.dtype.kind == "f" for c in columns):
-        return np.column_stack([c[rows] for c in columns]) if columns else np.empty((int(rows.sum()), 0))
+        matrix = np.column_stack([c[rows] for c in columns]) if columns else np.empty((int(rows.sum()), 0))
+        if (np.abs(matrix) <= MAX_NUMBER).all():  # blanks (NaN) and huge numbers take the path that names the cell
+            return matrix
     return _inputs_frame(sheet, model.input_names, rows)
 
 
@@ -173,7 +199,16 @@ def _decode(model: Any) -> tuple[Model, BlockInfo, dict[str, Any]]:
         while len(_decoded_cache) > TRAIN_CACHE_SIZE:
             _decoded_cache.popitem(last=False)
     decoded, info = found
-    return decoded, info, {"skip_blanks": info.blank_rows == "skip"}
+    given = getattr(info, "given", None) or {}  # the arguments TRAIN was given, where the block records them
+    return decoded, info, {"skip_blanks": info.blank_rows == "skip", "numbers_in_text": _numbers_in_text_mode(given.get("numbers_in_text"))}
+
+
+def _numbers_for_model(sheet: SheetTable, decoded: Model, info: BlockInfo, options: dict[str, Any], with_target: bool) -> SheetTable:
+    """The table with numbers typed as text in the model's numeric columns read the way TRAIN read them (or refused)."""
+    columns = [spec.name for spec in decoded.preparation.inputs if isinstance(spec, NumericInput)]
+    if with_target and (decoded.task == "regression" or all(isinstance(c, (int, float)) for c in decoded.classes)):
+        columns.append(info.target)
+    return read_numbers_in_text(sheet, [c for c in columns if c in sheet.frame.columns], options["numbers_in_text"], PREDICT_NUMBER_TEXT_FIX)
 
 
 def _fingerprint(table: SheetTable, columns: list[str], rows: np.ndarray) -> str:
@@ -187,7 +222,7 @@ def split(table: Any, holdout_share: Any = None, seed: Any = None, mode: Any = N
     """A column as tall as the table: a header, then 'train' or 'holdout' for each data row."""
     sheet = read_sheet_table(table)
     share = 0.2 if is_blank(holdout_share) else _number_setting(holdout_share, "holdout share")
-    chosen_seed = 0 if is_blank(seed) else int(_number_setting(seed, "seed"))
+    chosen_seed = 0 if is_blank(seed) else _whole_number(seed, "seed")
     text = "random" if is_blank(mode) else str(mode).strip()
     labels = None
     lowered = text.lower()
@@ -198,7 +233,7 @@ def split(table: Any, holdout_share: Any = None, seed: Any = None, mode: Any = N
         labels = [str(v) for v in sheet.column(column)]
         lowered = "stratified"
     elif lowered not in ("random", "ordered"):
-        raise SettingError(f"split mode {text!r} is not known; use random, ordered, or 'stratified COLUMN'")
+        raise SettingError(f"split mode {cell_in_words(text)} is not known; use random, ordered, or 'stratified COLUMN'")
     held = holdout_mask(len(sheet.frame), share, chosen_seed, lowered, labels)
     answer: Cells = [["split"]]
     answer += [[""] for _ in range(sheet.n_rows)]
@@ -208,21 +243,35 @@ def split(table: Any, holdout_share: Any = None, seed: Any = None, mode: Any = N
 
 
 def _number_setting(value: Any, what: str) -> float:
+    if isinstance(value, bool):
+        raise SettingError(f"the {what} is {cell_in_words(value)}; give a number")
     try:
-        return float(value)
+        number = float(value)
     except (TypeError, ValueError):
-        raise SettingError(f"the {what} is {value!r}; give a number") from None
+        raise SettingError(f"the {what} is {cell_in_words(value)}; give a number") from None
+    if not np.isfinite(number):
+        raise SettingError(f"the {what} is {cell_in_words(value)}; give a finite number")
+    return number
+
+
+def _whole_number(value: Any, what: str, low: int = 0) -> int:
+    number = _number_setting(value, what)
+    if number != int(number) or number < low or number >= 2**63:
+        raise SettingError(f"the {what} is {cell_in_words(value)}; give a whole number of {low} or more")
+    return int(number)
 
 
 def _cache_key(*parts: Any) -> str:
-    def canonical(value: Any) -> Any:
+    def canonical(value: Any, depth: int) -> Any:
         if isinstance(value, np.ndarray):
             value = value.tolist()
         if isinstance(value, (list, tuple)):
-            return [canonical(v) for v in value]
+            if depth > 3:  # arguments, rows, cells: a list any deeper is a list inside a cell, which as_grid names
+                return repr(type(value))
+            return [canonical(v, depth + 1) for v in value]
         return _canonical(value)
 
-    return hashlib.sha256(json.dumps(canonical(list(parts))).encode("utf-8")).hexdigest()
+    return hashlib.sha256(json.dumps(canonical(list(parts), 0)).encode("utf-8")).hexdigest()
 
 
 @cell_function
@@ -266,21 +315,25 @@ def train_block(
     used = _rows_used(sheet, [*inputs, target_name], skip)
     held = _read_split(split, sheet) if split is not None and not is_blank(split) else np.zeros(len(sheet.frame), dtype=bool)
     training = used & ~held
-    frame = _inputs_frame(sheet, inputs, training)
-    _check_no_identifiers(frame)
-    y = numeric_frame(sheet.frame.loc[training, [target_name]])[target_name].to_numpy()
-    seed = int(_number_setting(options.get("seed", 0), "seed"))
+    seed = _whole_number(options.get("seed", 0), "seed")
     layers = parse_hidden(hidden)
     categories = _name_list(options.get("categories"))
-    model = _in_sheet_rows(
-        sheet.data_rows[training], target_name, lambda: fit(frame, y, layers, seed, categories=categories, progress=progress, **engine_settings)
-    )
+    readable = _numbers_for_training(sheet, inputs, target_name, categories, options["numbers_in_text"], engine_settings)
+    frame = _inputs_frame(readable, inputs, training)
+    _check_no_identifiers(frame)
+    y = numeric_frame(readable.frame.loc[training, [target_name]])[target_name].to_numpy()
+
+    def checked_fit() -> Model:
+        _check_sizes(frame, y, layers, categories, engine_settings)
+        return fit(frame, y, layers, seed, categories=categories, progress=progress, **engine_settings)
+
+    model = _in_sheet_rows(sheet.data_rows[training], target_name, checked_fit)
 
     metrics: dict[str, float] = {}
     holdout = used & held
     if holdout.any():
-        actual = numeric_frame(sheet.frame.loc[holdout, [target_name]])[target_name].to_numpy()
-        holdout_frame = _inputs_frame(sheet, inputs, holdout)
+        actual = numeric_frame(readable.frame.loc[holdout, [target_name]])[target_name].to_numpy()
+        holdout_frame = _inputs_frame(readable, inputs, holdout)
         metrics = _scalar_metrics(_in_sheet_rows(sheet.data_rows[holdout], target_name, lambda: score_model(model, holdout_frame, actual)))
     info = BlockInfo(
         target=target_name,
@@ -292,8 +345,36 @@ def train_block(
         holdout_metrics=metrics,
         blank_rows=options["blank_rows"],
         source=source,
+        given=_given_arguments(hidden, settings),
     )
     return encode_block(model, info)
+
+
+def _given_arguments(hidden: Any, settings: Any) -> dict[str, Any]:
+    """TRAIN's hidden layers and settings exactly as the user gave them, so a refresh can repeat the request."""
+    def plain(value: Any) -> Any:
+        if isinstance(value, np.generic):
+            value = value.item()
+        return value if value is None or isinstance(value, (str, int, float, bool)) else str(value)
+
+    return {"hidden": plain(hidden), **{name: plain(value) for name, value in parse_settings(settings).items()}}
+
+
+def _numbers_for_training(
+    sheet: SheetTable, inputs: list[str], target: str, categories: list[str], mode: str, engine_settings: dict[str, Any]
+) -> SheetTable:
+    """The table with numbers typed as text read or refused (inputs listed as categories and class targets keep their text)."""
+    fix = f"{TRAIN_NUMBER_TEXT_FIX}; if the column holds codes rather than amounts, add the setting categories={{column}}"
+    readable = read_numbers_in_text(sheet, [c for c in inputs if c not in categories], mode, fix)
+    if str(engine_settings.get("task", "auto")).strip().lower() in ("binary", "multiclass"):
+        return readable
+    return read_numbers_in_text(readable, [target], mode, f"{TRAIN_NUMBER_TEXT_FIX}; if the column holds classes, add the setting task=multiclass")
+
+
+def _check_sizes(frame: pd.DataFrame, y: np.ndarray, layers: tuple[int, ...], categories: list[str], engine_settings: dict[str, Any]) -> None:
+    """Refuse a network or table beyond `sheetnet.limits` before `fit` allocates anything."""
+    target = fit_target(read_target(y), resolve_settings(engine_settings)["task"])
+    check_network_size(len(frame), planned_width(read_table(frame), categories), layers, target.outputs)
 
 
 PREDICT_OUTPUTS = ("value", "probabilities", "interval", "flag")
@@ -315,6 +396,7 @@ def predict(model: Any, table: Any, output: Any = None) -> Cells:
     decoded, info, options = _decode(model)
     wanted = _parse_output(output)
     sheet = read_sheet_table(table)
+    sheet = _numbers_for_model(sheet, decoded, info, options, with_target=False)
     rows = _rows_used(sheet, list(decoded.input_names), options["skip_blanks"])
     frame = _model_inputs(sheet, decoded, rows)
     header, columns = _in_sheet_rows(sheet.data_rows[rows], None, lambda: _predictions(decoded, info, frame, wanted))
@@ -335,9 +417,16 @@ def _predictions(decoded: Model, info: BlockInfo, frame: Any, wanted: list[str])
         raise SettingError("this model predicts numbers, so it has no class probabilities; use output value or interval")
     wants_value = "value" in wanted or ("probabilities" not in wanted and "interval" not in wanted)
     probabilities = decoded.predict_proba(frame) if decoded.task != "regression" and (wants_value or "probabilities" in wanted) else None
+    if probabilities is not None:
+        _check_finite(decoded, frame, probabilities)
     if wants_value:
         header.append(f"predicted {info.target}")
-        columns.append(as_cells(decoded.predict(frame) if probabilities is None else decoded.classes_of(probabilities)))
+        if probabilities is None:
+            values = decoded.predict(frame)
+            _check_finite(decoded, frame, values)
+            columns.append(as_cells(values))
+        else:
+            columns.append(as_cells(decoded.classes_of(probabilities)))
     if probabilities is not None and "probabilities" in wanted:
         for j, label in enumerate(decoded.classes):
             header.append(f"P({label})")
@@ -348,12 +437,34 @@ def _predictions(decoded: Model, info: BlockInfo, frame: Any, wanted: list[str])
         if decoded.task != "regression":
             raise SettingError("an interval is for models that predict numbers; for classes use output probabilities")
         spread = decoded.predict_spread(frame)
+        _check_finite(decoded, frame, np.column_stack([spread["low"], spread["high"]]))
         header += [f"{info.target} lowest network", f"{info.target} highest network"]
         columns += [as_cells(spread["low"]), as_cells(spread["high"])]
     if "flag" in wanted:
         header.append("outside training range")
         columns.append([bool(v) for v in decoded.out_of_range(frame)])
     return header, columns
+
+
+def _check_finite(decoded: Model, frame: Any, answers: np.ndarray) -> None:
+    """Name the input behind a row the network cannot answer with a finite number (a blank answer would hide it)."""
+    finite = np.isfinite(np.asarray(answers, dtype=np.float64)).reshape(len(answers), -1).all(axis=1)
+    if finite.all():
+        return
+    k = int(np.argmin(finite))
+    farthest: tuple[float, NumericInput, Any] | None = None
+    for spec, values in zip(decoded.preparation.inputs, decoded.preparation.columns_in_order(frame)):
+        if isinstance(spec, NumericInput):
+            distance = abs((float(values[k]) - spec.mean) / spec.scale)
+            if farthest is None or distance > farthest[0]:
+                farthest = (distance, spec, values[k])
+    if farthest is None:
+        raise ModelError("the model gives no finite answer for one of the rows; retrain it, and report this with the workbook if it persists")
+    _, spec, value = farthest
+    raise BadValueError(
+        spec.name, k + 1, value, "the model gives no finite answer for this row, as this value lies far outside the training rows",
+        f"check the cell (the training rows held {number_in_words(spec.low)} to {number_in_words(spec.high)}), or retrain with rows that cover such values",
+    )
 
 
 def _scored_rows(decoded: Model, info: BlockInfo, sheet: SheetTable, split: Any, skip: bool) -> np.ndarray:
@@ -370,23 +481,44 @@ def _scored_rows(decoded: Model, info: BlockInfo, sheet: SheetTable, split: Any,
 def score(model: Any, table: Any, split: Any = None) -> Cells:
     """A two-column table of metrics, on the split's holdout rows when a split is given."""
     decoded, info, options = _decode(model)
-    sheet = read_sheet_table(table)
+    raw = read_sheet_table(table)
+    sheet = _numbers_for_model(raw, decoded, info, options, with_target=True)
+    split_given = split is not None and not is_blank(split)
     rows = _scored_rows(decoded, info, sheet, split, options["skip_blanks"])
     actual = numeric_frame(sheet.frame.loc[rows, [info.target]])[info.target].to_numpy()
     frame = _inputs_frame(sheet, decoded.input_names, rows)
     metrics = _in_sheet_rows(sheet.data_rows[rows], info.target, lambda: score_model(decoded, frame, actual))
-    answer: Cells = [["metric", "value"], ["rows", int(rows.sum())]]
-    answer += [[name, value] for name, value in metrics.items() if isinstance(value, float) or value is None and name == "mape"]
+    answer: Cells = [["metric", "value"], ["rows", int(rows.sum())], ["rows scored", _rows_scored(decoded, info, raw, options, split_given)]]
+    answer += [[name, value] for name, value in metrics.items() if isinstance(value, float)]
+    if "mape" in metrics and metrics["mape"] is None:
+        answer.append(["mape left out", mape_left_out_reason(numbers_of("target", actual)) or ""])
+    if "roc_auc" in metrics and metrics["roc_auc"] is None:
+        answer.append(["roc_auc left out", ROC_AUC_LEFT_OUT])
     for label, per in metrics.get("per_class", {}).items():
-        answer += [[f"{kind} {label}", per[kind]] for kind in ("precision", "recall", "f1")]
-    return [[name, "" if value is None else value] for name, value in answer]
+        answer += [[f"{kind} {label_in_words(label)}", per[kind]] for kind in ("precision", "recall", "f1")]
+    return answer
+
+
+ROWS_SCORED_HOLDOUT = "holdout rows"
+ROWS_SCORED_TRAINING = "training rows: optimistic, score a holdout instead"
+ROWS_SCORED_UNSPLIT = "every row given, with no split: optimistic if the model was trained on them; score a holdout instead"
+
+
+def _rows_scored(decoded: Model, info: BlockInfo, raw: SheetTable, options: dict[str, Any], split_given: bool) -> str:
+    """Which rows SCORE measured, in words: a score on training rows flatters the model, so it says so."""
+    columns = [*decoded.input_names, info.target]
+    same_table = _fingerprint(raw, columns, _rows_used(raw, columns, options["skip_blanks"])) == info.fingerprint
+    if split_given:
+        # a model trained on every row of this table has no holdout rows, whatever the split says now
+        return ROWS_SCORED_TRAINING if same_table and info.holdout_rows == 0 else ROWS_SCORED_HOLDOUT
+    return ROWS_SCORED_TRAINING if same_table else ROWS_SCORED_UNSPLIT
 
 
 @cell_function
 def explain(model: Any, table: Any) -> Cells:
     """Permutation importance of each input on the table's rows, largest first."""
     decoded, info, options = _decode(model)
-    sheet = read_sheet_table(table)
+    sheet = _numbers_for_model(read_sheet_table(table), decoded, info, options, with_target=True)
     rows = _scored_rows(decoded, info, sheet, None, options["skip_blanks"])
     actual = numeric_frame(sheet.frame.loc[rows, [info.target]])[info.target].to_numpy()
     frame = _inputs_frame(sheet, decoded.input_names, rows)
@@ -403,6 +535,7 @@ def about(model: Any, table: Any = None) -> Cells:
     rows: list[list[Any]] = [
         ["target", info.target],
         ["task", decoded.task],
+        ["task chosen", task_choice_in_words(decoded.task, str(decoded.settings.get("task", "auto")), decoded.classes)],
         ["inputs", ", ".join(decoded.input_names)],
         ["layers", "-".join(str(s) for s in decoded.sizes)],
         ["activation", decoded.activation],
@@ -416,14 +549,12 @@ def about(model: Any, table: Any = None) -> Cells:
         ["holdout rows", info.holdout_rows],
     ]
     if decoded.classes:
-        rows.append(["classes", ", ".join(map(str, decoded.classes))])
+        rows.append(["classes", labels_in_words(decoded.classes, most=len(decoded.classes))])
     rows += [[f"holdout {name}", value] for name, value in info.holdout_metrics.items()]
     if table is not None and not is_blank(table):
         sheet = read_sheet_table(table)
         columns = [*decoded.input_names, info.target]
         used = _rows_used(sheet, columns, options["skip_blanks"])
-        for name in columns:
-            sheet.column(name)
         same = _fingerprint(sheet, columns, used) == info.fingerprint
         rows.append(["data since training", "unchanged" if same else "changed: retrain to use the new rows"])
     rows.append(["caution", CAUTION])
@@ -438,28 +569,44 @@ def lags(series: Any, lags: Any = None) -> Cells:
     which have no history yet, are blank: train with the setting blank_rows=skip.
     """
     name, values = column_of(series, "series", len(as_grid(series, "series")) - 1)
-    if is_blank(lags):
-        steps = [1]
-    elif isinstance(lags, (int, float)) and not isinstance(lags, bool):
-        if lags != int(lags) or lags < 1:
-            raise SettingError(f"lags is {lags!r}; give a whole number of 1 or more, or a list like 1,2,52")
-        steps = list(range(1, int(lags) + 1))
-    else:
-        try:
-            steps = [int(p) for p in str(lags).replace(";", ",").split(",") if p.strip()]
-        except ValueError:
-            raise SettingError(f"lags {lags!r} are not whole numbers; write a count like 4 or a list like 1,2,52") from None
-        if not steps or min(steps) < 1:
-            raise SettingError("every lag must be 1 or more")
+    steps = _lag_steps(lags, len(values))
     numbers: list[float | None] = []
     for i, value in enumerate(values):
         if is_blank(value):
             numbers.append(None)
         elif isinstance(value, bool) or not isinstance(value, (int, float)):
-            raise BadValueError(name, i + 1, value, "text in a numeric series", "type a number or clear the cell")
+            raise BadValueError(name, i + 1, value, "text in a numeric series", "type a number or clear the cell", range_row(i))
         else:
             numbers.append(float(value))
     answer: Cells = [[f"{name} lag {k}" for k in steps]]
     for i in range(len(numbers)):
         answer.append([numbers[i - k] if i - k >= 0 and numbers[i - k] is not None else "" for k in steps])
     return answer
+
+
+def _lag_steps(lags: Any, length: int) -> list[int]:
+    """The lags asked for, each shorter than the series (a longer one would make a column of blanks)."""
+    fix = "give a count like 4 (lags 1 to 4) or a list like 1,2,12"
+    if is_blank(lags):
+        steps = [1]
+    elif isinstance(lags, (int, float, np.number)) and not isinstance(lags, bool):
+        count = _whole_number(lags, "number of lags", low=1)
+        _refuse_long_lag(count, length)  # before the list of lags is made: a count may be huge
+        steps = list(range(1, count + 1))
+    else:
+        try:
+            steps = [int(p) for p in str(lags).replace(";", ",").split(",") if p.strip()]
+        except ValueError:
+            raise SettingError(f"the lags {cell_in_words(lags)} are not whole numbers; {fix}") from None
+        if not steps or min(steps) < 1:
+            raise SettingError(f"every lag must be 1 or more; {fix}")
+    _refuse_long_lag(max(steps), length)
+    return steps
+
+
+def _refuse_long_lag(longest: int, length: int) -> None:
+    if longest >= length:
+        raise SettingError(
+            f"a lag of {longest:,} is as long as the series or longer (it has {length} values below its header), so its column would be blank; "
+            f"use lags up to {length - 1}, or select a longer series"
+        )
