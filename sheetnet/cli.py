@@ -108,12 +108,11 @@ def _draw(result: Any, stem: Path) -> list[Path]:
     return drawn
 
 
-def _settings_text(pairs: Sequence[str], seed: int | None) -> str:
+def _settings_text(pairs: Sequence[str]) -> str:
     for pair in pairs:
         if "=" not in pair:
-            raise SettingError(f"--set {pair!r} has no '='; write it like --set epochs=500")
-    extra = [f"seed={seed}"] if seed is not None else []
-    return "; ".join([*pairs, *extra])
+            raise SettingError(f"--set '{pair}' has no '='; write it like --set epochs=500")
+    return "; ".join(pairs)
 
 
 def _print_rows(rows: list[list[Any]], out: TextIO) -> None:
@@ -132,45 +131,28 @@ def _saved(book: Any, out: TextIO) -> None:
 
 
 def run_train(args: argparse.Namespace, out: TextIO) -> int:
-    from . import functions
-    from .cells import read_sheet_table
-    from .workbook import check_model_name, open_book, owned_sheet, read_range, store_model, write_block
+    from . import functions, service
+    from .workbook import open_book, read_range
+    from .workbook_models import results_sheet, store_model
 
     book = open_book(args.book)
-    check_model_name(args.name)
-    if args.name in book.formulas.defined_names and not args.replace:
-        raise InputError(f"the workbook already has a name '{args.name}'; choose another model name, or ask to replace it (--replace)")
+    service.check_model_name(args.name)
     table = read_range(book, args.table)
-    sheet_table = read_sheet_table(table)
-    sheet_table.column(args.target)
-    split = None
-    if args.holdout > 0:
-        mode = args.mode
-        if mode == "auto":
-            texts = [v for v in sheet_table.frame[args.target] if isinstance(v, str)]
-            mode = f"stratified {args.target}" if texts else "random"
-        elif mode == "stratified":
-            mode = f"stratified {args.target}"
-        split = functions.raising(functions.split)(table, args.holdout, args.seed, mode)
+    request = service.TrainRequest(table, args.target, args.hidden, _settings_text(args.set), args.holdout, args.mode, args.seed, args.table)
     bar = ProgressLine(f"training {args.name}")
-    block = functions.train_block(table, args.target, args.hidden, _settings_text(args.set, args.seed), split, bar)
+    trained = service.train_model(request, bar)
     bar.done()
-    store_model(book, args.name, block, args.replace)
-
-    results = owned_sheet(book, f"sn {args.name}")
-    results["A2"] = f"model {args.name}: {args.target} predicted from {args.table}. {CAUTION}"
-    answer = functions.raising(functions.predict)(block, table, "value")
-    split_column = split if split is not None else [["split"]] + [["train"] for _ in answer[1:]]
-    write_block(results, "A4", [["table row", split_column[0][0], f"actual {args.target}", *answer[0]]])
-    target_index = [str(c) for c in table[0]].index(args.target)
-    rows = [[i + 2, split_column[i + 1][0], table[i + 1][target_index], *answer[i + 1]] for i in range(len(answer) - 1)]
-    write_block(results, "A5", rows)
-    about = functions.raising(functions.about)(block)
-    write_block(results, "G4", about)
+    store_model(book, args.name, trained.block, args.replace)
+    answer = functions.raising(functions.predict)(trained.block, table, "value")
+    about = functions.raising(functions.about)(trained.block)
+    results_sheet(book, service.results_sheet_name(args.name), service.training_results(args.name, args.table, table, trained, answer, about))
     _saved(book, out)
     out.write(f"model {args.name} stored under the defined name {args.name}\n")
     summary = dict((r[0], r[1]) for r in about[1:])
-    out.write(f"  network {summary['layers']}, {summary['algorithm']}, stopped by '{summary['stopped by']}' after {summary['epochs']} epochs\n")
+    out.write(f"  task {summary['task']}; network {summary['layers']}, {summary['algorithm']}, ")
+    out.write(f"stopped by '{summary['stopped by']}' after {summary['epochs']} epochs\n")
+    if "task chosen" in summary:
+        out.write(f"  {summary['task chosen']}\n")
     holdout = [r for r in about[1:] if str(r[0]).startswith("holdout ")]
     if holdout:
         out.write("  holdout metrics:\n")
@@ -180,27 +162,27 @@ def run_train(args: argparse.Namespace, out: TextIO) -> int:
 
 
 def run_predict(args: argparse.Namespace, out: TextIO) -> int:
-    from . import functions
-    from .cells import MARKER
-    from .workbook import check_empty, open_book, owned_sheet, read_model, read_range, write_block
+    from . import functions, service
+    from .workbook import defined_name, open_book, read_model, read_range
+    from .workbook_models import check_empty, results_sheet
 
     book = open_book(args.book)
     block = read_model(book, args.model)
     table = read_range(book, args.table)
     answer = functions.raising(functions.predict)(block, table, args.output)
-    assert not str(answer[0][0]).startswith(MARKER)
     if args.to:
-        sheet, corner = check_empty(book, args.to, len(answer), len(answer[0]))
+        sheet, top, left = check_empty(book, args.to, len(answer), len(answer[0]))
+        book.log.add(service.Placements(cells=(service.cell_block(sheet, top, left, answer),)))
     else:
-        sheet, corner = owned_sheet(book, f"sn predict {args.model}"), "A3"
-    write_block(sheet, corner, answer)
+        sheet, top, left = results_sheet(book, service.results_sheet_name(defined_name(book, args.model) or args.model, "predict"), [(3, 1, answer)]), 3, 1
     _saved(book, out)
-    out.write(f"{len(answer) - 1} rows predicted with model {args.model}, written to {sheet.title}!{corner}\n")
+    out.write(f"{len(answer) - 1} rows predicted with model {args.model}, written to {sheet}!{service.column_letters(left)}{top}\n")
     return 0
 
 
 def run_formulas(args: argparse.Namespace, out: TextIO) -> int:
-    from .workbook import open_book, write_native_formulas
+    from .workbook import open_book
+    from .workbook_models import write_native_formulas
 
     book = open_book(args.book)
     where, rows = write_native_formulas(book, args.model, args.table, args.to, args.output)
@@ -267,7 +249,13 @@ def run_serve(args: argparse.Namespace, out: TextIO) -> int:
     out.write(f"add-in manifest: {base}/addin/manifest.xml\n")
     out.flush()
     app = create_app(token, origin=base)
-    uvicorn.run(app, host="127.0.0.1", port=args.port, log_level="warning", **tls)  # type: ignore[arg-type]
+    from .server_file import remove_server_file, write_server_file
+
+    server_file = write_server_file(args.port, token, scheme)  # how the Calc extension finds this server
+    try:
+        uvicorn.run(app, host="127.0.0.1", port=args.port, log_level="warning", **tls)  # type: ignore[arg-type]
+    finally:
+        remove_server_file(server_file)
     return 0
 
 
@@ -295,19 +283,25 @@ def run_models(args: argparse.Namespace, out: TextIO) -> int:
 
 def run_check(args: argparse.Namespace, out: TextIO) -> int:
     from .block import BlockError, decode_block
-    from .errors import SheetnetError
-    from .workbook import MODEL_SHEET_PREFIX, changed_constants, model_names, open_book, read_model
+    from .service import MODEL_SHEET_PREFIX, constant_owner
+    from .workbook import model_names, open_book, read_model
+    from .workbook_models import changed_constants
 
     book = open_book(args.book)
     names = set(model_names(book))
+    sheets: dict[str, list[str]] = {}
     for name, defined in book.formulas.defined_names.items():
         destinations = list(defined.destinations)
-        if len(destinations) == 1 and destinations[0][0].startswith(MODEL_SHEET_PREFIX) and not name.startswith("snf_"):
+        if len(destinations) == 1 and destinations[0][0].lower().startswith(MODEL_SHEET_PREFIX) and constant_owner(name) is None:
             names.add(name)
+            sheets.setdefault(destinations[0][0].casefold(), []).append(name)
     failed = 0
     for name in sorted(names):
         try:
             decode_block(read_model(book, name))
+            sharing = [other for group in sheets.values() if name in group for other in group if other != name]
+            if sharing:
+                raise BlockError(f"this model shares its hidden sheet with {', '.join(sharing)}, so one overwrote the other; train it again under its name")
             changed = changed_constants(book, name)
             if changed:
                 raise BlockError(f"the native-formula constants {', '.join(changed)} differ from the model block; run sheetnet formulas again or retrain")
@@ -317,6 +311,42 @@ def run_check(args: argparse.Namespace, out: TextIO) -> int:
             out.write(f"FAILED  {name}: {error}\n")
     out.write(f"{len(names) - failed} of {len(names)} models verified\n")
     return 1 if failed else 0
+
+
+def run_refresh(args: argparse.Namespace, out: TextIO) -> int:
+    """Retrain the stored models whose source range changed since training; report every model."""
+    from . import functions, service
+    from .block import decode_block
+    from .workbook import defined_name, model_names, open_book, read_model, read_range
+    from .workbook_models import results_sheet, store_model
+
+    book = open_book(args.book)
+    names = model_names(book)
+    if args.model:
+        found = defined_name(book, args.model)
+        if found is None or found not in names:
+            raise InputError(f"the workbook has no model named '{args.model}'" + (f"; its models are: {', '.join(names)}" if names else ""))
+        names = [found]
+    outcomes = [service.refresh_model(name, read_model(book, name), lambda address: read_range(book, address), args.dry_run) for name in names]
+    for outcome in outcomes:
+        if outcome.trained is not None:
+            block = outcome.trained.block
+            store_model(book, outcome.name, block, replace=True)
+            address = decode_block(block)[1].source[0]  # type: ignore[index]
+            table = read_range(book, address)
+            answer = functions.raising(functions.predict)(block, table, "value")
+            about = functions.raising(functions.about)(block)
+            results = service.training_results(outcome.name, address, table, outcome.trained, answer, about)
+            results_sheet(book, service.results_sheet_name(outcome.name), results)
+    labels = {"retrained": "retrained", "unchanged": "unchanged", "stale": "stale    ", "no-source": "left     ", "failed": "FAILED   "}
+    for outcome in outcomes:
+        detail = f": {outcome.message}" if outcome.message else ""
+        out.write(f"{labels[outcome.state]} {outcome.name}{detail}\n")
+    if any(o.trained is not None for o in outcomes):
+        _saved(book, out)
+    elif not outcomes:
+        out.write(f"{args.book}: no sheetnet models\n")
+    return 1 if any(o.state == "failed" for o in outcomes) else 0
 
 
 def run_functions(out: TextIO) -> int:
@@ -331,6 +361,8 @@ def run_functions(out: TextIO) -> int:
 
 
 def build_parser() -> argparse.ArgumentParser:
+    from .service import DEFAULT_HIDDEN, DEFAULT_HOLDOUT, HOLDOUT_MODES
+
     parser = argparse.ArgumentParser(prog="sheetnet", description="Small neural networks for spreadsheet data.")
     parser.add_argument("--version", action="version", version=f"sheetnet {__version__}")
     commands = parser.add_subparsers(dest="command", required=True)
@@ -346,13 +378,13 @@ def build_parser() -> argparse.ArgumentParser:
     train.add_argument("--table", required=True, help="the table with its header row, like 'Data!A1:F500'")
     train.add_argument("--target", required=True, help="the column to predict")
     train.add_argument("--name", required=True, help="the model's name (a workbook-level defined name)")
-    train.add_argument("--hidden", default="4", help="hidden layer widths, like 8 or 8,4 (default 4)")
-    train.add_argument("--holdout", type=float, default=0.2, help="share of rows held out for checking (default 0.2; 0 for none)")
+    train.add_argument("--hidden", default=DEFAULT_HIDDEN, help=f"hidden layer widths, like 8 or 8,4 (default {DEFAULT_HIDDEN})")
+    train.add_argument("--holdout", type=float, default=DEFAULT_HOLDOUT, help=f"share of rows held out for checking (default {DEFAULT_HOLDOUT}; 0 for none)")
     train.add_argument(
-        "--mode", default="auto", choices=["auto", "random", "stratified", "ordered"],
-        help="how holdout rows are chosen (auto: stratified by class for text targets, else random)",
+        "--mode", default="auto", choices=list(HOLDOUT_MODES),
+        help="how holdout rows are chosen (auto: stratified by the target when it is learned as classes, else random)",
     )
-    train.add_argument("--seed", type=int, default=0, help="seed of the split and the training (default 0)")
+    train.add_argument("--seed", type=int, default=None, help="seed of the split and the training (default: the seed setting, else 0)")
     train.add_argument("--set", action="append", default=[], metavar="NAME=VALUE", help="a training setting; repeat for more (see: sheetnet settings)")
     train.add_argument("--replace", action="store_true", help="replace a stored model of the same name")
 
@@ -382,6 +414,13 @@ def build_parser() -> argparse.ArgumentParser:
     serve.add_argument("--https", action="store_true", help="serve over https with a locally generated certificate")
     serve.add_argument("--cert-dir", type=Path, default=Path.home() / ".sheetnet" / "tls", help="where the certificate is kept")
 
+    from .calc.commands import add_calc_parser
+
+    add_calc_parser(commands)
+    refresh = commands.add_parser("refresh", help="retrain the stored models whose data changed since training")
+    refresh.add_argument("book", type=Path)
+    refresh.add_argument("--model", help="only this model (default: every stored model)")
+    refresh.add_argument("--dry-run", action="store_true", help="only report which models are stale; change nothing")
     models = commands.add_parser("models", help="list the models stored in a workbook file")
     models.add_argument("book", type=Path)
     check = commands.add_parser("check", help="verify every model block in a workbook file (exit code 1 if one fails)")
@@ -405,7 +444,11 @@ def main(argv: Sequence[str] | None = None) -> int:
             return run_xl_setup(args, sys.stdout)
         if args.command == "serve":
             return run_serve(args, sys.stdout)
-        runners = {"train": run_train, "predict": run_predict, "formulas": run_formulas, "models": run_models, "check": run_check}
+        if args.command == "calc":
+            from .calc.commands import run_calc
+
+            return run_calc(args, sys.stdout)
+        runners = {"train": run_train, "predict": run_predict, "formulas": run_formulas, "models": run_models, "check": run_check, "refresh": run_refresh}
         return runners[args.command](args, sys.stdout)
     except SheetnetError as error:
         print(f"{type(error).__name__}: {error}", file=sys.stderr)

@@ -1,0 +1,482 @@
+"""sheetnet inside LibreOffice Calc: the cell functions and the store command, as one UNO component.
+
+Runs in LibreOffice's own Python with the standard library and uno only: no NumPy and no sheetnet
+import. Every call goes to ``sheetnet serve`` on 127.0.0.1, found through the server file it writes
+(``~/.sheetnet/server.json``: port, token, pid). The function table (names, arguments, help, the
+interpreter allowed to start a server, time limits) is ``sheetnet_calc.json`` beside this file,
+generated from sheetnet's registry when the extension is built.
+
+- ``SHEETNET.*`` cell functions (service ``com.sun.star.sheet.AddIn``, service name ``SHEETNET``):
+  each returns a 2-D array; failures are one readable ``#SHEETNET! ...`` cell, never a bare error.
+- ``vnd.sheetnet.calc:store[?name=..&target=..&hidden=..&settings=..&table=..]`` (a protocol
+  handler, on the Tools > Add-Ons menu and a toolbar): trains the selected table (header row first;
+  the target defaults to its last column, the name to the first free ``modelN``) through the server
+  and writes the placements the server decides (hidden model sheet, block, constants, defined names).
+"""
+
+import json
+import math
+import os
+import socket
+import subprocess
+import time
+import urllib.error
+import urllib.parse
+import urllib.request
+
+import unohelper
+from com.sun.star.frame import XDispatchProvider, XNotifyingDispatch
+from com.sun.star.lang import XInitialization, XLocalizable, XServiceInfo, XServiceName
+from com.sun.star.sheet import XAddIn
+from sheetnetcalc import XCellFunctions
+
+HERE = os.path.dirname(os.path.abspath(__file__))
+with open(os.path.join(HERE, "sheetnet_calc.json"), encoding="utf-8") as _handle:
+    TABLE = json.load(_handle)
+MARKER = TABLE["marker"]
+FUNCTIONS = {entry["method"]: entry for entry in TABLE["functions"]}
+BY_DISPLAY = {entry["name"].upper(): entry["method"] for entry in TABLE["functions"]}
+WHOLE_LIMIT = 2.0 ** 53  # whole floats below this travel as JSON integers, as a browser sends them
+START_WAIT = 20.0  # seconds to wait for a server this extension started
+_started_at = [0.0]  # when this office last started a server (one attempt a minute at most)
+
+
+class ServerProblem(Exception):
+    """A failure to show in the cell; the text is already in spreadsheet words."""
+
+
+# --- the server ----------------------------------------------------------------------------------
+
+def server_file():
+    return os.path.join(os.path.expanduser("~"), ".sheetnet", "server.json")
+
+
+def _alive(pid):
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+def read_server():
+    """The server record, or None when no server has written one (or its process is gone)."""
+    try:
+        with open(server_file(), encoding="utf-8") as handle:
+            record = json.load(handle)
+    except (OSError, ValueError):
+        return None
+    if not isinstance(record, dict) or not isinstance(record.get("port"), int) or not isinstance(record.get("token"), str):
+        return None
+    if isinstance(record.get("pid"), int) and not _alive(record["pid"]):
+        return None
+    return record
+
+
+def _free_port():
+    with socket.socket() as probe:
+        probe.bind(("127.0.0.1", 0))
+        return probe.getsockname()[1]
+
+
+def start_server():
+    """Start ``sheetnet serve`` with the interpreter recorded at install time; the new record or None."""
+    interpreter = TABLE.get("interpreter")
+    if not interpreter or time.monotonic() - _started_at[0] < 60:
+        return None
+    _started_at[0] = time.monotonic()
+    port = _free_port()
+    log_folder = os.path.join(os.path.expanduser("~"), ".sheetnet")
+    os.makedirs(log_folder, mode=0o700, exist_ok=True)
+    with open(os.path.join(log_folder, "calc-server.log"), "ab") as log:
+        subprocess.Popen(
+            [interpreter, "-c", "import sys; from sheetnet.cli import main; sys.exit(main(sys.argv[1:]))", "serve", "--port", str(port)],
+            stdin=subprocess.DEVNULL, stdout=log, stderr=log, start_new_session=True, close_fds=True,
+        )
+    deadline = time.monotonic() + START_WAIT
+    while time.monotonic() < deadline:
+        record = read_server()
+        if record is not None and record["port"] == port:
+            return record
+        time.sleep(0.2)
+    return None
+
+
+def timeout_for(name):
+    override = os.environ.get("SHEETNET_CALC_TIMEOUT")
+    if override:
+        try:
+            return max(0.1, float(override))
+        except ValueError:
+            pass
+    limits = TABLE["timeouts"]
+    return float(limits.get(name, limits["default"]))
+
+
+def _post(record, path, body, limit):
+    request = urllib.request.Request(
+        f"{record.get('scheme', 'http')}://127.0.0.1:{record['port']}{path}",
+        data=json.dumps(body, allow_nan=False).encode("utf-8"),
+        headers={"Authorization": f"Bearer {record['token']}", "Content-Type": "application/json"},
+        method="POST",
+    )
+    with urllib.request.urlopen(request, timeout=limit) as response:  # 127.0.0.1 only: the address is built here
+        return json.loads(response.read().decode("utf-8"))
+
+
+def too_slow(limit):
+    return f"the sheetnet server did not answer within {limit:g} s; it may be busy: recalculate later, or restart sheetnet serve"
+
+
+def call_server(path, body, name):
+    """POST to the local server; the parsed answer, or a `ServerProblem` in spreadsheet words."""
+    limit = timeout_for(name)
+    record = read_server()
+    if record is None:
+        record = start_server()
+    if record is None:
+        raise ServerProblem("no sheetnet server is running; start one with: sheetnet serve")
+    try:
+        return _post(record, path, body, limit)
+    except urllib.error.HTTPError as error:
+        try:
+            detail = json.loads(error.read().decode("utf-8")).get("detail")
+        except ValueError:
+            detail = None
+        raise ServerProblem(str(detail or f"the sheetnet server refused the call (HTTP {error.code})")) from None
+    except (socket.timeout, TimeoutError):
+        raise ServerProblem(too_slow(limit)) from None
+    except urllib.error.URLError as error:
+        if isinstance(error.reason, (socket.timeout, TimeoutError)):
+            raise ServerProblem(too_slow(limit)) from None
+        raise ServerProblem(f"no sheetnet server answers on 127.0.0.1:{record['port']}; start one with: sheetnet serve") from None
+    except (OSError, ValueError):
+        raise ServerProblem("the sheetnet server's answer could not be read; restart sheetnet serve") from None
+
+
+# --- cells in and out ----------------------------------------------------------------------------
+
+def cell_in(value):
+    """A Calc value as JSON: whole numbers as integers (as the Office add-in sends them), blanks as ''."""
+    if isinstance(value, float):
+        if math.isfinite(value) and value.is_integer() and abs(value) < WHOLE_LIMIT:
+            return int(value)
+        return value if math.isfinite(value) else None
+    if value is None or isinstance(value, (str, int, bool)):
+        return value
+    return str(value)
+
+
+def argument_in(value, kind):
+    """A range as rows of cells; a one-cell range where one value is meant as that value."""
+    if isinstance(value, tuple):
+        rows = [[cell_in(v) for v in row] for row in value]
+        if kind == "value" and len(rows) == 1 and len(rows[0]) == 1:
+            return rows[0][0]
+        return rows
+    return cell_in(value)
+
+
+def cell_out(value):
+    """A JSON value as a Calc cell: numbers as doubles (Calc shows booleans as 0 and refuses big integers),
+    blanks as empty text (a None would show #N/A)."""
+    if value is None:
+        return ""
+    if isinstance(value, bool):
+        return 1.0 if value else 0.0
+    if isinstance(value, (int, float)):
+        number = float(value)
+        return number if math.isfinite(number) else ""
+    return str(value)
+
+
+def grid_out(rows):
+    if not isinstance(rows, list) or not rows:
+        return ((message("the sheetnet server sent no cells; restart sheetnet serve"),),)
+    width = max(len(row) if isinstance(row, list) else 1 for row in rows)
+    out = []
+    for row in rows:
+        cells = [cell_out(v) for v in (row if isinstance(row, list) else [row])]
+        out.append(tuple(cells + [""] * (width - len(cells))))
+    return tuple(out)
+
+
+def message(text):
+    return f"{MARKER} {text}"
+
+
+def run_function(method, args):
+    entry = FUNCTIONS[method]
+    values = [argument_in(v, a["kind"]) for v, a in zip(args, entry["arguments"])]
+    while values and values[-1] is None:  # left-out optional arguments
+        values.pop()
+    try:
+        answer = call_server("/v1/functions/" + urllib.parse.quote(entry["name"]), {"args": values}, entry["name"])
+    except ServerProblem as problem:
+        return ((message(str(problem)),),)
+    except Exception as error:  # a bug here must still read as words in the cell
+        return ((message(f"the Calc extension failed ({type(error).__name__}); please report it"),),)
+    return grid_out(answer.get("result") if isinstance(answer, dict) else None)
+
+
+# --- the add-in ----------------------------------------------------------------------------------
+
+class CellFunctions(unohelper.Base, XCellFunctions, XAddIn, XServiceName, XServiceInfo, XLocalizable):
+    def __init__(self, ctx):
+        self.ctx = ctx
+        self.locale = None
+
+    # XServiceName: Calc stores each function as SERVICE.METHOD
+    def getServiceName(self):
+        return TABLE["service"]
+
+    def getImplementationName(self):
+        return TABLE["implementation"]
+
+    def supportsService(self, name):
+        return name in self.getSupportedServiceNames()
+
+    def getSupportedServiceNames(self):
+        return (TABLE["service"], "com.sun.star.sheet.AddIn")
+
+    def setLocale(self, locale):
+        self.locale = locale
+
+    def getLocale(self):
+        return self.locale
+
+    # XAddIn: what the function wizard shows (the same texts as CalcAddIns.xcu)
+    def getProgrammaticFuntionName(self, display_name):
+        return BY_DISPLAY.get(display_name.upper(), "")
+
+    def getDisplayFunctionName(self, method):
+        return FUNCTIONS[method]["name"] if method in FUNCTIONS else ""
+
+    def getFunctionDescription(self, method):
+        entry = FUNCTIONS.get(method)
+        return f"{entry['help']} Returns {entry['returns']}." if entry else ""
+
+    def _argument(self, method, index):
+        entry = FUNCTIONS.get(method)
+        if entry is None or not 0 <= index < len(entry["arguments"]):
+            return None
+        return entry["arguments"][index]
+
+    def getDisplayArgumentName(self, method, index):
+        argument = self._argument(method, index)
+        return argument["name"] if argument else ""
+
+    def getArgumentDescription(self, method, index):
+        argument = self._argument(method, index)
+        return (argument["help"] + (" (optional)" if argument["optional"] else "")) if argument else ""
+
+    def getProgrammaticCategoryName(self, method):
+        return TABLE["category"]
+
+    def getDisplayCategoryName(self, method):
+        return TABLE["category"]
+
+
+def _cell_function(method):
+    def call(self, *args):
+        return run_function(method, args)
+
+    call.__name__ = method
+    return call
+
+
+for _method in FUNCTIONS:
+    setattr(CellFunctions, _method, _cell_function(_method))
+
+
+# --- the store command ---------------------------------------------------------------------------
+
+def calc_reference(sheet, top, left, bottom, right):
+    """A rectangle in Calc's own reference syntax: $'Sheet'.$A$1:$I$40."""
+    def letters(number):
+        text = ""
+        while number:
+            number, rest = divmod(number - 1, 26)
+            text = chr(65 + rest) + text
+        return text
+
+    quoted = "'" + sheet.replace("'", "''") + "'"
+    return f"${quoted}.${letters(left)}${top}:${letters(right)}${bottom}"
+
+
+def _same(a, b):
+    return a.casefold() == b.casefold()
+
+
+def apply_placements(doc, placements):
+    """Apply placements in the documented order (see sheetnet/placements.py): drop names and sheets,
+    create sheets, write cells as values (setDataArray puts strings in as text, never as formulas),
+    write formulas, define names. Calc has no very hidden state: such sheets become hidden."""
+    named = doc.NamedRanges
+    for name in placements.get("drop_names", []):
+        for existing in named.getElementNames():
+            if _same(existing, name):
+                named.removeByName(existing)
+    sheets = doc.Sheets
+    for title in placements.get("drop_sheets", []):
+        for existing in sheets.getElementNames():
+            if _same(existing, title):
+                sheets.removeByName(existing)
+    for plan in placements.get("sheets", []):
+        sheets.insertNewByName(plan["title"], sheets.getCount())
+        if plan.get("visibility", "visible") != "visible":
+            sheets.getByName(plan["title"]).IsVisible = False
+    for block in placements.get("cells", []):
+        rows = block["values"]
+        width = max((len(r) for r in rows), default=0)
+        if not rows or not width:
+            continue
+        data = tuple(tuple([cell_out(v) for v in row] + [""] * (width - len(row))) for row in rows)
+        sheet = sheets.getByName(block["sheet"])
+        left, top = block["left"] - 1, block["top"] - 1
+        sheet.getCellRangeByPosition(left, top, left + width - 1, top + len(rows) - 1).setDataArray(data)
+    for block in placements.get("formulas", []):
+        sheet = sheets.getByName(block["sheet"])
+        for r, row in enumerate(block["formulas"]):
+            for c, text in enumerate(row):
+                target = sheet.getCellRangeByPosition(block["left"] - 1 + c, block["top"] - 1 + r, block["left"] - 1 + c, block["top"] - 1 + r)
+                write_formula(doc, target, text, block.get("array", True))
+    for name in placements.get("names", []):
+        reference = calc_reference(name["sheet"], name["top"], name["left"], name["bottom"], name["right"])
+        named.addNewByName(name["name"], reference, sheets.getByName(name["sheet"]).getCellByPosition(0, 0).CellAddress, 0)
+
+
+def write_formula(doc, target, text, array):
+    """A formula in spreadsheet-file syntax (commas, English names) through Calc's formula parser,
+    since Calc's own API syntax separates arguments with semicolons."""
+    from com.sun.star.sheet.AddressConvention import XL_A1
+    from com.sun.star.sheet.FormulaLanguage import XL_ENGLISH
+    from com.sun.star.sheet.FormulaMapGroup import ALL_EXCEPT_SPECIAL
+
+    parser = doc.createInstance("com.sun.star.sheet.FormulaParser")
+    parser.FormulaConvention = XL_A1
+    mapper = doc.createInstance("com.sun.star.sheet.FormulaOpCodeMapper")
+    parser.OpCodeMap = mapper.getAvailableMappings(XL_ENGLISH, ALL_EXCEPT_SPECIAL)
+    tokens = parser.parseFormula(text.lstrip("="), target.getCellByPosition(0, 0).CellAddress)
+    if array:
+        target.setArrayTokens(tokens)
+    else:
+        target.getCellByPosition(0, 0).setTokens(tokens)
+
+
+def _query(url):
+    _, _, rest = url.partition("?")
+    return {k: v[-1] for k, v in urllib.parse.parse_qs(rest, keep_blank_values=False).items()}
+
+
+def _free_model_name(existing):
+    taken = {n.casefold() for n in existing}
+    number = 1
+    while f"model{number}" in taken:
+        number += 1
+    return f"model{number}"
+
+
+def store_model(doc, selection, options):
+    """Train the selected table through the server and store the model; returns what happened, in words."""
+    if options.get("table"):
+        sheet_name, _, address = options["table"].rpartition(".")
+        sheet = doc.Sheets.getByName(sheet_name.strip("$'")) if sheet_name else doc.getCurrentController().getActiveSheet()
+        selection = sheet.getCellRangeByName(address)
+    if selection is None or not hasattr(selection, "getDataArray") or not hasattr(selection, "getRangeAddress"):
+        raise ServerProblem("select the table first (its header row included), then run the command again")
+    table = [[cell_in(v) for v in row] for row in selection.getDataArray()]
+    if len(table) < 2:
+        raise ServerProblem("the selection has no data rows; select the table with its header row and the rows below")
+    existing = list(doc.NamedRanges.getElementNames())
+    target = options.get("target") or str(table[0][-1])
+    name = options.get("name") or _free_model_name(existing)
+    args = [table, target, options.get("hidden"), options.get("settings")]
+    while args and args[-1] is None:
+        args.pop()
+    answer = call_server("/v1/functions/SHEETNET.TRAIN", {"args": args}, "SHEETNET.TRAIN")
+    if answer.get("message"):
+        raise ServerProblem(answer["message"][len(MARKER):].strip())
+    block = answer["result"]
+    placements = call_server("/v1/placements", {"name": name, "block": block, "existing_names": existing}, "placements")
+    apply_placements(doc, placements)
+    sheets = ", ".join(plan["title"] for plan in placements.get("sheets", []))
+    return f"model {name} ({target}) stored on the hidden sheet {sheets} under the defined name {name}"
+
+
+class StoreCommand(unohelper.Base, XInitialization, XDispatchProvider, XNotifyingDispatch, XServiceInfo):
+    """The protocol handler behind the menu entry and the toolbar button."""
+
+    def __init__(self, ctx):
+        self.ctx = ctx
+        self.frame = None
+
+    def initialize(self, arguments):
+        if arguments:
+            self.frame = arguments[0]
+
+    def getImplementationName(self):
+        return "sheetnet.calc.StoreCommand"
+
+    def supportsService(self, name):
+        return name == "com.sun.star.frame.ProtocolHandler"
+
+    def getSupportedServiceNames(self):
+        return ("com.sun.star.frame.ProtocolHandler",)
+
+    def queryDispatch(self, url, target, flags):
+        return self if url.Complete.startswith("vnd.sheetnet.calc:store") else None
+
+    def queryDispatches(self, requests):
+        return tuple(self.queryDispatch(r.FeatureURL, r.FrameName, r.SearchFlags) for r in requests)
+
+    def addStatusListener(self, listener, url):
+        pass
+
+    def removeStatusListener(self, listener, url):
+        pass
+
+    def _run(self, url):
+        try:
+            controller = self.frame.getController()
+            doc = controller.getModel()
+            text = store_model(doc, controller.getSelection(), _query(url.Complete))
+            ok = True
+        except ServerProblem as problem:
+            text, ok = message(str(problem)), False
+        except Exception as error:
+            text, ok = message(f"storing the model failed ({type(error).__name__}: {error}); please report it"), False
+        self._tell(text)
+        return ok, text
+
+    def _tell(self, text):
+        """A message box when the window is on screen (never in a headless or hidden office)."""
+        try:
+            window = self.frame.getContainerWindow()
+            if not window.isVisible():
+                return
+            toolkit = self.ctx.ServiceManager.createInstanceWithContext("com.sun.star.awt.Toolkit", self.ctx)
+            from com.sun.star.awt.MessageBoxType import INFOBOX
+
+            box = toolkit.createMessageBox(window, INFOBOX, 1, "sheetnet", text)
+            box.execute()
+        except Exception:
+            pass
+
+    def dispatch(self, url, arguments):
+        self._run(url)
+
+    def dispatchWithNotification(self, url, arguments, listener):
+        from com.sun.star.frame import DispatchResultEvent
+        from com.sun.star.frame.DispatchResultState import FAILURE, SUCCESS
+
+        ok, text = self._run(url)
+        if listener is not None:
+            listener.dispatchFinished(DispatchResultEvent(self, SUCCESS if ok else FAILURE, text))
+
+
+g_ImplementationHelper = unohelper.ImplementationHelper()
+g_ImplementationHelper.addImplementation(CellFunctions, TABLE["implementation"], (TABLE["service"], "com.sun.star.sheet.AddIn"))
+g_ImplementationHelper.addImplementation(StoreCommand, "sheetnet.calc.StoreCommand", ("com.sun.star.frame.ProtocolHandler",))
