@@ -29,8 +29,10 @@ from .block import decode_block
 from .errors import InputError
 from .formulas import native_formula
 from .model import Model
+from .service import model_placements
+from .sheet_writer import apply_to_workbook, write_text_safe
 from .stopping import ProgressCallback
-from .workbook import Book, save_new, store_model
+from .workbook import save_new
 
 README_MARK = "sheetnet demo workbook"
 HEADER_FILL = PatternFill("solid", fgColor="DCE6F0")
@@ -268,14 +270,13 @@ def build_demo_workbook(
         split_range = f"{scenario.sheet}!{get_column_letter(columns + 1)}1:{get_column_letter(columns + 1)}{rows}"
         readme.cell(5 + i, 1, scenario.sheet)
         readme.cell(5 + i, 2, scenario.title)
-        readme.cell(5 + i, 3, (
+        write_text_safe(readme, 5 + i, 3, (
             f'=SHEETNET.SPLIT({data}, {scenario.holdout_share}, 0, "{scenario.split_mode}")  then  '
             f'=SHEETNET.TRAIN({data}, "{scenario.target}", {scenario.hidden}, "{scenario.settings}", {split_range})  then  '
             f"=SHEETNET.PREDICT({scenario.model_name}, {data})"
         ))
-    book = Book(path, workbook, workbook)
     for result in results:  # hidden model sheets after every visible one
-        store_model(book, result.scenario.model_name, result.block, replace=True)
+        apply_to_workbook(workbook, model_placements(result.scenario.model_name, result.block, list(workbook.defined_names)))
     readme.column_dimensions["A"].width = 12
     readme.column_dimensions["B"].width = 60
     readme.column_dimensions["C"].width = 120

@@ -24,8 +24,12 @@ from typing import Any, Callable, Iterable
 from .block import WIDTH, decode_block
 from .cells import parse_settings
 from .errors import InputError, SettingError, SheetnetError
-from .formulas import formula_constants, name_prefix
-from .placements import CellBlock, FormulaBlock, NamePlacement, Placements, SheetPlan, cell_block, column_letters, quote_sheet, same_title
+from .formulas import formula_constants
+from .placements import CellBlock, FormulaBlock, NamePlacement, SheetPlan, quote_sheet
+from .placements import Placements as Placements  # re-exported: doors build placements through the service
+from .placements import cell_block as cell_block
+from .placements import column_letters as column_letters
+from .placements import same_title as same_title
 from .stopping import ProgressCallback
 
 MODEL_SHEET_PREFIX = "sheetnet_"
@@ -114,12 +118,6 @@ def model_placements(name: str, block: list[list[Any]], existing_names: Iterable
 def removal_placements(name: str, existing_names: Iterable[str]) -> Placements:
     """What removing a stored model drops: its names and its hidden sheet."""
     return Placements(drop_names=tuple(names_of_model(name, existing_names)), drop_sheets=(model_sheet_name(name),))
-
-
-__all__ = [
-    "CONSTANTS_COLUMN", "MODEL_SHEET_PREFIX", "OWNED_MARK", "check_model_name", "constant_owner", "model_placements",
-    "model_sheet_name", "name_prefix", "names_of_model", "removal_placements", "results_sheet_name", "same_title",
-]
 
 
 # --- visible sheets of ours and native formulas -------------------------------------------
@@ -295,7 +293,7 @@ class RefreshOutcome:
     name: str
     state: str  # retrained, unchanged, no-source, failed
     message: str = ""
-    block: list[list[Any]] | None = None
+    trained: Trained | None = None
 
 
 def refresh_model(name: str, block: list[list[Any]], read_table: Callable[[str], list[list[Any]]], dry_run: bool = False) -> RefreshOutcome:
@@ -309,6 +307,38 @@ def refresh_model(name: str, block: list[list[Any]], read_table: Callable[[str],
             return RefreshOutcome(name, "unchanged")
         if dry_run:
             return RefreshOutcome(name, "stale", f"its data in {info.source[0]} changed since training")
-        return RefreshOutcome(name, "retrained", f"from {info.source[0]}", train_model(retrain_request(block, table)).block)
+        return RefreshOutcome(name, "retrained", f"from {info.source[0]}", train_model(retrain_request(block, table)))
     except SheetnetError as error:
         return RefreshOutcome(name, "failed", str(error))
+
+
+CAUTION = (
+    "A model is a decision aid, not a decision. Where its output affects people "
+    "(credit, hiring, medical or safety decisions), check it for bias across groups, "
+    "keep a person accountable for each decision, and follow local law and licensed practice."
+)
+
+
+def training_results(
+    name: str, address: str, table: list[list[Any]], trained: Trained, answer: list[list[Any]], about: list[list[Any]]
+) -> list[tuple[int, int, list[list[Any]]]]:
+    """The blocks of a model's results sheet: a caption, per table row its split, actual and predicted
+    value (from A4), and the model's summary (from G4)."""
+    _, info = decode_block(trained.block)
+    split = trained.split if trained.split is not None else [["split"]] + [["train"] for _ in answer[1:]]
+    target_index = [str(c).strip() for c in table[0]].index(info.target)
+    rows = [[i + 2, split[i + 1][0], table[i + 1][target_index], *answer[i + 1]] for i in range(len(answer) - 1)]
+    caption = f"model {name}: {info.target} predicted from {address}. {CAUTION}"
+    return [(2, 1, [[caption]]), (4, 1, [["table row", split[0][0], f"actual {info.target}", *answer[0]], *rows]), (4, 7, about)]
+
+
+def refresh_summary(outcomes: Iterable[RefreshOutcome]) -> str:
+    """One line for a status bar or a task pane: what each stored model's refresh did."""
+    groups: dict[str, list[str]] = {}
+    for outcome in outcomes:
+        groups.setdefault(outcome.state, []).append(outcome.name + (f" ({outcome.message})" if outcome.state == "failed" else ""))
+    if not groups:
+        return "sheetnet: the workbook has no stored models"
+    words = {"retrained": "retrained", "stale": "stale", "unchanged": "unchanged", "no-source": "not from a known range, left as they are",
+             "failed": "FAILED"}
+    return "sheetnet: " + "; ".join(f"{words[state]}: {', '.join(names)}" for state, names in groups.items())

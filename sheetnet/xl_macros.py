@@ -18,12 +18,11 @@ from __future__ import annotations
 
 from typing import Any
 
-from . import functions
-from .block import MAGIC, WIDTH, decode_block
-from .cells import MARKER, read_sheet_table
+from . import functions, service
+from .block import MAGIC, decode_block
+from .cells import MARKER
 from .errors import InputError, SheetnetError
-from .formulas import formula_constants, name_prefix, native_formula
-from .workbook import CONSTANTS_COLUMN, MODEL_SHEET_PREFIX, check_model_name
+from .placements import Placements, column_letters, same_title
 from .xl_udfs import from_excel
 
 VERY_HIDDEN = 2  # Excel's xlSheetVeryHidden
@@ -35,14 +34,6 @@ def _caller(book: Any) -> Any:
     import xlwings as xw
 
     return xw.Book.caller()
-
-
-def _column_letters(number: int) -> str:
-    letters = ""
-    while number:
-        number, rest = divmod(number - 1, 26)
-        letters = chr(65 + rest) + letters
-    return letters
 
 
 def _report(book: Any, text: str) -> str:
@@ -65,127 +56,133 @@ def _model_names(book: Any) -> list[str]:
     return sorted(found)
 
 
-def _hide(sheet: Any) -> None:
+def _stored_name(book: Any, name: str) -> str | None:
+    return next((n for n in _model_names(book) if same_title(n, name)), None)
+
+
+def _hide(sheet: Any, visibility: str) -> None:
+    if visibility == "visible":
+        return
     try:
-        sheet.api.Visible = VERY_HIDDEN  # Windows: not even listed under Unhide
+        sheet.api.Visible = VERY_HIDDEN if visibility == "veryHidden" else 0  # Windows: very hidden is not even listed under Unhide
     except Exception:
         sheet.visible = False  # macOS: plain hidden is what the automation offers
 
 
-def _store(book: Any, name: str, block: list[list[Any]]) -> None:
-    sheet_name = (MODEL_SHEET_PREFIX + name)[:31]
-    names = [s.name for s in book.sheets]
-    if sheet_name in names:
-        book.sheets[sheet_name].delete()
-    sheet = book.sheets.add(sheet_name, after=book.sheets[len(book.sheets) - 1])
-    sheet.range("A1").value = block
-    book.names.add(name, f"='{sheet_name}'!$A$1:${_column_letters(WIDTH)}${len(block)}")
-    model, _ = decode_block(block)
+def _as_text(value: Any) -> Any:
+    # a string assigned to Range.value is read like typed input ('=...' a formula, '1/2' a date); a leading
+    # apostrophe keeps every string exactly as text
+    return "'" + value if isinstance(value, str) else value
+
+
+def apply_placements(book: Any, placements: Placements) -> None:
+    """Apply the service's placements through xlwings, in the documented order."""
+    dropped = {n.casefold() for n in placements.drop_names}
     for defined in list(book.names):
-        if defined.name.startswith(name_prefix(name)):
+        if defined.name.casefold() in dropped:
             defined.delete()
-    row = 1
-    for constant in formula_constants(model, name):
-        height, width = constant.shape
-        first = f"${_column_letters(CONSTANTS_COLUMN)}${row}"
-        last = f"${_column_letters(CONSTANTS_COLUMN + width - 1)}${row + height - 1}"
-        sheet.range(f"{_column_letters(CONSTANTS_COLUMN)}{row}").value = [list(r) for r in constant.values]
-        book.names.add(constant.name, f"='{sheet_name}'!{first}:{last}")
-        row += height + 1
-    _hide(sheet)
+    for title in placements.drop_sheets:
+        for sheet in list(book.sheets):
+            if same_title(sheet.name, title):
+                sheet.delete()
+    created = {}
+    for plan in placements.sheets:
+        created[plan.title.casefold()] = (book.sheets.add(plan.title, after=book.sheets[len(book.sheets) - 1]), plan.visibility)
+    sheets = {s.name.casefold(): s for s in book.sheets}
+    for block in placements.cells:
+        rows = [[None if v is None else _as_text(v) for v in row] for row in block.values]
+        sheets[block.sheet.casefold()].range(f"{column_letters(block.left)}{block.top}").value = rows
+    for formulas in placements.formulas:
+        sheet = sheets[formulas.sheet.casefold()]
+        for i, row in enumerate(formulas.formulas):
+            for j, text in enumerate(row):
+                cell = sheet.range(f"{column_letters(formulas.left + j)}{formulas.top + i}")
+                if formulas.array:
+                    cell.formula_array = text
+                else:
+                    cell.formula = text
+    for name in placements.names:
+        book.names.add(name.name, "=" + name.reference)
+    for sheet, visibility in created.values():
+        _hide(sheet, visibility)
 
 
-def _train(book: Any, address: str, table: list[list[Any]], target: str, name: str, hidden: Any, settings: Any,
-           holdout: float, mode: str, seed: int) -> str:
-    split = None
-    targets = read_sheet_table(table).column(target)  # names a missing column
-    if holdout > 0:
-        if mode == "auto":
-            mode = f"stratified {target}" if any(isinstance(v, str) for v in targets) else "random"
-        split = functions.raising(functions.split)(table, holdout, seed, mode)
-    block = functions.train_block(table, target, hidden, settings, split, source=(address, holdout, mode, seed))
-    _store(book, name, block)
+def _read(book: Any, address: str) -> list[list[Any]]:
+    sheet_name, cells = address.rsplit("!", 1)
+    sheet_name = sheet_name.strip()
+    if sheet_name.startswith("'") and sheet_name.endswith("'"):
+        sheet_name = sheet_name[1:-1].replace("''", "'")
+    return from_excel(book.sheets[sheet_name].range(cells).options(ndim=2).value)
+
+
+def _summary(name: str, block: list[list[Any]]) -> str:
     summary = dict((row[0], row[1]) for row in functions.raising(functions.about)(block)[1:])
     metric = next((f"{k} {v:.4g}" for k, v in summary.items() if str(k).startswith("holdout ") and isinstance(v, float)), "no holdout")
-    return f"sheetnet: model {name} trained ({summary['layers']}, stopped by {summary['stopped by']}; {metric})"
+    return f"sheetnet: model {name} trained ({summary['task']}, {summary['layers']}, stopped by {summary['stopped by']}; {metric})"
 
 
-def train_selection(target: str, name: str, hidden: Any = "4", settings: Any = "", holdout: float = 0.2, mode: str = "auto",
-                    seed: int = 0, book: Any = None) -> str:
-    """Train the selected table (header row included) and store the model under ``name``."""
+def train_selection(target: str, name: str, hidden: Any = service.DEFAULT_HIDDEN, settings: Any = "",
+                    holdout: float = service.DEFAULT_HOLDOUT, mode: str = "auto", seed: int | None = None, book: Any = None) -> str:
+    """Train the selected table (header row included) and store the model under ``name``.
+    ``seed`` seeds the split and the training (default: the seed setting, else 0)."""
     book = _caller(book)
     try:
-        check_model_name(name)
+        service.check_model_name(name)
         selection = book.selection
         table = from_excel(selection.options(ndim=2).value)
         address = f"'{selection.sheet.name}'!{selection.address}"
-        return _report(book, _train(book, address, table, target, name, hidden, settings, holdout, mode, seed))
+        trained = service.train_model(service.TrainRequest(table, target, hidden, settings, holdout, mode, seed, address))
+        apply_placements(book, service.model_placements(name, trained.block, [n.name for n in book.names]))
+        return _report(book, _summary(name, trained.block))
     except SheetnetError as error:
         return _report(book, f"{MARKER} {error}")
 
 
-def refresh_models(book: Any = None) -> str:
-    """Retrain every stored model on the range it was trained from, with the same choices."""
+def refresh_models(book: Any = None, dry_run: bool = False) -> str:
+    """Retrain every stored model whose source range changed since training, with the settings it was given."""
     book = _caller(book)
-    done, skipped = [], []
+    outcomes = []
     for name in _model_names(book):
-        try:
-            model, info = decode_block(from_excel(book.names[name].refers_to_range.options(ndim=2).value))
-            if info.source is None:
-                skipped.append(name)
-                continue
-            address, holdout, mode, seed = info.source
-            sheet_name, cells = address.rsplit("!", 1)
-            table = from_excel(book.sheets[sheet_name.strip("'")].range(cells).options(ndim=2).value)
-            categories = [spec.name for spec in model.preparation.inputs if not hasattr(spec, "mean")]
-            keep = ("activation", "algorithm", "epochs", "decay", "repeats", "threshold", "patience", "validation_share")
-            settings = [[k, v] for k, v in model.settings.items() if k in keep]
-            settings += [["inputs", ", ".join(model.input_names)], ["seed", model.seed], ["blank_rows", info.blank_rows]]
-            if categories:
-                settings.append(["categories", ", ".join(categories)])
-            hidden = ",".join(map(str, model.hidden)) or "0"
-            _train(book, address, table, info.target, name, hidden, settings, holdout, mode, seed)
-            done.append(name)
-        except SheetnetError as error:
-            return _report(book, f"{MARKER} model {name}: {error}")
-    note = f"; not from a known range, left as they are: {', '.join(skipped)}" if skipped else ""
-    return _report(book, f"sheetnet: retrained {', '.join(done) or 'no models'}{note}")
+        block = from_excel(book.names[name].refers_to_range.options(ndim=2).value)
+        outcome = service.refresh_model(name, block, lambda address: _read(book, address), dry_run)
+        if outcome.trained is not None:
+            apply_placements(book, service.model_placements(name, outcome.trained.block, [n.name for n in book.names]))
+        outcomes.append(outcome)
+    return _report(book, service.refresh_summary(outcomes))
 
 
 def remove_model(name: str, book: Any = None) -> str:
     """Delete a stored model, its hidden sheet and its native-formula names."""
     book = _caller(book)
-    if name not in _model_names(book):
+    stored = _stored_name(book, name)
+    if stored is None:
         return _report(book, f"{MARKER} the workbook has no model named '{name}'")
-    for defined in list(book.names):
-        if defined.name == name or defined.name.startswith(name_prefix(name)):
-            defined.delete()
-    sheet_name = (MODEL_SHEET_PREFIX + name)[:31]
-    if sheet_name in [s.name for s in book.sheets]:
-        book.sheets[sheet_name].delete()
-    return _report(book, f"sheetnet: model {name} removed")
+    apply_placements(book, service.removal_placements(stored, [n.name for n in book.names]))
+    return _report(book, f"sheetnet: model {stored} removed")
 
 
 def export_formulas(name: str, to: str, output: str = "value", book: Any = None) -> str:
     """Native formulas for every row of the model's training range, written from the cell ``to`` down."""
     book = _caller(book)
     try:
-        if name not in _model_names(book):
+        stored = _stored_name(book, name)
+        if stored is None:
             raise InputError(f"the workbook has no model named '{name}'")
-        model, info = decode_block(from_excel(book.names[name].refers_to_range.options(ndim=2).value))
+        block = from_excel(book.names[stored].refers_to_range.options(ndim=2).value)
+        _, info = decode_block(block)
         if info.source is None:
-            raise InputError(f"model {name} does not record the range it was trained on; train it with train_selection first")
+            raise InputError(f"model {stored} does not record the range it was trained on; train it with train_selection first")
         sheet_name, cells = info.source[0].rsplit("!", 1)
-        source = book.sheets[sheet_name.strip("'")].range(cells)
-        header = [str(v) for v in source.options(ndim=2).value[0]]
-        first_row, first_column = source.row, source.column
+        sheet_name = sheet_name.strip("'")
+        source = book.sheets[sheet_name].range(cells)
+        grid = from_excel(source.options(ndim=2).value)
+        data_rows = [i for i, row in enumerate(grid[1:], start=1) if any(v not in (None, "") for v in row)]
         target_sheet, target_cell = to.rsplit("!", 1) if "!" in to else (book.sheets.active.name, to)
         corner = book.sheets[target_sheet.strip("'")].range(target_cell)
-        corner.value = [[f"native {output} {info.target}"]]
-        count = source.rows.count if hasattr(source.rows, "count") else len(source.options(ndim=2).value)
-        for i in range(1, count):
-            refs = {n: f"'{sheet_name.strip(chr(39))}'!${_column_letters(first_column + header.index(n))}{first_row + i}" for n in model.input_names}
-            corner.offset(i, 0).formula_array = native_formula(model, name, refs, output)
-        return _report(book, f"sheetnet: {count - 1} native formulas for model {name} written from {to}")
+        placements, count = service.native_formula_placements(
+            stored, block, grid[0], data_rows, (sheet_name, source.column, source.row), (corner.sheet.name, corner.row, corner.column), output
+        )
+        apply_placements(book, placements)
+        return _report(book, f"sheetnet: {count} native formulas for model {stored} written from {to}")
     except SheetnetError as error:
         return _report(book, f"{MARKER} {error}")

@@ -92,7 +92,7 @@ def test_train_selection_stores_a_very_hidden_model_under_a_defined_name(table):
     assert sheet.api.Visible == xl_macros.VERY_HIDDEN
     block = book.names["grades"].refers_to_range.options(ndim=2).value
     model, info = decode_block(block)
-    assert info.source == ("'Lots'!$A$1:$G$121", 0.2, "stratified grade", 0)
+    assert info.source == ("'Lots'!$A$1:$G$121", 0.2, "auto", 0)  # the mode as given: a refresh resolves it again
     assert "snf_grades_m1_b1" in book.names
     expected = functions.train_block(table, "grade", "5", "ignore=lot; epochs=200", functions.split(table, 0.2, 0, "stratified grade"))
     assert decode_block(expected)[0].members[0].theta.tolist() == model.members[0].theta.tolist()
@@ -104,11 +104,12 @@ def test_refresh_retrains_on_the_changed_range(table):
     before, _ = decode_block(book.names["grades"].refers_to_range.options(ndim=2).value)
     book.sheets["Lots"].range("B2").value = 14.5  # a changed moisture reading
     report = xl_macros.refresh_models(book=book)
-    assert report == "sheetnet: retrained grades"
+    assert report == "sheetnet: retrained: grades"
+    assert xl_macros.refresh_models(book=book) == "sheetnet: unchanged: grades"
     after, info = decode_block(book.names["grades"].refers_to_range.options(ndim=2).value)
     assert after.input_names == before.input_names and after.sizes == before.sizes
     assert not np.array_equal(after.members[0].theta, before.members[0].theta)
-    assert info.source == ("'Lots'!$A$1:$G$121", 0.2, "stratified grade", 0)
+    assert info.source == ("'Lots'!$A$1:$G$121", 0.2, "auto", 0)  # the mode as given: a refresh resolves it again
 
 
 def test_remove_model_deletes_its_sheet_and_names(table):

@@ -25,6 +25,24 @@ def _parse(address: str) -> tuple[int, int, int, int]:
     return r1, c1, r2 - r1 + 1, c2 - c1 + 1
 
 
+def _as_typed(value: Any) -> Any:
+    """A value assigned to Range.value is read like typed input (from memory of Excel's behaviour, not
+    checked here): a leading apostrophe keeps the rest as text, '=' starts a formula (shown here as
+    #NAME?, so a text written as a formula is visible), and a string that reads as a number becomes one."""
+    if value == "" or value is None:
+        return None
+    if not isinstance(value, str):
+        return value
+    if value.startswith("'"):
+        return value[1:]
+    if value.startswith("="):
+        return "#NAME?"
+    try:
+        return float(value)
+    except ValueError:
+        return value
+
+
 class Rows:
     def __init__(self, count: int) -> None:
         self.count = count
@@ -61,7 +79,7 @@ class Range:
         rows = data if isinstance(data, list) and data and isinstance(data[0], list) else [[data]]
         for i, row in enumerate(rows):
             for j, v in enumerate(row):
-                self.sheet.cells[(self.row + i, self.column + j)] = None if v == "" else v
+                self.sheet.cells[(self.row + i, self.column + j)] = _as_typed(v)
 
     def __getitem__(self, key: tuple[int, int]) -> "Range":
         i, j = key

@@ -18,7 +18,9 @@ from openpyxl.styles import Font, PatternFill
 
 from sheetnet import functions
 from sheetnet.registry import REGISTRY
-from sheetnet.workbook import Book, save_new, store_model
+from sheetnet.service import model_placements
+from sheetnet.sheet_writer import apply_to_workbook
+from sheetnet.workbook import save_new
 
 HERE = Path(__file__).resolve().parent
 DEFAULT_OUT = HERE / "sheetnet-starter.xlsx"
@@ -70,7 +72,7 @@ def build(out: Path = DEFAULT_OUT, rows: int = 150) -> Path:
     split = functions.raising(functions.split)(cells, 0.2, 0, "stratified grade")
     settings_range = [[name, value] for name, value in SETTINGS]
     block = functions.train_block(cells, "grade", "6", settings_range, split)
-    store_model(Book(out, workbook, workbook), "starter_model", block, replace=True)
+    apply_to_workbook(workbook, model_placements("starter_model", block, list(workbook.defined_names)))
     missing = {f.name for f in REGISTRY} - set(examples(rows))
     if missing:
         raise SystemExit(f"the starter lacks examples for {sorted(missing)}")
