@@ -11,14 +11,19 @@ row 2.
 
 from __future__ import annotations
 
+import datetime
+import itertools
 import math
+import re
 from dataclasses import dataclass
 from typing import Any, Sequence
 
 import numpy as np
 import pandas as pd
 
-from .errors import InputError, SettingError, UnknownColumnError
+from .cell_text import ERROR_VALUES, cell_in_words
+from .errors import BadValueError, InputError, SettingError, UnknownColumnError
+from .limits import MAX_LAYERS
 
 Cell = float | int | bool | str | None
 Cells = list[list[Cell]]
@@ -26,6 +31,8 @@ Cells = list[list[Cell]]
 MARKER = "#SHEETNET!"  # starts every message a cell function returns instead of an answer
 MAX_CELLS = 2_000_000  # larger ranges are refused before any work starts
 NUMBER_TYPES = frozenset({float, int, type(None), np.float64, np.float32, np.int64, np.int32})
+CELL_TYPES = NUMBER_TYPES | {bool, str, np.bool_, np.str_}
+CELL_TYPE_FAMILIES = (int, float, str, datetime.date, datetime.time, np.number, np.bool_)  # subclasses too (pandas Timestamp)
 
 
 def message_cell(text: str) -> Cells:
@@ -42,23 +49,47 @@ def is_blank(value: Any) -> bool:
 
 
 def as_grid(cells: Any, what: str) -> list[list[Any]]:
-    """A range as a list of rows; a single value is a 1 x 1 range."""
+    """A range as a list of rows; a single value is a 1 x 1 range.
+
+    Every cell must be one value (number, text, TRUE/FALSE, date or blank): a
+    list inside a cell, as nested lists give, is refused with its place.
+    """
     if isinstance(cells, np.ndarray):
         cells = cells.tolist()
     if not isinstance(cells, (list, tuple)):
+        _check_cell_types([[cells]], what)
         return [[cells]]
     if not cells:
         raise InputError(f"the {what} range is empty; select a range with a header row and data rows")
-    rows = cells if all(type(r) is list for r in cells) else [list(r) if isinstance(r, (list, tuple, np.ndarray)) else [r] for r in cells]
+    rows: list[list[Any]] = (
+        list(cells) if all(type(r) is list for r in cells) else [list(r) if isinstance(r, (list, tuple, np.ndarray)) else [r] for r in cells]
+    )
     widths = set(map(len, rows))
     width = max(widths)
+    if width == 0:
+        raise InputError(f"the {what} range has no cells; select a range with a header row and data rows")
     if len(rows) * width > MAX_CELLS:
         raise InputError(
             f"the {what} range has {len(rows) * width:,} cells, more than the {MAX_CELLS:,} sheetnet reads; select only the rows and columns in use"
         )
+    _check_cell_types(rows, what)
     if len(widths) == 1:
-        return list(rows)  # rectangular already: the rows are read, never changed, so they are not copied
+        return rows  # rectangular already: the rows are read, never changed, so they are not copied
     return [r + [None] * (width - len(r)) for r in rows]
+
+
+def _check_cell_types(rows: list[list[Any]], what: str) -> None:
+    types = set(map(type, itertools.chain.from_iterable(rows)))  # one pass in C; the per-cell search below runs only on a refusal
+    strange = [t for t in types if t not in CELL_TYPES and not issubclass(t, CELL_TYPE_FAMILIES)]
+    if not strange:
+        return
+    for i, row in enumerate(rows):
+        for j, value in enumerate(row):
+            if type(value) in strange:
+                place = f"row {i + 1}, column {j + 1} of the {what} range"
+                if isinstance(value, (list, tuple, set, dict, np.ndarray)):
+                    raise InputError(f"{place} holds a list of values rather than one value; pass a plain range of cells")
+                raise InputError(f"{place} holds {cell_in_words(value)}; pass numbers, text, dates or TRUE/FALSE")
 
 
 @dataclass(frozen=True)
@@ -139,32 +170,123 @@ def numeric_frame(frame: pd.DataFrame) -> pd.DataFrame:
     return pd.DataFrame(out)
 
 
+NUMBERS_IN_TEXT = ("error", "point", "comma")  # the cell option numbers_in_text: refuse, or read with this decimal mark
+_POINT_NUMBER = re.compile(r"[+-]?(?:\d{1,3}(?:,\d{3})+|\d+)(?:\.\d*)?(?:[eE][+-]?\d+)?|[+-]?\.\d+(?:[eE][+-]?\d+)?")
+_COMMA_NUMBER = re.compile(r"[+-]?(?:\d{1,3}(?:\.\d{3})+|\d+)(?:,\d*)?|[+-]?,\d+")
+_GROUP_SPACE = re.compile(r"(?<=\d)[ \u00a0\u202f](?=\d{3}(?!\d))")  # 1 234: a space between digit groups
+
+
+def number_from_text(text: str, decimal_mark: str) -> float | None:
+    """A number typed as text, read with ``decimal_mark`` 'point' (1,234.5) or 'comma' (1.234,5); None if it is not one.
+
+    >>> number_from_text("12%", "point"), number_from_text("1,234", "point"), number_from_text("32,1", "comma")
+    (0.12, 1234.0, 32.1)
+    """
+    body = text.strip()
+    percent = body.endswith("%")
+    if percent:
+        body = body[:-1].rstrip()
+    body = _GROUP_SPACE.sub("", body)
+    if decimal_mark == "point":
+        if not _POINT_NUMBER.fullmatch(body):
+            return None
+        number = float(body.replace(",", ""))
+    else:
+        if not _COMMA_NUMBER.fullmatch(body):
+            return None
+        number = float(body.replace(".", "").replace(",", "."))
+    return number / 100 if percent else number
+
+
+def _reads_as_number(text: str) -> bool:
+    return number_from_text(text, "point") is not None or number_from_text(text, "comma") is not None
+
+
+def read_numbers_in_text(table: SheetTable, columns: Sequence[str], mode: str, fix: str) -> SheetTable:
+    """The table with numbers typed as text in ``columns`` read as numbers (mode point or comma), or refused (mode error).
+
+    A column counts as numbers typed as text when every text in it (spreadsheet
+    error values aside) reads as a number, such as '12%', '1,234', '32,1' or
+    '1 234'. Mode error refuses the first such cell with ``fix`` as the advice;
+    otherwise each text is read with the mode's decimal mark, and a text that
+    only reads with the other mark is refused. Columns holding other text are
+    left as they are. ``{column}`` in ``fix`` becomes the column's name.
+    """
+    replaced: dict[str, pd.Series] = {}
+    for name in columns:
+        values = table.column(name)
+        if values.dtype.kind == "f":
+            continue
+        texts = [(k, v) for k, v in enumerate(values) if isinstance(v, str) and v.upper() not in ERROR_VALUES]
+        if not texts or not all(_reads_as_number(v) for _, v in texts):
+            continue
+        if mode == "error":
+            k, value = texts[0]
+            raise BadValueError(name, k + 1, value, "a number typed as text", fix.replace("{column}", name), range_row(int(table.data_rows[k])))
+        read = list(values)
+        for k, value in texts:
+            number = number_from_text(value, mode)
+            if number is None:
+                other = "comma" if mode == "point" else "point"
+                raise BadValueError(
+                    name, k + 1, value, f"this text reads as a number only with a decimal {other}",
+                    f"type it with a decimal {mode} like the rest of the column, or use the setting numbers_in_text={other} if the column is written that way",
+                    range_row(int(table.data_rows[k])),
+                )
+            read[k] = number
+        replaced[name] = pd.Series(read, dtype=object, index=values.index)
+    if not replaced:
+        return table
+    frame = table.frame.assign(**replaced)
+    return SheetTable(frame, table.data_rows, table.n_rows)
+
+
+def range_row(data_row: int) -> int:
+    """A data row (0 = the first below the header) as the user counts it in the range: the header is row 1."""
+    return data_row + 2
+
+
 def row_label(data_row: int) -> str:
     """How the user sees a data row: the header is row 1 of the table."""
-    return f"row {data_row + 2} of the table"
+    return f"row {range_row(data_row)} of the table"
+
+
+HIDDEN_FIX = "write the widths of the hidden layers like 8 or 8,4 (0 or none for no hidden layer)"
 
 
 def parse_hidden(value: Any) -> tuple[int, ...]:
-    """``8``, ``"8"``, ``"8,4"`` or ``"8 4"`` as hidden layer widths; blank means one layer of 4."""
+    """``8``, ``"8"``, ``"8,4"``, ``"8; 4"`` or ``"8 4"`` as hidden layer widths; blank means one layer of 4.
+
+    An empty place (``8,,4``), a zero inside a list, a fraction or a negative width is refused
+    rather than guessed: ``8,,4`` may be a typing slip for ``8,16,4``.
+    """
     if is_blank(value):
         return (4,)
-    if isinstance(value, (int, float)) and not isinstance(value, bool):
-        widths = [value]
-    else:
-        text = str(value).replace(";", ",").replace(" ", ",")
-        if text.strip(",").strip() in ("0", "none"):
+    if isinstance(value, bool):
+        raise SettingError(f"hidden layers got {cell_in_words(value)}; {HIDDEN_FIX}")
+    if isinstance(value, (int, float, np.number)):
+        parts = [float(value)]
+        if parts[0] == 0:
             return ()
+    else:
+        text = str(value).strip()
+        if text.lower() in ("0", "none"):
+            return ()
+        pieces = re.split(r"\s*[,;]\s*", text) if re.search(r"[,;]", text) else text.split()
+        if any(not piece for piece in pieces):
+            raise SettingError(f"hidden layers {cell_in_words(value)} have an empty place between separators; {HIDDEN_FIX}")
         try:
-            widths = [float(part) for part in text.split(",") if part.strip()]
+            parts = [float(piece) for piece in pieces]
         except ValueError:
-            raise SettingError(f"hidden layers '{value}' are not numbers; write widths like 8 or 8,4") from None
-    result = []
-    for width in widths:
-        if width != int(width) or width < 0:
-            raise SettingError(f"hidden layers '{value}' must be whole numbers like 8 or 8,4")
-        if width > 0:
-            result.append(int(width))
-    return tuple(result)
+            raise SettingError(f"hidden layers {cell_in_words(value)} are not numbers; {HIDDEN_FIX}") from None
+    if len(parts) > MAX_LAYERS:
+        raise SettingError(f"hidden layers {cell_in_words(value)} ask for {len(parts)} layers, more than the {MAX_LAYERS} sheetnet trains; {HIDDEN_FIX}")
+    for width in parts:
+        if not math.isfinite(width) or width != int(width) or width < 1:
+            raise SettingError(
+                f"hidden layers {cell_in_words(value)} hold the width {cell_in_words(width)}; every width must be a whole number of 1 or more: {HIDDEN_FIX}"
+            )
+    return tuple(int(width) for width in parts)
 
 
 def parse_settings(value: Any) -> dict[str, Any]:

@@ -4,8 +4,10 @@ Definitions follow the usual textbook forms (and agree with
 ``sklearn.metrics``, which the tests check):
 
 - RMSE ``sqrt(mean((y - p)^2))``; MAE ``mean(|y - p|)``; MAPE
-  ``mean(|y - p| / |y|)`` as a share (only when no actual value is 0);
-  R^2 ``1 - SS_res / SS_tot``.
+  ``mean(|y - p| / |y|)`` as a share, left out (None, with the reason from
+  `mape_left_out_reason`) when an actual value is 0, the actual values cross
+  zero, or some lie near zero against the typical size, where percentage
+  errors are undefined or explode; R^2 ``1 - SS_res / SS_tot``.
 - Accuracy; balanced accuracy (mean recall over classes); precision, recall
   and F1 per class (0 where undefined); ROC AUC for two classes (Mann-Whitney
   form, ties counted half); log-loss (mean negative log probability of the
@@ -22,6 +24,7 @@ from typing import Any, Sequence
 import numpy as np
 from scipy.stats import rankdata
 
+from .cell_text import number_in_words
 from .errors import InputError
 
 
@@ -45,10 +48,35 @@ def mae(actual: Any, predicted: Any) -> float:
     return float(np.mean(np.abs(a - p)))
 
 
-def mape(actual: Any, predicted: Any) -> float | None:
-    """Mean absolute percentage error as a share (0.1 is 10 %); None when an actual value is 0."""
-    a, p = _pair(actual, predicted)
+NEAR_ZERO_SHARE = 0.01  # an actual value below this share of the mean absolute actual value counts as near zero
+ROC_AUC_LEFT_OUT = "the scored rows hold only one of the two classes, so there is no ranking of one against the other to measure"
+
+
+def mape_left_out_reason(actual: Any) -> str | None:
+    """Why MAPE is not meaningful for these actual values, or None when it is."""
+    a = np.asarray(actual, dtype=np.float64).ravel()
+    size = np.abs(a)
     if np.any(a == 0):
+        return "an actual value is 0, where a percentage error is undefined; use MAE or RMSE"
+    if a.min() < 0 < a.max():
+        return "the actual values cross zero, so percentage errors are not comparable and explode near 0; use MAE or RMSE"
+    typical = float(size.mean())
+    if size.min() < NEAR_ZERO_SHARE * typical:
+        return (
+            f"some actual values lie near 0 (the smallest size is {_rounded(size.min())}, against a typical size of {_rounded(typical)}), "
+            "where percentage errors explode; use MAE or RMSE"
+        )
+    return None
+
+
+def _rounded(value: float) -> str:
+    return number_in_words(float(f"{value:.3g}"))
+
+
+def mape(actual: Any, predicted: Any) -> float | None:
+    """Mean absolute percentage error as a share (0.1 is 10 %); None when `mape_left_out_reason` has a reason."""
+    a, p = _pair(actual, predicted)
+    if mape_left_out_reason(a) is not None:
         return None
     return float(np.mean(np.abs(a - p) / np.abs(a)))
 

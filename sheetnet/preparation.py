@@ -20,6 +20,7 @@ from typing import Any, Sequence
 
 import numpy as np
 
+from .cell_text import ERROR_VALUES, cell_in_words, label_in_words, labels_in_words, number_in_words
 from .errors import (
     BadValueError,
     ConstantColumnError,
@@ -29,14 +30,9 @@ from .errors import (
     UnknownCategoryError,
     UnknownColumnError,
 )
+from .limits import MAX_NUMBER, check_class_count
 
-# spreadsheet error values as they reach Python in text form
-SPREADSHEET_ERRORS = frozenset(
-    {
-        "#N/A", "#VALUE!", "#REF!", "#DIV/0!", "#NUM!", "#NAME?", "#NULL!", "#SPILL!",
-        "#CALC!", "#GETTING_DATA", "#FIELD!", "#BLOCKED!", "#CONNECT!", "#BUSY!", "#UNKNOWN!",
-    }
-)
+SPREADSHEET_ERRORS = ERROR_VALUES  # spreadsheet error values as they reach Python in text form
 MAX_CLASSES_FOR_NUMBERS = 10  # integer targets with at most this many values are classes
 
 
@@ -129,6 +125,12 @@ def _bad_cell(column: str, row: int, value: Any, kind: str, numeric: bool) -> Ba
         )
     if kind == "infinite":
         return BadValueError(column, row, value, "the value is infinite", "replace it with a finite number or remove the row")
+    if kind == "huge":
+        return BadValueError(
+            column, row, value, "the number is too large to work with",
+            f"sheetnet takes numbers up to {number_in_words(MAX_NUMBER)} in size: check the cell, or if the column really holds "
+            "such sizes, rescale it (for example divide it by a power of ten or take its logarithm)",
+        )
     if numeric:
         return BadValueError(column, row, value, "text in a numeric column", "type a number, or clear the text and remove the row")
     return BadValueError(column, row, value, "a number in a text column", "type the category as text")
@@ -143,6 +145,10 @@ def numbers_of(column: str, values: np.ndarray) -> np.ndarray:
             row = int(np.argmin(finite))
             kind = "blank" if np.isnan(numbers_[row]) else "infinite"
             raise _bad_cell(column, row + 1, numbers_[row], kind, True)
+        huge = np.abs(numbers_) > MAX_NUMBER
+        if huge.any():
+            row = int(np.argmax(huge))
+            raise _bad_cell(column, row + 1, numbers_[row], "huge", True)
         return numbers_
     result = np.empty(len(values), dtype=np.float64)
     for i, value in enumerate(values):
@@ -152,6 +158,8 @@ def numbers_of(column: str, values: np.ndarray) -> np.ndarray:
         result[i] = float(value)
         if not math.isfinite(result[i]):
             raise _bad_cell(column, i + 1, value, "infinite", True)
+        if abs(result[i]) > MAX_NUMBER:
+            raise _bad_cell(column, i + 1, value, "huge", True)
     return result
 
 
@@ -248,8 +256,9 @@ class Preparation:
             where = {name: j for j, name in enumerate(table.names)}
             missing = [name for name in self.names if name not in where]
             if missing:
+                quoted = ", ".join(f"'{m}'" for m in missing)
                 raise UnknownColumnError(
-                    f"the table has no column named {', '.join(repr(m) for m in missing)}; "
+                    f"the table has no column named {quoted}; "
                     f"the model needs the columns {', '.join(self.names)}"
                 )
             return [table.columns[where[name]] for name in self.names]
@@ -330,16 +339,30 @@ def fit_preparation(table: RawTable, categories: Sequence[str] = ()) -> Preparat
             texts = texts_of(name, values)
             found = tuple(sorted(set(texts.tolist())))
             if len(found) < 2:
-                _warn_constant(name, repr(found[0]))
+                _warn_constant(name, label_in_words(found[0]))
             specs.append(CategoryInput(name, found))
         else:
             v = numbers_of(name, values)
             scale = float(v.std())
             if not scale > 0:
-                _warn_constant(name, f"{v[0]:g}")
+                _warn_constant(name, number_in_words(float(v[0])))
                 scale = 1.0  # the centred column is all zeros: it is carried but adds nothing
             specs.append(NumericInput(name, float(v.mean()), scale, float(v.min()), float(v.max())))
     return Preparation(tuple(specs), table.named)
+
+
+def planned_width(table: RawTable, categories: Sequence[str] = ()) -> int:
+    """How many network inputs `fit_preparation` will make of ``table`` (one per category of a text column), without raising.
+
+    Cheap enough to check sizes before anything large is allocated.
+    """
+    width = 0
+    for name, values in zip(table.names, table.columns):
+        if name in categories or looks_like_categories(values):
+            width += len({category_text(v) for v in values if _cell_kind(v) not in ("blank", "error")})
+        else:
+            width += 1
+    return width
 
 
 def _warn_constant(name: str, value: str) -> None:
@@ -458,31 +481,83 @@ def _looks_like_classes(values: np.ndarray) -> bool:
     return len(distinct) == 2 or (whole and len(distinct) <= MAX_CLASSES_FOR_NUMBERS and len(values) >= 5 * len(distinct))
 
 
+STRAY_TEXT_FIX = (
+    "type a number or clear the cell and remove the row; if the column holds classes rather than amounts, add the setting task=multiclass"
+)
+
+
+def _stray_text_in_numbers(y: np.ndarray) -> BadValueError | None:
+    """The first text cell of a target that is mostly numbers: a typing slip, not a class of its own."""
+    kinds = [_cell_kind(v) for v in y]
+    texts = kinds.count("text") + kinds.count("date")
+    if texts == 0 or kinds.count("number") <= texts:
+        return None
+    row = next(i for i, kind in enumerate(kinds) if kind in ("text", "date"))
+    problem = "text in a numeric column" if kinds[row] == "text" else "a date or time in a numeric column"
+    return BadValueError("target", row + 1, y[row], problem, STRAY_TEXT_FIX)
+
+
 def fit_target(y: np.ndarray, task: str = "auto") -> TargetPreparation:
     """Decide the task (unless given) and learn the target's scaling or classes.
 
     Auto: text, or exactly two distinct values, are classes (binary with two);
     whole numbers with at most 10 distinct values, each class averaging 5 rows
-    or more, are classes; anything else numeric is regression.
+    or more, are classes; anything else numeric is regression. A text cell in
+    a target that is mostly numbers is named as a bad cell rather than made a
+    class. `task_choice_in_words` explains the choice to the user.
     """
     numeric = y.dtype.kind in "fiub" or all(_cell_kind(v) == "number" for v in y)
+    if task == "auto" and not numeric:
+        stray = _stray_text_in_numbers(y)
+        if stray is not None:
+            raise stray
     if task == "regression" or (task == "auto" and numeric and not _looks_like_classes(numbers_of("target", y))):
         values = numbers_of("target", y)
         scale = float(values.std())
         if not scale > 0:
-            raise ConstantColumnError(f"the target holds the same value ({values[0]:g}) in every training row; there is nothing to learn")
+            raise ConstantColumnError(
+                f"the target holds the same value ({number_in_words(float(values[0]))}) in every training row; there is nothing to learn"
+            )
         return TargetPreparation("regression", float(values.mean()), scale)
     if y.dtype.kind == "f":
         numbers_of("target", y)  # a blank (NaN) or infinite label is named
     labels = _target_labels(y)
     classes = _sorted_labels(labels)
+    check_class_count(len(classes), labels_in_words(classes, most=5))
     if len(classes) < 2:
-        raise ConstantColumnError(f"the target holds the one class {classes[0]!r} in every training row; there is nothing to learn")
+        raise ConstantColumnError(f"the target holds the one class {cell_in_words(classes[0])} in every training row; there is nothing to learn")
     chosen = task if task != "auto" else ("binary" if len(classes) == 2 else "multiclass")
     if chosen == "binary" and len(classes) != 2:
         raise InputError(
-            f"task 'binary' needs two classes but the target has {len(classes)} ({', '.join(map(str, classes[:5]))}); use task 'multiclass'"
+            f"task 'binary' needs two classes but the target has {len(classes)} ({labels_in_words(classes, most=5)}); use task 'multiclass'"
         )
     if chosen == "multiclass" and len(classes) == 2:
         chosen = "binary"  # two classes are always one logistic output
     return TargetPreparation(chosen, classes=classes)
+
+
+def task_choice_in_words(task: str, setting: str, classes: Sequence[Any]) -> str:
+    """How the task was chosen and how to choose another, for ABOUT and the command line.
+
+    >>> task_choice_in_words("multiclass", "auto", [1, 2, 3, 4, 5]).split("; ")[-1]
+    'to predict them as numbers that keep their order (a rating or a count), add the setting task=regression'
+    """
+    if setting != "auto":
+        return f"{task}, as the setting task={setting} asked"
+    head = f"{task}, chosen automatically"
+    if task == "regression":
+        return (
+            f"{head}: the target holds numbers with more than {MAX_CLASSES_FOR_NUMBERS} different values, or fractions, "
+            "or too few rows per value to be classes; to treat its values as classes, add the setting task=multiclass"
+        )
+    numbers_ = _all_plain_numbers(classes)
+    shown = labels_in_words(classes, most=5)
+    if task == "binary":
+        override = "; to predict the values as numbers, add the setting task=regression" if numbers_ else ""
+        return f"{head}: the target holds two different values ({shown}), so the model tells which of the two applies{override}"
+    if numbers_:
+        return (
+            f"{head}: the target holds {len(classes)} different whole numbers ({shown}) with 5 rows or more each on average, "
+            "so they were read as classes; to predict them as numbers that keep their order (a rating or a count), add the setting task=regression"
+        )
+    return f"{head}: the target holds text with {len(classes)} different values ({shown}), so each value is a class"
