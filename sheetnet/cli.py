@@ -133,10 +133,10 @@ def _saved(book: Any, out: TextIO) -> None:
 def run_train(args: argparse.Namespace, out: TextIO) -> int:
     from . import functions, service
     from .workbook import open_book, read_range
-    from .workbook_models import results_sheet, store_model
+    from .workbook_models import check_storable, results_sheet, store_model
 
     book = open_book(args.book)
-    service.check_model_name(args.name)
+    check_storable(book, args.name, args.replace)
     table = read_range(book, args.table)
     request = service.TrainRequest(table, args.target, args.hidden, _settings_text(args.set), args.holdout, args.mode, args.seed, args.table)
     bar = ProgressLine(f"training {args.name}")

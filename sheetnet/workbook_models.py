@@ -19,8 +19,8 @@ from .formulas import formula_constants
 from .workbook import Book, _sheet, defined_name, model_names, read_model, read_range, split_reference
 
 
-def store_model(book: Book, name: str, block: list[list[Any]], replace: bool = False) -> str:
-    """Place a block on its hidden sheet under a workbook-level defined name; returns the reference."""
+def check_storable(book: Book, name: str, replace: bool = False) -> None:
+    """Refuse, before any training, a model name the workbook cannot take."""
     service.check_model_name(name)
     existing = defined_name(book, name)
     if existing is not None and existing.casefold() not in {m.casefold() for m in model_names(book)}:
@@ -32,6 +32,11 @@ def store_model(book: Book, name: str, block: list[list[Any]], replace: bool = F
         destinations = list(book.formulas.defined_names[other].destinations)
         if not service.same_title(other, name) and destinations and service.same_title(destinations[0][0], sheet):
             raise InputError(f"the model '{other}' already lives on the sheet '{sheet}'; choose a model name that differs in its first characters")
+
+
+def store_model(book: Book, name: str, block: list[list[Any]], replace: bool = False) -> str:
+    """Place a block on its hidden sheet under a workbook-level defined name; returns the reference."""
+    check_storable(book, name, replace)
     placements = service.model_placements(name, block, list(book.formulas.defined_names))
     book.log.add(placements)
     return placements.names[0].reference

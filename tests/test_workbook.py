@@ -83,7 +83,7 @@ def test_a_model_of_the_same_name_is_replaced_only_on_request(tmp_path, capsys):
     rows = _write_book(path)
     _train(path, rows)
     assert _train(path, rows) == 1
-    assert "already has a name 'grades'" in capsys.readouterr().err
+    assert "already has a model 'grades'" in capsys.readouterr().err
     assert _train(path, rows, "--replace", "--seed", "3") == 0
     assert openpyxl.load_workbook(path).sheetnames.count("sheetnet_grades") == 1
 
