@@ -14,16 +14,54 @@ or spilled arrays.
 
 The first layer reads the input cells one by one, so the table's columns may
 be in any order: ``b1' + x_1 * W1'[1, :] + ... `` with the input scaling
-folded into ``W1'`` and ``b1'``; each text input adds the row of its category,
-found by comparing the cell with the model's categories (a category the
-model never saw gives #N/A, as the engine refuses it). Text comparison in
-spreadsheets ignores case, so categories that differ only in case cannot be
-told apart by a native formula.
+folded into ``W1'`` and ``b1'``; each category input adds the row of its
+category.
+
+How a cell finds its category. The engine turns a cell into a category key
+with `preparation.category_text`: text loses the whitespace at its ends, a
+whole number reads without decimals (``3.0`` is ``'3'``), any other number as
+Python writes it (``2.5``, ``1e-07``), TRUE and FALSE as those words; blanks
+and error values are refused. Number-to-text conversion differs between
+spreadsheet engines (digits, decimal separator), so the formula never turns
+numbers into text. Instead each ``cats<i>`` constant has two rows
+(`category_cells`):
+
+* row 1, each key as a spreadsheet's TRIM would leave it (runs of inner
+  spaces made one), always written as text, so ``'=1+1'`` or ``'3'`` stay
+  texts;
+* row 2, the number the engine reads as that key (``'3'`` is 3, ``'2.5'`` is
+  2.5; `category_number`), or the key itself as text where no number reads as
+  it (``'north'``, ``'3.0'``, ``'007'``): a number never equals a text.
+
+The formula compares by the kind of the cell: a logical cell as the word
+TRUE or FALSE against row 1, a number against row 2, a text's TRIM against
+row 1; ``MATCH(1, hits, 0)`` picks the one matching key's first-layer row,
+and no match (a category the model never saw, a blank, an error value) gives
+#N/A, where the engine refuses the row.
+
+Numeric inputs: the engine refuses blanks, text and error values there,
+while a spreadsheet reads a blank as 0; so the whole formula is
+``IF(COUNT(x_1, ..., x_n)<n, NA(), ...)`` over the numeric input cells, and
+any cell that is not a number gives #N/A. (Excel does not count TRUE and
+FALSE, which the engine reads as 1 and 0, so those give #N/A there; a date
+is a number to a spreadsheet but refused by the engine.)
+
+Limits, because a spreadsheet compares its own way: texts compare ignoring
+case, TRIM shrinks inner runs of spaces, and numbers compare equal to about
+15 significant digits. Keys that collide so are all made unmatchable (a
+leading space in row 1, which no TRIMmed text has; the key's text in row 2),
+so a cell reading as one of them gives #N/A instead of a wrong category; a
+cell differing from a category only in case or inner spaces reads as it.
+TRIM keeps tabs, line breaks and non-breaking spaces at a text's ends (the
+engine strips them), so such cells give #N/A. A date is a number to a
+spreadsheet, so it never matches the text the engine makes of a date.
 """
 
 from __future__ import annotations
 
+import math
 import re
+from collections import Counter
 from dataclasses import dataclass
 from typing import Sequence
 
@@ -32,11 +70,13 @@ import numpy as np
 from .errors import ModelError
 from .model import Model
 from .network import unpack
-from .preparation import CategoryInput, NumericInput
+from .preparation import CategoryInput, NumericInput, category_text
 
 FORMULA_LIMIT = 8192  # characters, Excel's limit for one formula
 OUTPUTS = ("value", "class", "probabilities")
-ALLOWED_FUNCTIONS = frozenset({"MMULT", "INDEX", "TANH", "EXP", "ABS", "SUM", "MAX", "MATCH", "IF", "NA"})
+ALLOWED_FUNCTIONS = frozenset(
+    {"MMULT", "INDEX", "TANH", "EXP", "ABS", "SUM", "MAX", "MATCH", "IF", "NA", "ISLOGICAL", "ISNUMBER", "TRIM", "COUNT"}
+)
 
 
 class FormulaError(ModelError):
@@ -60,6 +100,40 @@ def name_prefix(model_name: str) -> str:
     return f"snf_{model_name}_"
 
 
+def category_number(key: str) -> float | None:
+    """The number a cell holds when the engine reads it as the category ``key``, if any.
+
+    >>> category_number("3"), category_number("2.5"), category_number("3.0"), category_number("north")
+    (3.0, 2.5, None, None)
+    """
+    try:
+        number = float(key)
+    except ValueError:
+        return None
+    if not math.isfinite(number) or category_text(number) != key:
+        return None  # '3.0', '007', '1e3', '3_000' and 'nan' are texts only: no number reads as them
+    return number
+
+
+def category_cells(categories: Sequence[str]) -> tuple[tuple[float | str, ...], ...]:
+    """A ``cats<i>`` constant: the keys as a spreadsheet compares texts, then the number each is read from.
+
+    Keys a spreadsheet cannot tell apart (differing only in case or inner
+    spaces, or numbers equal to 15 digits) are made unmatchable, so a cell
+    reading as any of them gives #N/A rather than the wrong category.
+
+    >>> category_cells(["3", "North", "a  b", "north"])
+    (('3', ' North', 'a b', ' north'), (3.0, 'North', 'a  b', 'north'))
+    """
+    texts = [re.sub(" +", " ", key) for key in categories]
+    numbers = [category_number(key) for key in categories]
+    folded = Counter(text.lower() for text in texts)
+    close = Counter(float(f"{n:.15g}") for n in numbers if n is not None)
+    row1 = tuple(" " + text if folded[text.lower()] > 1 else text for text in texts)  # TRIM never leaves a leading space
+    row2 = tuple(key if n is None or close[float(f"{n:.15g}")] > 1 else n for key, n in zip(categories, numbers))
+    return row1, row2
+
+
 def _rows(array: np.ndarray) -> tuple[tuple[float, ...], ...]:
     matrix = np.atleast_2d(np.asarray(array, dtype=np.float64))
     return tuple(tuple(float(v) for v in row) for row in matrix)
@@ -78,7 +152,7 @@ def formula_constants(model: Model, model_name: str) -> list[Constant]:
             numeric_rows.append(at)
         else:
             category_rows.append((index, spec))
-            constants.append(Constant(f"{prefix}cats{index + 1}", (tuple(spec.categories),)))
+            constants.append(Constant(f"{prefix}cats{index + 1}", category_cells(spec.categories)))
         at += spec.width
     means = np.array([s.mean for s in specs if isinstance(s, NumericInput)])
     scales = np.array([s.scale for s in specs if isinstance(s, NumericInput)])
@@ -124,6 +198,15 @@ def _activate(activation: str, x: str) -> str:
     raise FormulaError(f"the activation {activation!r} has no native formula")
 
 
+def _category_hits(cell: str, cats: str) -> str:
+    """A 1 x categories row of 1 where the cell reads as that category, else 0 (see the module docstring)."""
+    texts, numbers = f"INDEX({cats},1,0)", f"INDEX({cats},2,0)"
+    return (
+        f'--IF(ISLOGICAL({cell}),IF({cell},"TRUE","FALSE")={texts},'
+        f"IF(ISNUMBER({cell}),{cell}={numbers},TRIM({cell})={texts}))"
+    )
+
+
 def _member_output(model: Model, prefix: str, member: int, cells: dict[str, str]) -> str:
     """The output layer's pre-activation, a 1 x outputs array, as formula text."""
     terms = [f"{prefix}m{member}_b1"]
@@ -134,8 +217,8 @@ def _member_output(model: Model, prefix: str, member: int, cells: dict[str, str]
             numeric += 1
             terms.append(f"{cell}*INDEX({prefix}m{member}_W1n,{numeric},0)")
         else:
-            hits = f"--({cell}={prefix}cats{index + 1})"
-            terms.append(f"IF(SUM({hits})=0,NA(),MMULT({hits},{prefix}m{member}_W1c{index + 1}))")
+            hits = _category_hits(cell, f"{prefix}cats{index + 1}")
+            terms.append(f"INDEX({prefix}m{member}_W1c{index + 1},MATCH(1,{hits},0),0)")
     x = "+".join(terms)
     for layer in range(2, len(model.sizes)):
         x = f"MMULT({_activate(model.activation, x)},{prefix}m{member}_W{layer})+{prefix}m{member}_b{layer}"
@@ -181,6 +264,9 @@ def native_formula(model: Model, model_name: str, cells: dict[str, str], output:
             text = f"INDEX({prefix}classes,1,MATCH(MAX({outputs[0]}),{outputs[0]},0))"
         else:
             text = f"INDEX({prefix}classes,1,MATCH(MAX({vector}),{vector},0))"
+    numeric_cells = [cells[s.name] for s in model.preparation.inputs if isinstance(s, NumericInput)]
+    if numeric_cells:
+        text = f"IF(COUNT({','.join(numeric_cells)})<{len(numeric_cells)},NA(),{text})"
     formula = "=" + text
     if len(formula) > FORMULA_LIMIT:
         raise FormulaError(
