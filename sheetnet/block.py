@@ -11,7 +11,10 @@ corrupted, truncated, edited or future-version block gets a clear
 Layout: every row is ``[key, field, field, ...]`` padded to `WIDTH` cells. A
 row with a key starts a record; the rows below it with a blank key carry
 that record's numbers (up to ``WIDTH - 1`` per row). Numbers are stored
-rounded to 15 significant digits, which every spreadsheet keeps exactly.
+rounded to 15 significant digits, which every spreadsheet keeps exactly;
+settings, the arguments as given and class labels as a kind and an exact
+text. Writing refuses (`ModelError`) what a spreadsheet could not give back
+exactly, so a written block never reads back as damaged.
 """
 
 from __future__ import annotations
@@ -25,6 +28,7 @@ from typing import Any, Mapping, Sequence
 
 import numpy as np
 
+from . import network
 from .errors import ModelError
 from .model import FORMAT_VERSION, Member, Model
 from .network import ACTIVATIONS, parameter_count
@@ -82,7 +86,10 @@ def _typed_fields(value: Any, what: str) -> tuple[str, str]:
     if isinstance(value, (bool, np.bool_)):
         return ("bool", "TRUE" if value else "FALSE")
     if isinstance(value, (int, np.integer)):
-        return ("int", str(int(value)))
+        try:
+            return ("int", str(int(value)))
+        except ValueError:  # beyond Python's limit on digits of an int as text
+            raise ModelError(f"the model cannot be stored: {what} is a whole number of thousands of digits; give a smaller number and train again") from None
     if isinstance(value, (float, np.floating)):
         if not math.isfinite(float(value)):
             raise ModelError(f"the model cannot be stored: {what} is {float(value)!r}, not a finite number; give a finite number and train again")
@@ -170,6 +177,8 @@ def _canonical(value: Any) -> str:
     if isinstance(value, bool):
         return "b:" + ("1" if value else "0")
     if isinstance(value, (int, float, np.integer, np.floating)):
+        if not _finite_number(value) and isinstance(value, (int, np.integer)):
+            return "n:too large"  # no block holds one (writing refuses it); a forged one must not crash the check
         text = f"{float(value):.15g}"
         return "0" if text == "-0" else text
     return "s:" + str(value)
@@ -199,9 +208,59 @@ def _rows_of(record: Record) -> list[list[Any]]:
     return rows
 
 
+CELL_TEXT_LIMIT = 32_767  # characters a spreadsheet cell holds; longer texts are cut when the file is saved
+WHOLE_LIMIT = 10**15  # whole numbers in numeric cells: beyond 15 digits a spreadsheet does not keep them exactly
+LARGEST_STORED = 1.79769313486231e308  # the largest magnitude whose 15-digit rounding is still finite
+
+_SCALE_DOWN = "divide that column by a power of ten (amounts in millions, say) and train again"
+_STEADIER = "scale the columns down, or lower the setting 'rate' or raise 'decay', and train again"
+
+
+def _what_is_stored(record: Record) -> tuple[str, str]:
+    """What a record holds, in the user's words, and what to do when it cannot be stored."""
+    first = record.fields[0] if record.fields else ""
+    network = f"network {int(first) + 1}" if isinstance(first, (int, np.integer)) else "a network"
+    return {
+        "network": ("the seed or the layer sizes", "use a seed of at most 15 digits"),
+        "source": ("the split's holdout share or seed", "use a split seed of at most 15 digits"),
+        "input": (f"the scaling of input '{first}'", _SCALE_DOWN),
+        "target_scaling": ("the scaling of the target", _SCALE_DOWN.replace("that column", "the target column")),
+        "holdout_metric": (f"the holdout metric '{first}'", _SCALE_DOWN.replace("that column", "the target column")),
+        "curve": (f"the loss curve of {network}", _STEADIER),
+        "weights": (f"the weights of {network}", _STEADIER),
+        "member": (f"the training record of {network}", "train again"),
+    }.get(record.key, (f"the block's '{record.key}' row", "train again"))
+
+
+def _check_storable(record: Record) -> None:
+    """Refuse a record a spreadsheet could not give back exactly, rather than write a block that reads as damaged."""
+    why = ""
+    for value in (*record.fields, *record.numbers):
+        if isinstance(value, str):
+            if len(value) > CELL_TEXT_LIMIT:
+                why = f"a text of {len(value):,} characters, more than the {CELL_TEXT_LIMIT:,} a cell holds"
+        elif isinstance(value, (int, np.integer)) and not isinstance(value, (bool, np.bool_)):
+            if abs(int(value)) >= WHOLE_LIMIT:
+                why = f"the whole number {int(value)}, longer than the 15 digits a spreadsheet keeps exactly"
+        elif isinstance(value, (float, np.floating)) and not math.isfinite(float(value)):
+            why = (
+                "a number that is infinite, not a number, or too large to keep once rounded to the 15 digits "
+                f"a spreadsheet keeps (the largest is about {LARGEST_STORED:.15g})"
+            )
+        if why:
+            what, advice = _what_is_stored(record)
+            raise ModelError(f"the model cannot be stored in a block: {what} holds {why}; {advice}")
+
+
 def encode_block(model: Model, info: BlockInfo) -> list[list[Any]]:
-    """The model as a block of cells, ``WIDTH`` wide, ending in its checksum row."""
+    """The model as a block of cells, ``WIDTH`` wide, ending in its checksum row.
+
+    Raises `ModelError` when a value could not come back from a spreadsheet
+    exactly (see `_check_storable`): such a block would later read as damaged.
+    """
     records = model_records(model, info)
+    for record in records:
+        _check_storable(record)
     rows = [row for record in records for row in _rows_of(record)]
     rows.append(["checksum", checksum(records)] + [""] * (WIDTH - 2))
     return rows
@@ -231,8 +290,10 @@ def _records_of(grid: list[list[Any]]) -> tuple[list[Record], str | None]:
             for value in row[1:]:
                 if _blank(value):
                     continue
-                if isinstance(value, bool) or not isinstance(value, (int, float)):
-                    raise BlockError(f"row {i + 1} of the model block holds {value!r} where a number belongs; the block was edited: restore it or train again")
+                if not _finite_number(value):
+                    raise BlockError(
+                        f"row {i + 1} of the model block holds {_shown(value)} where a finite number belongs; the block was edited: restore it or train again"
+                    )
                 numbers.append(float(value))
             continue
         if current is not None:
@@ -254,25 +315,71 @@ def _records_of(grid: list[list[Any]]) -> tuple[list[Record], str | None]:
     return records, stored
 
 
+def _shown(value: Any) -> str:
+    """A cell's value for a message: texts quoted and cut short, numbers as written."""
+    if isinstance(value, str):
+        return f"'{value[:40]}'" + ("..." if len(value) > 40 else "")
+    if value is None:
+        return "blank"
+    return str(value)[:40]
+
+
+def _damaged(what: str) -> BlockError:
+    return BlockError(f"the model block's {what}; it is damaged: train the model again")
+
+
+def _finite_number(value: Any) -> bool:
+    """A cell holding a finite number (a whole number too large for a float is not one)."""
+    if isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, float, np.integer, np.floating)):
+        return False
+    try:
+        return math.isfinite(float(value))
+    except OverflowError:
+        return False
+
+
 def _number(value: Any, what: str) -> float:
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(float(value)):
-        raise BlockError(f"the model block's {what} is {value!r}, not a number; the block is damaged: train again")
+    if not _finite_number(value):
+        raise _damaged(f"{what} is {_shown(value)}, not a finite number")
     return float(value)
+
+
+def _whole(value: Any, what: str, low: int = 0, high: float = WHOLE_LIMIT) -> int:
+    number = _number(value, what)
+    if not number.is_integer() or not low <= number <= high:
+        limits = f"from {low:,} to {int(high):,}" if high < WHOLE_LIMIT else f"of {low:,} or more"
+        raise _damaged(f"{what} is {_shown(value)}, not a whole number {limits}")
+    return int(number)
+
+
+def _text(value: Any, what: str) -> str:
+    if not isinstance(value, str):
+        raise _damaged(f"{what} is {_shown(value)}, not a text")
+    return value
+
+
+def _fields(record: Record, count: int) -> tuple[Any, ...]:
+    """Exactly ``count`` fields (empty ones at the end were trimmed as padding)."""
+    if len(record.fields) > count:
+        raise _damaged(f"'{record.key}' row holds {len(record.fields)} cells after its key where it has {count}")
+    return record.fields + (None,) * (count - len(record.fields))
 
 
 def decode_block(cells: Any) -> tuple[Model, BlockInfo]:
     """Read a block back into a model; every failure is a `BlockError` that says what to do."""
     if isinstance(cells, np.ndarray):
         cells = cells.tolist()
-    if not isinstance(cells, (list, tuple)) or not cells or not isinstance(cells[0], (list, tuple)):
+    if not isinstance(cells, (list, tuple)) or not cells or not all(isinstance(row, (list, tuple)) for row in cells) or not cells[0]:
         raise BlockError("the model argument is not a model block; pass the range SHEETNET.TRAIN returned (or the model's name)")
     width = max(len(r) for r in cells)
     grid = [list(r) + [None] * (width - len(r)) for r in cells]
     if grid[0][0] != MAGIC:
-        raise BlockError(f"the model argument is not a sheetnet model block (its first cell is {grid[0][0]!r}); pass the whole block SHEETNET.TRAIN returned")
-    version = grid[0][1] if width > 1 else None
-    if isinstance(version, bool) or not isinstance(version, (int, float)) or not math.isfinite(version) or version != int(version) or version < 1:
-        raise BlockError(f"the model block's format version is {version!r}; the block is damaged: train again")
+        raise BlockError(
+            f"the model argument is not a sheetnet model block (its first cell is {_shown(grid[0][0])}); pass the whole block SHEETNET.TRAIN returned"
+        )
+    version: Any = grid[0][1] if width > 1 else None
+    if not _finite_number(version) or version != int(version) or version < 1:
+        raise BlockError(f"the model block's format version is {_shown(version)}; the block is damaged: train again")
     if int(version) > FORMAT_VERSION:
         raise BlockError(
             f"the model block was written by a newer sheetnet (format {int(version)}; this one reads up to {FORMAT_VERSION}); upgrade sheetnet to use it"
@@ -284,8 +391,8 @@ def decode_block(cells: Any) -> tuple[Model, BlockInfo]:
         raise BlockError("the model block was changed after training (its checksum does not match); undo the change, or train the model again")
     try:
         return _model_of(records, int(version))
-    except (KeyError, IndexError, TypeError, ValueError) as error:
-        raise BlockError(f"the model block is damaged ({error}); train the model again") from None
+    except (KeyError, IndexError, TypeError, ValueError, ArithmeticError) as error:  # a safety net: the checks above name the usual faults
+        raise BlockError(f"the model block is damaged (its rows do not fit together: {type(error).__name__}); train the model again") from None
 
 
 def _model_of(records: list[Record], version: int) -> tuple[Model, BlockInfo]:
@@ -293,86 +400,152 @@ def _model_of(records: list[Record], version: int) -> tuple[Model, BlockInfo]:
     for record in records:
         by_key.setdefault(record.key, []).append(record)
 
-    def one(key: str) -> Record:
+    def one(key: str, count: int) -> tuple[Any, ...]:
         found = by_key.get(key, [])
         if len(found) != 1:
             raise BlockError(f"the model block has {len(found)} '{key}' rows where it needs one; it is damaged: train again")
-        return found[0]
+        return _fields(found[0], count)
 
-    activation, algorithm, seed, depth = one("network").fields
+    activation, algorithm, seed, depth = one("network", 4)
     if activation not in ACTIVATIONS:
-        raise BlockError(f"the model block names an activation {activation!r} this sheetnet does not know; upgrade sheetnet or train again")
-    sizes = tuple(int(v) for v in one("network").numbers)
-    if len(sizes) != int(depth) or len(sizes) < 2 or min(sizes) < 1:
-        raise BlockError("the model block's layer sizes are inconsistent; it is damaged: train again")
-    target_name, task = one("target").fields
+        raise BlockError(f"the model block names an activation {_shown(activation)} this sheetnet does not know; upgrade sheetnet or train again")
+    numbers = by_key["network"][0].numbers
+    depth = _whole(depth, "number of layers", 2, max(len(numbers), 2))
+    sizes = tuple(_whole(v, "layer size", 1) for v in numbers)
+    if len(sizes) != depth:
+        raise _damaged(f"layer sizes ({len(sizes)}) do not match its number of layers ({depth})")
+    target_name, task = one("target", 2)
     settings = _settings_of(by_key.get("setting", []), version)
-    given = {str(r.fields[0]): _typed_value(*_kind_and_text(r), f"the argument '{r.fields[0]}'") for r in by_key.get("given", [])}
+    given = {
+        _text(r.fields[0], "name of an argument"): _typed_value(*_kind_and_text(r), f"the argument {_shown(r.fields[0])}") for r in by_key.get("given", [])
+    }
+    preparation = _preparation_of(by_key)
 
-    categories: dict[str, list[str]] = {}
-    for r in by_key.get("category", []):
-        categories.setdefault(str(r.fields[0]), []).append(str(r.fields[1]))
-    inputs: list[NumericInput | CategoryInput] = []
-    for r in by_key.get("input", []):
-        name, role = str(r.fields[0]), r.fields[1]
-        if role == "number":
-            mean, scale, low, high = (_number(v, f"scaling of input '{name}'") for v in r.numbers)
-            if not scale > 0:
-                raise BlockError(f"the model block's scale of input '{name}' is not positive; it is damaged: train again")
-            inputs.append(NumericInput(name, mean, scale, low, high))
-        elif role == "category":
-            found = tuple(categories.get(name, []))
-            if len(found) != int(r.fields[2]):
-                raise BlockError(f"the model block lists {len(found)} categories of '{name}' but records {r.fields[2]}; it is damaged: train again")
-            inputs.append(CategoryInput(name, found))
-        else:
-            raise BlockError(f"the model block's input '{name}' has an unknown role {role!r}; it is damaged: train again")
-    preparation = Preparation(tuple(inputs), named=True)
-
-    classes = tuple(_class_label(r) for r in sorted(by_key.get("class", []), key=lambda r: int(r.fields[0])))
+    class_rows = sorted(((_whole(r.fields[0], "class index"), r) for r in by_key.get("class", [])), key=lambda pair: pair[0])
+    if [index for index, _ in class_rows] != list(range(len(class_rows))):
+        raise _damaged("class rows are not numbered 0, 1, 2, ... once each")
+    classes = tuple(_class_label(r) for _, r in class_rows)
+    if len(set(classes)) != len(classes) or len({type(c) for c in classes}) > 1:
+        raise _damaged("class labels repeat or mix kinds")
     if task == "regression":
-        mean, scale = (_number(v, "target scaling") for v in one("target_scaling").numbers)
+        if classes:
+            raise _damaged("regression model lists classes")
+        mean, scale = (_number(v, "target scaling") for v in _exactly(by_key, "target_scaling", 2))
+        if not scale > 0:
+            raise _damaged("target scale is not positive")
         target = TargetPreparation("regression", mean, scale)
     elif task in ("binary", "multiclass"):
+        if (task == "binary") != (len(classes) == 2) or len(classes) < 2:
+            raise _damaged(f"{task} model lists {len(classes)} classes")
         target = TargetPreparation(str(task), classes=classes)
     else:
-        raise BlockError(f"the model block's task {task!r} is not known to this sheetnet; upgrade sheetnet or train again")
+        raise BlockError(f"the model block's task {_shown(task)} is not known to this sheetnet; upgrade sheetnet or train again")
     if preparation.width != sizes[0] or target.outputs != sizes[-1]:
         raise BlockError("the model block's inputs or outputs do not match its layer sizes; it is damaged: train again")
 
-    curves = {(int(r.fields[0]), str(r.fields[1])): r.numbers for r in by_key.get("curve", [])}
-    weights = {int(r.fields[0]): r for r in by_key.get("weights", [])}
-    members = []
-    for r in sorted(by_key.get("member", []), key=lambda r: int(r.fields[0])):
-        index, stopped_by, epochs, best_epoch = int(r.fields[0]), str(r.fields[1]), int(r.fields[2]), int(r.fields[3])
-        w = weights.get(index)
-        if w is None or int(w.fields[1]) != parameter_count(sizes) or len(w.numbers) != parameter_count(sizes):
-            raise BlockError(f"the model block's weights of network {index + 1} are missing or cut short; select the whole block, or train again")
-        theta = np.array(w.numbers, dtype=np.float64)
-        if not np.isfinite(theta).all():
-            raise BlockError("the model block holds a weight that is not a finite number; it is damaged: train again")
-        theta.setflags(write=False)
-        training_epochs, training_curve = _curve_of(curves.get((index, "training"), ()), epochs, f"training curve of network {index + 1}")
-        validation_epochs, validation_curve = _curve_of(curves.get((index, "validation"), ()), epochs, f"validation curve of network {index + 1}")
-        members.append(Member(theta, stopped_by, epochs, training_curve, validation_curve, best_epoch, training_epochs, validation_epochs))
-    if not members:
-        raise BlockError("the model block holds no trained network; it is damaged: train again")
-
-    model = Model(preparation, target, sizes, str(activation), tuple(members), str(algorithm), MappingProxyType(settings), int(seed), version)
-    training_rows, holdout_rows = (int(v) for v in one("rows").fields)
+    members = _members_of(by_key, sizes)
+    _check_folding(preparation, members, sizes)
+    algorithm = _text(algorithm, "algorithm")
+    model = Model(preparation, target, sizes, str(activation), members, algorithm, MappingProxyType(settings), _whole(seed, "seed"), version)
+    training_rows, holdout_rows = (_whole(v, "row count") for v in one("rows", 2))
+    trained_at, written_by, fingerprint, blank_rows = one("trained_at", 1)[0], one("written_by", 1)[0], one("fingerprint", 1)[0], one("blank_rows", 1)[0]
+    metrics = {}
+    for r in by_key.get("holdout_metric", []):
+        name, value = _fields(r, 2)
+        metrics[_text(name, "name of a holdout metric")] = _number(value, f"holdout metric {_shown(name)}")
     info = BlockInfo(
-        target=str(target_name),
-        trained_at=str(one("trained_at").fields[0]),
-        written_by=str(one("written_by").fields[0]),
-        fingerprint=str(one("fingerprint").fields[0]),
+        target=_text(target_name, "target name"),
+        trained_at=_text(trained_at, "time of training"),
+        written_by=_text(written_by, "version that wrote it"),
+        fingerprint=_text(fingerprint, "fingerprint"),
         training_rows=training_rows,
         holdout_rows=holdout_rows,
-        holdout_metrics={str(r.fields[0]): float(r.fields[1]) for r in by_key.get("holdout_metric", [])},
-        blank_rows=str(one("blank_rows").fields[0]),
+        holdout_metrics=metrics,
+        blank_rows=_text(blank_rows, "'blank_rows' row"),
         source=_source_of(by_key.get("source", [])),
         given=MappingProxyType(given),
     )
     return model, info
+
+
+def _exactly(by_key: dict[str, list[Record]], key: str, count: int) -> tuple[float, ...]:
+    found = by_key.get(key, [])
+    if len(found) != 1 or len(found[0].numbers) != count:
+        raise _damaged(f"'{key}' row is missing, repeated, or does not hold {count} numbers")
+    return found[0].numbers
+
+
+def _preparation_of(by_key: dict[str, list[Record]]) -> Preparation:
+    categories: dict[str, list[str]] = {}
+    for r in by_key.get("category", []):
+        name, category = _fields(r, 2)
+        categories.setdefault(_text(name, "input of a category"), []).append(_text("" if category is None else category, f"a category of {_shown(name)}"))
+    inputs: list[NumericInput | CategoryInput] = []
+    for r in by_key.get("input", []):
+        name, role, count = _fields(r, 3)
+        name = _text(name, "name of an input")
+        if role == "number":
+            if len(r.numbers) != 4:
+                raise _damaged(f"scaling of input {_shown(name)} does not hold 4 numbers (mean, scale, low, high)")
+            mean, scale, low, high = (_number(v, f"scaling of input {_shown(name)}") for v in r.numbers)
+            if not scale > 0:
+                raise _damaged(f"scale of input {_shown(name)} is not positive")
+            inputs.append(NumericInput(name, mean, scale, low, high))
+        elif role == "category":
+            found = tuple(categories.get(name, []))
+            if len(found) != _whole(count, f"number of categories of {_shown(name)}", 1) or len(set(found)) != len(found):
+                raise _damaged(f"categories of {_shown(name)} ({len(found)} listed) do not match its count {_shown(count)} or repeat")
+            inputs.append(CategoryInput(name, found))
+        else:
+            raise _damaged(f"input {_shown(name)} has an unknown role {_shown(role)}")
+    if len({spec.name for spec in inputs}) != len(inputs):
+        raise _damaged("inputs repeat a name")
+    return Preparation(tuple(inputs), named=True)
+
+
+def _members_of(by_key: dict[str, list[Record]], sizes: tuple[int, ...]) -> tuple[Member, ...]:
+    count = parameter_count(sizes)
+    weights: dict[int, Record] = {}
+    for r in by_key.get("weights", []):
+        weights.setdefault(_whole(r.fields[0] if r.fields else None, "network index of a weights row"), r)
+    curves: dict[tuple[int, str], tuple[float, ...]] = {}
+    for r in by_key.get("curve", []):
+        index, kind = _fields(r, 2)
+        if kind not in ("training", "validation") or curves.setdefault((_whole(index, "network index of a curve"), kind), r.numbers) is not r.numbers:
+            raise _damaged(f"curve row for network {_shown(index)}, {_shown(kind)}, is unknown or repeated")
+    rows = sorted(((_whole(r.fields[0] if r.fields else None, "network index"), r) for r in by_key.get("member", [])), key=lambda pair: pair[0])
+    if not rows:
+        raise BlockError("the model block holds no trained network; it is damaged: train again")
+    if [index for index, _ in rows] != list(range(len(rows))) or len(weights) != len(rows):
+        raise _damaged("networks are not numbered 1, 2, 3, ... once each, each with one weights row")
+    members = []
+    for index, r in rows:
+        _, stopped_by, epochs, best_epoch = _fields(r, 4)
+        epochs = _whole(epochs, f"number of epochs of network {index + 1}", 1)
+        best_epoch = _whole(best_epoch, f"kept epoch of network {index + 1}", 1, epochs)
+        w = weights.get(index)
+        if w is None or len(w.fields) != 2 or w.fields[1] != count or len(w.numbers) != count:
+            raise BlockError(f"the model block's weights of network {index + 1} are missing or cut short; select the whole block, or train again")
+        theta = np.array(w.numbers, dtype=np.float64)
+        theta.setflags(write=False)
+        training_epochs, training_curve = _curve_of(curves.get((index, "training"), ()), epochs, f"training curve of network {index + 1}")
+        validation_epochs, validation_curve = _curve_of(curves.get((index, "validation"), ()), epochs, f"validation curve of network {index + 1}")
+        members.append(
+            Member(theta, _text(stopped_by, "stopping rule"), epochs, training_curve, validation_curve, best_epoch, training_epochs, validation_epochs)
+        )
+    return tuple(members)
+
+
+def _check_folding(preparation: Preparation, members: tuple[Member, ...], sizes: tuple[int, ...]) -> None:
+    """Numeric models fold the input scaling into the first layer; absurd scales would overflow there."""
+    if not preparation.all_numeric:
+        return
+    mean, scale = preparation.numeric_constants()
+    with np.errstate(all="ignore"):
+        for member in members:
+            for w, b in network.fold_input_scaling(network.unpack(member.theta, sizes)[:1], mean, scale):
+                if not (np.isfinite(w).all() and np.isfinite(b).all()):
+                    raise _damaged("input scaling and first-layer weights overflow together")
 
 
 def _curve_of(numbers: tuple[float, ...], epochs: int, what: str) -> tuple[tuple[int, ...], tuple[float, ...]]:
@@ -386,24 +559,30 @@ def _curve_of(numbers: tuple[float, ...], epochs: int, what: str) -> tuple[tuple
         or (len(steps) and (steps[0] < 1 or steps[-1] > epochs))
         or (np.diff(steps) <= 0).any()
     ):
-        raise BlockError(f"the model block's {what} does not hold (epoch, loss) pairs with rising epochs from 1 to {epochs}; it is damaged: train again")
+        raise _damaged(f"{what} does not hold (epoch, loss) pairs with rising epochs from 1 to {epochs}")
     return tuple(int(e) for e in steps), tuple(float(v) for v in points[1::2])
 
 
 def _source_of(found: list[Record]) -> tuple[str, float, str, int] | None:
     if not found:  # optional: blocks trained without a bridge that knows the range have none
         return None
-    address, share, mode, split_seed = found[0].fields
-    return (str(address), float(share), str(mode), int(split_seed))
+    if len(found) > 1:
+        raise _damaged("'source' row is repeated")
+    address, share, mode, split_seed = _fields(found[0], 4)
+    share = _number(share, "holdout share of its source")
+    if not 0.0 <= share <= 1.0:
+        raise _damaged(f"holdout share of its source is {share}, not a share from 0 to 1")
+    return (_text(address, "source address"), share, _text(mode, "split mode of its source"), _whole(split_seed, "split seed of its source"))
 
 
 def _kind_and_text(record: Record) -> tuple[Any, Any]:
     """Kind and value text of a `setting` or `given` row of format 2 (a blank value was trimmed with the padding)."""
-    return record.fields[1], record.fields[2] if len(record.fields) > 2 else None
+    _, kind, text = _fields(record, 3)
+    return kind, text
 
 
 def _class_label(record: Record) -> Any:
-    kind, text = record.fields[1], record.fields[2] if len(record.fields) > 2 else None
+    kind, text = _kind_and_text(record)
     if kind == "none":
         raise BlockError("the model block records a class label that is empty; it is damaged: train again")
     return _typed_value(kind, text, f"class label {record.fields[0]}")
@@ -412,9 +591,9 @@ def _class_label(record: Record) -> Any:
 def _settings_of(found: list[Record], version: int) -> dict[str, Any]:
     settings: dict[str, Any] = {}
     for record in found:
-        name = str(record.fields[0])
+        name = _text(_fields(record, 3)[0], "name of a setting")
         if version == 1:
-            settings[name] = _format_1_setting(name, record.fields[1])
+            settings[name] = _format_1_setting(name, _fields(record, 2)[1])
         else:
             settings[name] = _typed_value(*_kind_and_text(record), f"the setting '{name}'")
     threshold = settings.get("threshold", 0.5)  # the one setting prediction reads

@@ -1,6 +1,7 @@
 """The model block: round trips, tamper detection, versions, and that reading it runs nothing."""
 
 import dataclasses
+import functools
 import json
 from pathlib import Path
 from types import MappingProxyType
@@ -8,6 +9,8 @@ from types import MappingProxyType
 import numpy as np
 import pandas as pd
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 import sheetnet
 from sheetnet import block
@@ -205,3 +208,155 @@ def test_arguments_the_block_cannot_keep_are_refused_when_writing(rng):
         encode_block(model, dataclasses.replace(INFO, given={"rate": float("inf")}))
     with pytest.raises(sheetnet.errors.ModelError, match="the argument 'epochs' is a list"):
         encode_block(model, dataclasses.replace(INFO, given={"epochs": [1, 2]}))
+
+
+# --- extreme values and tampered fields ---------------------------------------------------
+
+LARGEST_KEPT = 1.79769313486231e308  # the largest magnitude whose 15-digit rounding is still finite
+LARGEST_FLOAT = 1.7976931348623157e308  # rounds to '1.79769313486232e+308', which reads back as infinity
+
+
+def _with_input_scaling(model, mean, scale=1.0):
+    first = model.preparation.inputs[0]
+    inputs = (dataclasses.replace(first, mean=mean, scale=scale), *model.preparation.inputs[1:])
+    return dataclasses.replace(model, preparation=dataclasses.replace(model.preparation, inputs=inputs))
+
+
+@pytest.mark.parametrize("value", [1e308, LARGEST_KEPT, -LARGEST_KEPT, 5e-324])
+def test_huge_and_tiny_finite_numbers_round_trip(rng, value):
+    _, model = _mixed_model(rng)
+    extreme = _with_input_scaling(model, value)
+    info = dataclasses.replace(INFO, holdout_metrics={"rmse": abs(value)})
+    cells = json.loads(json.dumps(encode_block(extreme, info)))  # as a file would keep them
+    decoded, decoded_info = decode_block(cells)
+    assert decoded.preparation.inputs[0].mean == float(f"{value:.15g}")
+    assert decoded_info.holdout_metrics["rmse"] == float(f"{abs(value):.15g}")
+
+
+@pytest.mark.parametrize("value", [LARGEST_FLOAT, -LARGEST_FLOAT, float("inf"), float("nan")])
+def test_numbers_a_block_cannot_keep_are_refused_when_writing(rng, value):
+    _, model = _mixed_model(rng)
+    with pytest.raises(sheetnet.errors.ModelError, match=r"cannot be stored in a block: the scaling of input 'size' holds a number .* divide that column"):
+        encode_block(_with_input_scaling(model, value), INFO)
+    with pytest.raises(sheetnet.errors.ModelError, match=r"the holdout metric 'rmse' holds a number that is infinite"):
+        encode_block(model, dataclasses.replace(INFO, holdout_metrics={"rmse": value}))
+    theta = np.array(model.members[0].theta)
+    theta[3] = value
+    member = dataclasses.replace(model.members[0], theta=theta)
+    with pytest.raises(sheetnet.errors.ModelError, match=r"the weights of network 1 holds .* lower the setting 'rate'"):
+        encode_block(dataclasses.replace(model, members=(member,)), INFO)
+
+
+def test_whole_numbers_and_texts_a_spreadsheet_would_change_are_refused(rng):
+    _, model = _mixed_model(rng)
+    with pytest.raises(sheetnet.errors.ModelError, match=r"the seed or the layer sizes holds the whole number 1000000000000000, longer than the 15 digits"):
+        encode_block(dataclasses.replace(model, seed=10**15), INFO)
+    with pytest.raises(sheetnet.errors.ModelError, match=r"split's holdout share or seed holds the whole number"):
+        encode_block(model, dataclasses.replace(INFO, source=("Data!A1:C9", 0.2, "random", 10**16)))
+    with pytest.raises(sheetnet.errors.ModelError, match=r"a text of 40,000 characters, more than the 32,767 a cell holds"):
+        encode_block(model, dataclasses.replace(INFO, target="t" * 40_000))
+    with pytest.raises(sheetnet.errors.ModelError, match=r"the argument 'seed' is a whole number of thousands of digits"):
+        encode_block(model, dataclasses.replace(INFO, given={"seed": 10**5000}))
+    decode_block(encode_block(dataclasses.replace(model, seed=10**15 - 1), INFO))  # 15 digits are kept
+
+
+@functools.lru_cache(maxsize=None)
+def _small_block(task):
+    rng = np.random.default_rng(7)
+    frame, model = _mixed_model(rng, task, repeats=2)
+    info = dataclasses.replace(INFO, source=("Data!A1:D81", 0.2, "random", 3), given={"hidden": "4,3", "epochs": 60, "seed": None, "rate": 0.5})
+    return frame, encode_block(model, info)
+
+
+def _tampered(cells, key, position, value, occurrence=0):
+    rows = [i for i, r in enumerate(cells) if r[0] == key]
+    edited = [list(r) for r in cells]
+    edited[rows[occurrence]][position] = value
+    return _resealed(edited)
+
+
+@pytest.mark.parametrize(
+    "key, position, value, message",
+    [
+        ("network", 4, 10**9, "number of layers is 1000000000, not a whole number from 2 to"),  # a huge layer count
+        ("network", 4, float("inf"), "number of layers is inf"),
+        ("network", 3, -1, "seed is -1"),
+        ("rows", 1, float("nan"), "row count is nan"),
+        ("rows", 2, 1e300, "row count is 1e[+]300"),
+        ("member", 3, float("inf"), "number of epochs of network 1 is inf"),
+        ("member", 3, 0, "number of epochs of network 1 is 0"),
+        ("member", 4, 10**6, "kept epoch of network 1 is 1000000, not a whole number from 1 to 60"),
+        ("member", 1, 7, "networks are not numbered"),
+        ("weights", 2, float("inf"), "weights of network 1 are missing or cut short"),
+        ("weights", 1, 2.5, "network index of a weights row is 2.5"),
+        ("curve", 1, -3, "network index of a curve is -3"),
+        ("curve", 2, "testing", "curve row for network 0, 'testing', is unknown"),
+        ("input", 3, float("nan"), "number of categories of 'kind' is blank"),  # a NaN reads as an empty cell
+        ("input", 3, 10_000, "categories of 'kind' .3 listed. do not match its count 10000"),
+        ("class", 1, 10_000, "class rows are not numbered"),
+        ("class", 2, "int", "records class label 0 as 'high', which is not a valid int"),
+        ("setting", 3, "inf", "records the setting 'activation' as 'inf', which is not a valid float"),
+        ("source", 2, 7.0, "holdout share of its source is 7.0"),
+        ("holdout_metric", 2, "high", "holdout metric 'rmse' is 'high', not a finite number"),
+        ("given", 2, "bool", "records the argument 'hidden' as '4,3', which is not a valid bool"),
+        ("given", 2, "code", "records the argument 'hidden' with a kind 'code' this sheetnet does not know"),
+    ],
+)
+def test_absurd_values_in_fields_are_named(key, position, value, message):
+    task = "binary" if key == "class" else "regression"
+    frame, cells = _small_block(task)
+    if key == "setting" and message.endswith("valid float"):
+        cells = [list(r) for r in cells]
+        row = next(i for i, r in enumerate(cells) if r[0] == "setting")
+        cells[row][2] = "float"
+    with pytest.raises(BlockError, match=message):
+        decode_block(_tampered(cells, key, position, value, occurrence=1 if key == "input" else 0))  # input 1 is the text column 'kind'
+
+
+def test_ten_thousand_classes_are_refused():
+    _, cells = _small_block("multiclass")
+    last = max(i for i, r in enumerate(cells) if r[0] == "class")
+    extra = [["class", k, "int", str(100 + k)] + [""] * (block.WIDTH - 4) for k in range(3, 10_003)]
+    with pytest.raises(BlockError, match="inputs or outputs do not match its layer sizes"):
+        decode_block(_resealed(cells[: last + 1] + extra + cells[last + 1:]))
+
+
+def test_a_numbers_row_with_infinity_is_refused():
+    _, cells = _small_block("regression")
+    weights = next(i for i, r in enumerate(cells) if r[0] == "weights")
+    edited = [list(r) for r in cells]
+    edited[weights + 1][2] = float("inf")
+    with pytest.raises(BlockError, match=f"row {weights + 2} of the model block holds inf where a finite number belongs"):
+        decode_block(edited)
+
+
+TAMPERED_VALUES = st.one_of(
+    st.sampled_from([float("inf"), -float("inf"), float("nan"), 1e308, -1.0, 0, 1, 2, 3, 10_000, 10**20, 10**400, 2.5, "", " ", "x", "none",
+                     "TRUE", "text", "int", "float", "bool", "training", "validation", "number", "category", "binary", "regression", None, True]),
+    st.integers(),
+    st.floats(),
+    st.text(max_size=4),
+)
+
+
+@given(task=st.sampled_from(["regression", "binary", "multiclass"]), where=st.integers(0, 10**6), column=st.integers(0, block.WIDTH - 1),
+       value=TAMPERED_VALUES)
+@settings(max_examples=400, deadline=None)
+def test_decoding_a_tampered_resealed_block_raises_only_block_errors(task, where, column, value):
+    frame, cells = _small_block(task)
+    edited = [list(r) for r in cells]
+    row = where % (len(cells) - 1)  # any row but the checksum
+    edited[row][column] = value
+    try:
+        resealed = _resealed(edited)
+    except BlockError:
+        return  # the edit broke the layout before the checksum (a blank key on the first row, text among numbers)
+    try:
+        model, _ = decode_block(resealed)
+    except BlockError:
+        return
+    try:  # what decoding accepted must predict (forged huge weights may overflow to NaN), or refuse the rows with a sheetnet error
+        with np.errstate(over="ignore", invalid="ignore"):
+            model.predict(frame)
+    except sheetnet.errors.SheetnetError:
+        pass
