@@ -1,17 +1,24 @@
 """The task pane page in headless Chromium (Debian's package, driven by Playwright) against a running server:
 it loads, lists models, trains on a pasted table, shows progress and the finished metrics. A screenshot
-is taken and checked for the loss curve's colour."""
+is taken and checked for the loss curve's colour.
+
+Inside Excel: the page runs against `office_standin.js`, a stand-in for Office.js written from Microsoft's
+Excel JavaScript API reference (served in place of Office's script), never against Excel itself. The
+workbook the stand-in ends with must be exactly what `sheetnet.service.model_placements` says."""
 
 from __future__ import annotations
 
+import json
 import shutil
+from pathlib import Path
 
 import numpy as np
 import pytest
 import sheetnet_demo
 from local_server import serving
 
-from sheetnet import server
+from sheetnet import functions, server, service
+from sheetnet.placements import column_letters
 
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
 playwright = pytest.importorskip("playwright.sync_api", reason="Playwright is not installed (pip install playwright)")
@@ -20,11 +27,25 @@ pytestmark = pytest.mark.skipif(CHROMIUM is None, reason="Chromium is not instal
 TOKEN = "pane-token-0123456789abcdef"
 FLAGS = ["--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run", "--disable-background-networking", "--disable-component-update", "--disable-sync"]
 TRAINING_BLUE = np.array([21, 101, 192])  # the pane's training-loss line, #1565c0
+OFFICE_SCRIPT = "https://appsforoffice.microsoft.com/lib/1/hosted/office.js"
+STAND_IN = Path(__file__).with_name("office_standin.js")
+LINK_LABEL = '=HYPERLINK("http://x","y")'  # a class label that a spreadsheet would run as a formula
+FORMULA_LIKE_CATEGORY = "=1+1"  # a category of a text input, likewise
+VISIBILITY = {"visible": "Visible", "hidden": "Hidden", "veryHidden": "VeryHidden"}  # Office.js's spelling
+
+
+def same_title(a, b):
+    return a.casefold() == b.casefold()  # as spreadsheets compare sheet titles and defined names
 
 
 @pytest.fixture(scope="module")
-def base_url():
-    with serving(server.create_app(TOKEN)) as address:
+def app():
+    return server.create_app(TOKEN)
+
+
+@pytest.fixture(scope="module")
+def base_url(app):
+    with serving(app) as address:
         yield address
 
 
@@ -61,3 +82,93 @@ def test_the_pane_trains_a_model_and_shows_its_metrics(base_url, tmp_path):
     assert image.shape[0] > 600 and image.shape[1] >= 900
     blue = np.all(np.abs(image - TRAINING_BLUE) < 12, axis=-1)
     assert blue.sum() > 150  # the training-loss line (and the buttons) in the pane's blue are on screen
+
+
+def _expected_workbook(before, placements):
+    """A plain reference of the documented order (sheetnet/placements.py) on the stand-in's snapshot."""
+    sheets = [s for s in before["sheets"] if not any(same_title(s["name"], d) for d in placements["drop_sheets"])]
+    names = [n for n in before["names"] if not any(same_title(n["name"], d) for d in placements["drop_names"])]
+    sheets += [{"name": p["title"], "visibility": VISIBILITY[p["visibility"]], "cells": {}} for p in placements["sheets"]]
+    by_name = {s["name"]: s for s in sheets}
+    for block in placements["cells"]:
+        for i, row in enumerate(block["values"]):
+            for j, value in enumerate(row):
+                if value is None:
+                    continue
+                if isinstance(value, str):
+                    cell = {"kind": "text", "value": value, "numberFormat": "@"}
+                elif isinstance(value, bool):
+                    cell = {"kind": "boolean", "value": value, "numberFormat": "General"}
+                else:
+                    cell = {"kind": "number", "value": value, "numberFormat": "General"}
+                by_name[block["sheet"]]["cells"][f"{column_letters(block['left'] + j)}{block['top'] + i}"] = cell
+    assert placements["formulas"] == []  # a model's placements write no formulas (the stand-in does not calculate)
+    for n in placements["names"]:
+        address = f"${column_letters(n['left'])}${n['top']}:${column_letters(n['right'])}${n['bottom']}"
+        names.append({"name": n["name"], "sheet": n["sheet"], "address": address})
+    return {"sheets": sheets, "names": names}
+
+
+def test_the_pane_inside_excel_stores_exactly_the_services_placements(app, base_url):
+    lots = sheetnet_demo.coffee_lot_grades(rows=200, seed=6).drop(columns="lot")
+    lots["grade"] = lots["grade"].replace({"A": LINK_LABEL})
+    lots["process"] = lots["process"].replace({"honey": FORMULA_LIKE_CATEGORY})
+    table = [list(lots.columns)] + lots.astype(object).values.tolist()
+    selection = f"A1:{column_letters(len(table[0]))}{len(table)}"
+    seed = {
+        "sheets": [
+            {"name": "Lots", "rows": table, "textFormat": True},
+            {"name": "Notes", "rows": [["keep this note"]]},
+            {"name": "sheetnet_LOTS", "visibility": "VeryHidden", "rows": [["an older model block"]]},  # replaced
+        ],
+        "names": [
+            {"name": "rates", "sheet": "Notes", "address": "$A$1:$A$1"},
+            {"name": "Lots", "sheet": "sheetnet_LOTS", "address": "$A$1:$I$1"},  # the old model's: dropped
+            {"name": "snf_lots_m1_b1", "sheet": "sheetnet_LOTS", "address": "$K$1:$K$4"},  # likewise
+            {"name": "snf_other_m1_b1", "sheet": "Notes", "address": "$B$1:$B$2"},  # another model's: kept
+        ],
+        "selection": {"sheet": "Lots", "address": selection},
+    }
+    with playwright.sync_playwright() as driver:
+        browser = driver.chromium.launch(executable_path=CHROMIUM, args=FLAGS)
+        page = browser.new_page(viewport={"width": 900, "height": 1300})
+        errors = []
+        page.on("pageerror", lambda error: errors.append(str(error)))
+        page.route("https://**/*", lambda route: route.abort())
+        page.route(OFFICE_SCRIPT, lambda route: route.fulfill(body=STAND_IN.read_text(), content_type="text/javascript"))
+        page.goto(f"{base_url}/addin/taskpane.html#token={TOKEN}")
+        page.wait_for_function("document.getElementById('connection').textContent === 'connected'", timeout=20000)
+        assert "Select the table" in page.inner_text("#mode-note") and page.is_hidden("#table-from-text")
+        assert page.input_value("#hidden") == "4"  # the same default as every other door
+        page.evaluate("seed => sheetnetStandIn.seed(seed)", seed)
+        before = page.evaluate("sheetnetStandIn.snapshot()")
+        page.fill("#target", "grade")
+        page.fill("#model-name", "lots")
+        page.fill("#settings", "epochs=200")
+        page.click("#train")
+        ended = "(m => m.textContent.startsWith('model lots') || m.className === 'error')(document.getElementById('message'))"
+        page.wait_for_function(ended, timeout=90000)  # stored, or an error the pane shows
+        message = page.inner_text("#message")
+        after = page.evaluate("sheetnetStandIn.snapshot()")
+        associated = page.evaluate("Object.keys(sheetnetStandIn.associations)")
+        browser.close()
+    assert errors == [], errors
+    job = [j for j in app.state.jobs.jobs() if j.name == "lots" and j.state == "done"][-1]  # the newest
+    existing = [n["name"] for n in seed["names"]]
+    placements = service.model_placements("lots", job.result, existing).to_json()
+    expected = _expected_workbook(before, placements)
+    assert json.loads(json.dumps(after)) == expected
+    assert message == f"model lots stored in the workbook under the name lots, with {len(placements['names']) - 1} named constants for native formulas"
+    # what that equality means, spelled out
+    assert [(s["name"], s["visibility"]) for s in after["sheets"]] == [("Lots", "Visible"), ("Notes", "Visible"), ("sheetnet_lots", "VeryHidden")]
+    defined = {n["name"] for n in after["names"]}
+    assert {"rates", "snf_other_m1_b1", "lots", "snf_lots_classes", "snf_lots_cats5", "snf_lots_m1_W1n"} <= defined
+    assert "Lots" not in defined and len(defined) == 2 + len(placements["names"])
+    model_cells = after["sheets"][2]["cells"]
+    assert model_cells["A1"] == {"kind": "text", "value": "sheetnet model block", "numberFormat": "@"}
+    for text in (LINK_LABEL, FORMULA_LIKE_CATEGORY):  # in the block and in a native-formula constant, as text
+        landed = [cell for cell in model_cells.values() if cell.get("value") == text]
+        assert len(landed) >= 2 and all(c["kind"] == "text" and c["numberFormat"] == "@" for c in landed), text
+    assert not any(cell["kind"] == "formula" for cell in model_cells.values())
+    assert "-4-" in dict(functions.about(job.result))["layers"]  # the pane's default hidden layer
+    assert set(associated) == {"SPLIT", "TRAIN", "PREDICT", "SCORE", "EXPLAIN", "ABOUT", "LAGS"}

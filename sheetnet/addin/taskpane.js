@@ -1,5 +1,6 @@
 // sheetnet task pane: trains through the local server, shows progress, the loss curve and holdout
-// metrics, and (inside Excel) stores the model block on a very hidden sheet under a defined name.
+// metrics, and (inside Excel) stores the model by applying the placements the server computes
+// (POST /v1/placements): the block and its native-formula constants, their sheet and defined names.
 // In a plain browser it is a dashboard of the server's models, training from a pasted table.
 "use strict";
 
@@ -51,24 +52,80 @@ async function selectedTable() {
   });
 }
 
-async function storeInWorkbook(name, block) {
-  if (!inExcel()) return false;
-  await Excel.run(async (context) => {
-    const sheets = context.workbook.worksheets;
-    const sheetName = `sheetnet_${name}`.slice(0, 31);
-    const old = sheets.getItemOrNullObject(sheetName);
-    const oldName = context.workbook.names.getItemOrNullObject(name);
+// Office.js's names for the visibilities a placement gives a sheet
+const SHEET_VISIBILITY = { visible: "Visible", hidden: "Hidden", veryHidden: "VeryHidden" };
+
+async function workbookNames() {
+  return Excel.run(async (context) => {
+    const names = context.workbook.names;
+    names.load("items/name");
     await context.sync();
-    if (!oldName.isNullObject) oldName.delete();
-    if (!old.isNullObject) old.delete();
-    const sheet = sheets.add(sheetName);
-    const range = sheet.getRangeByIndexes(0, 0, block.length, block[0].length);
-    range.values = block.map((row) => row.map((value) => (value === null ? "" : value)));
-    sheet.visibility = Excel.SheetVisibility.veryHidden;
-    context.workbook.names.add(name, range);
+    return names.items.map((item) => item.name);
+  });
+}
+
+function rectangle(rows, fill) {
+  const width = Math.max(0, ...rows.map((row) => row.length));
+  return rows.map((row) => [...row, ...Array(width - row.length).fill(fill)]);
+}
+
+// Applies the server's placements in the order sheetnet/placements.py documents; the pane holds no
+// rule of its own about sheets, names or cells.
+async function applyPlacements(placements) {
+  await Excel.run(async (context) => {
+    const workbook = context.workbook;
+    // 1. the model's old names and sheets (looked up case-insensitively by Excel itself)
+    const oldNames = placements.drop_names.map((name) => workbook.names.getItemOrNullObject(name));
+    const oldSheets = placements.drop_sheets.map((title) => workbook.worksheets.getItemOrNullObject(title));
+    await context.sync();
+    oldNames.forEach((item) => { if (!item.isNullObject) item.delete(); });
+    oldSheets.forEach((sheet) => {
+      if (sheet.isNullObject) return;
+      sheet.visibility = SHEET_VISIBILITY.hidden;  // Excel refuses to delete a very hidden sheet
+      sheet.delete();
+    });
+    await context.sync();
+    // 2. our sheets, after the user's, each with its visibility
+    const sheets = new Map();
+    for (const plan of placements.sheets) {
+      const sheet = workbook.worksheets.add(plan.title);
+      sheet.visibility = SHEET_VISIBILITY[plan.visibility];
+      sheets.set(plan.title, sheet);
+    }
+    const sheetNamed = (title) => sheets.get(title) || workbook.worksheets.getItem(title);
+    const area = (sheet, top, left, height, width) => sheetNamed(sheet).getRangeByIndexes(top - 1, left - 1, height, width);
+    // 3. values: text cells get the Text number format first, so a string starting with =, + or - stays text
+    for (const block of placements.cells) {
+      const values = rectangle(block.values, null).map((row) => row.map((value) => (value === null ? "" : value)));
+      if (!values.length || !values[0].length) continue;
+      const range = area(block.sheet, block.top, block.left, values.length, values[0].length);
+      range.numberFormat = values.map((row) => row.map((value) => (typeof value === "string" && value !== "" ? "@" : "General")));
+      range.values = values;
+    }
+    // then formulas, the only way a formula is written. Office.js has no setter for a legacy
+    // (Ctrl+Shift+Enter) array formula; Excel with dynamic arrays evaluates a formula set through
+    // range.formulas as an array formula, which for a one-cell answer is the same thing.
+    for (const block of placements.formulas) {
+      const formulas = rectangle(block.formulas, "");
+      if (!formulas.length || !formulas[0].length) continue;
+      const range = area(block.sheet, block.top, block.left, formulas.length, formulas[0].length);
+      range.numberFormat = formulas.map((row) => row.map(() => "General"));  // a Text cell would keep the formula as text
+      range.formulas = formulas;
+    }
+    // 4. workbook-level defined names
+    for (const name of placements.names) {
+      workbook.names.add(name.name, area(name.sheet, name.top, name.left, name.bottom - name.top + 1, name.right - name.left + 1));
+    }
     await context.sync();
   });
-  return true;
+}
+
+async function storeInWorkbook(name, block) {
+  if (!inExcel()) return null;
+  const existing_names = await workbookNames();
+  const placements = await api("/v1/placements", { method: "POST", body: JSON.stringify({ name, block, existing_names }) });
+  await applyPlacements(placements);
+  return placements;
 }
 
 function drawCurve(curve) {
@@ -157,7 +214,9 @@ async function follow(id, name) {
         const about = (await api("/v1/models")).models.find((m) => m.name === name).about;
         showMetrics(about);
         const stored = await storeInWorkbook(name, job.result);
-        say(stored ? `model ${name} stored on a very hidden sheet under the name ${name}` : `model ${name} trained`);
+        say(stored
+          ? `model ${name} stored in the workbook under the name ${name}, with ${stored.names.length - 1} named constants for native formulas`
+          : `model ${name} trained`);
         $("progress-bar").value = 100;
       } else {
         say(job.message || job.state, true);
