@@ -118,17 +118,20 @@ def _typed_value(kind: Any, text: Any, what: str) -> Any:
     except ValueError:
         pass
     if kind not in VALUE_KINDS:
-        raise BlockError(f"the model block records {what} with a kind {kind!r} this sheetnet does not know; it is damaged: train again")
+        raise BlockError(f"the model block records {what} with a kind {_shown(kind)} this sheetnet does not know; it is damaged: train again")
     raise BlockError(f"the model block records {what} as '{text[:40]}', which is not a valid {kind}; it is damaged: train again")
 
 
-def _sampled_curve(curve: Sequence[float]) -> list[float]:
-    """Pairs (epoch, loss) flattened, at most CURVE_POINTS of them, always with the last epoch."""
+def _sampled_curve(epochs: Sequence[int], curve: Sequence[float]) -> list[float]:
+    """Pairs (epoch, loss) flattened, at most CURVE_POINTS of them, evenly spread, always with the last point.
+
+    A model read from a block brings its points' own epochs, so writing it again keeps them.
+    """
     n = len(curve)
     if n == 0:
         return []
-    epochs = np.unique(np.linspace(1, n, min(n, CURVE_POINTS)).round().astype(int))
-    return [v for e in epochs for v in (float(e), float(curve[e - 1]))]
+    kept = np.unique(np.linspace(1, n, min(n, CURVE_POINTS)).round().astype(int)) - 1
+    return [v for i in kept for v in (float(epochs[i]), float(curve[i]))]
 
 
 def model_records(model: Model, info: BlockInfo) -> list[Record]:
@@ -164,9 +167,9 @@ def model_records(model: Model, info: BlockInfo) -> list[Record]:
         records.append(Record("holdout_metric", (name, _round15(value))))
     for index, member in enumerate(model.members):
         records.append(Record("member", (index, member.stopped_by, member.epochs, member.best_epoch)))
-        records.append(Record("curve", (index, "training"), _numbers_of(_sampled_curve(member.training_curve))))
+        records.append(Record("curve", (index, "training"), _numbers_of(_sampled_curve(member.training_epochs, member.training_curve))))
         if member.validation_curve:
-            records.append(Record("curve", (index, "validation"), _numbers_of(_sampled_curve(member.validation_curve))))
+            records.append(Record("curve", (index, "validation"), _numbers_of(_sampled_curve(member.validation_epochs, member.validation_curve))))
         records.append(Record("weights", (index, len(member.theta)), _numbers_of(member.theta)))
     return records
 

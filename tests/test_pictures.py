@@ -70,3 +70,13 @@ def test_a_decoded_classifier_draws_its_validation_curve_at_its_stored_epochs(tm
     kept = np.asarray(member.validation_epochs) - 1
     np.testing.assert_allclose(member.validation_curve, np.asarray(fresh.members[0].validation_curve)[kept], rtol=1e-14)
     _looks_drawn(pictures.loss_curve_picture(decoded, tmp_path / "classifier.png"))
+
+
+def test_writing_a_decoded_model_again_keeps_its_curve_epochs(rng):
+    X = rng.normal(size=(60, 2))
+    fresh = sheetnet.fit(X, X[:, 0], hidden=(2,), epochs=333, validation_share=0, patience=400, tolerance=0.0, gradient_threshold=0.0)
+    once = _decoded(fresh).members[0]
+    twice = _decoded(_decoded(fresh)).members[0]
+    assert once.training_epochs[-1] == 333 and len(once.training_epochs) == 200
+    assert tuple(twice.training_epochs) == tuple(once.training_epochs)
+    assert twice.training_curve == once.training_curve
