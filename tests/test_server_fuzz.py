@@ -23,7 +23,7 @@ def api_schema():
 def test_no_request_the_schema_allows_gets_a_server_error(api_schema):
     # each operation of the published schema, with cases generated from it, authorised
     operations = [result.ok() for result in api_schema.get_all_operations()]
-    assert {op.path for op in operations} >= {"/v1/functions", "/v1/functions/{name}", "/v1/jobs", "/v1/jobs/{job_id}", "/v1/models"}
+    assert {op.path for op in operations} >= {"/v1/functions", "/v1/functions/{name}", "/v1/jobs", "/v1/jobs/{job_id}", "/v1/models", "/v1/placements"}
     for operation in operations:
 
         @settings(max_examples=30, deadline=None, suppress_health_check=list(HealthCheck), database=None)
