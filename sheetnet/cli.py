@@ -291,7 +291,10 @@ def run_check(args: argparse.Namespace, out: TextIO) -> int:
     names = set(model_names(book))
     sheets: dict[str, list[str]] = {}
     for name, defined in book.formulas.defined_names.items():
-        destinations = list(defined.destinations)
+        try:
+            destinations = list(defined.destinations)
+        except (AttributeError, ValueError, TypeError):  # a name with no range, such as an add-in function LibreOffice declares
+            continue
         if len(destinations) == 1 and destinations[0][0].lower().startswith(MODEL_SHEET_PREFIX) and constant_owner(name) is None:
             names.add(name)
             sheets.setdefault(destinations[0][0].casefold(), []).append(name)
