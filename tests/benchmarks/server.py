@@ -5,6 +5,8 @@ Run by hand:  python tests/benchmarks/server.py [--calls 200]
 A server is started in-process on 127.0.0.1 (uvicorn, one worker thread pool); a 10-8-1 model
 predicts 1 row and 10,000 rows; medians and 95th percentiles of both paths are printed. The HTTP
 time includes sending the encoded request (encoded once beforehand) and decoding the answer.
+The same model's placements (POST /v1/placements, what the task pane asks before storing a model)
+are timed the same way beside `service.model_placements`.
 """
 
 from __future__ import annotations
@@ -22,7 +24,7 @@ import orjson
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # the tests' server helper
 from local_server import serving  # noqa: E402
 
-from sheetnet import functions, server  # noqa: E402
+from sheetnet import functions, server, service  # noqa: E402
 
 TOKEN = "bench-token-0123456789abcdef"
 
@@ -69,6 +71,16 @@ def measure(base: str, calls: int) -> None:
             http = timings(call, calls if rows == 1 else max(20, calls // 10))
             direct = timings(lambda: functions.predict(model, data), calls if rows == 1 else max(20, calls // 10))
             print(f"| {rows:,} | {http[0] * 1e3:.2f} | {http[1] * 1e3:.2f} | {direct[0] * 1e3:.2f} | {direct[1] * 1e3:.2f} | {http[0] / direct[0]:.1f}x |", flush=True)
+        names = ["rates", "model", "snf_model_m1_b1"]
+        placements_body = orjson.dumps({"name": "model", "block": model, "existing_names": names})
+
+        def placements_call() -> None:
+            orjson.loads(client.post("/v1/placements", content=placements_body, headers=headers).raise_for_status().content)
+
+        placements_call()
+        http = timings(placements_call, calls)
+        direct = timings(lambda: service.model_placements("model", model, names).to_json(), calls)
+        print(f"| placements ({len(model)}-row block) | {http[0] * 1e3:.2f} | {http[1] * 1e3:.2f} | {direct[0] * 1e3:.2f} | {direct[1] * 1e3:.2f} | {http[0] / direct[0]:.1f}x |", flush=True)
 
 
 if __name__ == "__main__":
