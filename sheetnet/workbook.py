@@ -1,33 +1,43 @@
 """Workbook files: open them, read ranges and stored models, and save what sheetnet placed.
 
 Reading goes through openpyxl (cached values for reading, formulas to tell a
-formula without a saved result from a blank). Everything a command writes is
-collected as `Placements` in ``Book.log`` (decided by `sheetnet.service`,
-gathered by `sheetnet.workbook_models`) and applied by `save_book` in one
-atomic save that keeps the file's permissions and a backup.
+formula without a saved result from a blank), on the very bytes that were
+checked (`sheetnet.package.open_package`) and fingerprinted. Everything a
+command writes is collected as `Placements` in ``Book.log`` (decided by
+`sheetnet.service`, gathered by `sheetnet.workbook_models`) and applied by
+`save_book`, which edits the package so that only sheetnet's own parts change
+(`sheetnet.package.write_package`) and replaces the file atomically in place
+(`sheetnet.file_guard.replace_file`).
+
+A `Book` holds a lock on its file from `open_book` until `Book.close` (or the
+end of a ``with open_book(...)`` block, or of `closing_books`), so two sheetnet
+commands never interleave their reads and writes on one workbook.
 """
 
 from __future__ import annotations
 
+import io
 import os
-import shutil
-import tempfile
+import warnings
+import weakref
 import zipfile
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, Iterator
 
 import openpyxl
 from openpyxl.utils.cell import get_column_letter, quote_sheetname, range_boundaries
 from openpyxl.workbook.workbook import Workbook
 from openpyxl.worksheet.worksheet import Worksheet
 
+from . import file_guard
 from .block import MAGIC
 from .errors import InputError, SheetnetError
+from .package import Package, PackageError, open_package, write_package
 from .placements import PlacementLog
-from .sheet_writer import apply_to_workbook
 
-# package parts openpyxl does not carry through a save (it keeps the VBA project with keep_vba=True)
+# package parts openpyxl does not model (kept as they are by save_book, which never rewrites them)
 UNREAD_PARTS = (
     "xl/charts/", "xl/drawings/", "xl/media/", "xl/pivotTables/", "xl/pivotCache/", "xl/embeddings/",
     "xl/slicers/", "xl/slicerCaches/", "xl/timelines/", "xl/timelineCaches/", "xl/chartsheets/",
@@ -39,37 +49,102 @@ class WorkbookError(SheetnetError):
     """A workbook file cannot be read or written as asked."""
 
 
-@dataclass
+@dataclass(eq=False)  # compared and hashed by identity: a book is one open file
 class Book:
-    """An open workbook: formulas kept for saving, cached values for reading."""
+    """An open workbook: formulas and cached values for reading, the checked package for saving.
+
+    ``path`` is the name the user gave; ``real_path`` the file it leads to (through symbolic links)."""
 
     path: Path
     formulas: Workbook
     values: Workbook
     log: PlacementLog = field(default_factory=PlacementLog)  # what this command will write, applied by save_book
+    package: Package | None = None
+    real_path: Path | None = None
+    seen: file_guard.Fingerprint | None = None
+    lock: file_guard.WorkbookLock | None = None
+
+    def __post_init__(self) -> None:
+        lock = self.lock
+        self._finalizer = weakref.finalize(self, _release, lock)  # a book nobody closed lets its file go when it is freed
+        _OPEN.add(self)
 
     @property
     def keeps_macros(self) -> bool:
         return self.path.suffix.lower() == ".xlsm"
 
+    def close(self) -> None:
+        """Let other sheetnet commands at the file."""
+        self._finalizer()
 
-def open_book(path: str | Path) -> Book:
+    def __enter__(self) -> "Book":
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+
+_OPEN: "weakref.WeakSet[Book]" = weakref.WeakSet()
+
+
+def _release(lock: file_guard.WorkbookLock | None) -> None:
+    if lock is not None:
+        lock.release()
+
+
+@contextmanager
+def closing_books() -> Iterator[None]:
+    """Close every book opened inside the block when it ends (one command: read, train, write, done)."""
+    before = set(_OPEN)
+    try:
+        yield
+    finally:
+        for book in list(_OPEN):
+            if book not in before:
+                book.close()
+
+
+def open_book(path: str | Path, wait: float | None = None) -> Book:
+    """Lock, read, check and fingerprint a workbook; ``wait`` bounds the wait for another sheetnet command
+    on the same file (default `file_guard.LOCK_WAIT_SECONDS`)."""
     path = Path(path)
     if not path.exists():
         raise WorkbookError(f"there is no workbook at {path}; check the file name")
     if path.suffix.lower() not in (".xlsx", ".xlsm"):
         raise WorkbookError(f"{path.name} is not an .xlsx or .xlsm workbook; save it in one of those formats first")
-    macros = path.suffix.lower() == ".xlsm"
+    real = Path(os.path.realpath(path))
+    if not real.is_file():
+        raise WorkbookError(f"{path} is not a file; name the workbook file itself")
+    lock = file_guard.WorkbookLock.acquire(real, wait)
     try:
-        formulas = openpyxl.load_workbook(path, keep_vba=macros)
-        values = openpyxl.load_workbook(path, data_only=True, keep_vba=macros)
-    except (zipfile.BadZipFile, KeyError, OSError, ValueError) as error:
-        raise WorkbookError(f"{path.name} could not be read as a workbook ({error}); check that it is not damaged or open elsewhere") from None
-    return Book(path, formulas, values)
+        with open(real, "rb") as stream:
+            data = stream.read()
+        seen = file_guard.fingerprint(real, data)
+        package = open_package(data, path.name)
+        formulas, values = _load(data, path.name)
+    except BaseException:
+        lock.release()
+        raise
+    return Book(path, formulas, values, package=package, real_path=real, seen=seen, lock=lock)
+
+
+def _load(data: bytes, label: str) -> tuple[Workbook, Workbook]:
+    try:
+        with warnings.catch_warnings():
+            # openpyxl warns that it would drop what it does not model when saving; sheetnet never saves through it
+            warnings.simplefilter("ignore")
+            formulas = openpyxl.load_workbook(io.BytesIO(data))
+            values = openpyxl.load_workbook(io.BytesIO(data), data_only=True)
+    except PackageError:
+        raise
+    except Exception as error:  # openpyxl raises many kinds on files it cannot read; all mean the same to the user
+        detail = str(error).splitlines()[0][:200] if str(error) else type(error).__name__
+        raise WorkbookError(f"{label} could not be read as a workbook ({detail}); check that it is not damaged, or open it in a spreadsheet program and save it again") from None
+    return formulas, values
 
 
 def unread_parts(path: str | Path) -> list[str]:
-    """Parts of the file that openpyxl would drop when saving it."""
+    """Kinds of parts the file holds that openpyxl does not model (`save_book` keeps them as they are)."""
     with zipfile.ZipFile(path) as package:
         names = package.namelist()
     return sorted({prefix.rstrip("/").split("/")[-1] for prefix in UNREAD_PARTS for name in names if name.startswith(prefix)})
@@ -98,13 +173,21 @@ def _sheet(workbook: Workbook, name: str) -> Worksheet:
     return workbook[name]
 
 
+def _bounds(cells: str, sheet: Worksheet) -> tuple[int, int, int, int]:
+    """A range's corners; whole columns (A:D) stop at the last used row, whole rows (2:9) at the last used column."""
+    min_col, min_row, max_col, max_row = range_boundaries(cells)
+    min_col, min_row = min_col or 1, min_row or 1
+    max_col = max_col if max_col is not None else sheet.max_column
+    max_row = min(max_row if max_row is not None else sheet.max_row, sheet.max_row)
+    return min_col, min_row, max_col, max_row
+
+
 def read_range(book: Book, reference: str) -> list[list[Any]]:
     """The values of a range; a formula whose result was never saved is named, not read as blank."""
     sheet_name, cells = split_reference(reference)
-    min_col, min_row, max_col, max_row = range_boundaries(cells)
     values = _sheet(book.values, sheet_name)
     formulas = _sheet(book.formulas, sheet_name)
-    max_row = min(max_row, values.max_row)  # whole-column ranges stop at the last used row
+    min_col, min_row, max_col, max_row = _bounds(cells, values)
     grid = []
     for r in range(min_row, max_row + 1):
         row = []
@@ -160,47 +243,41 @@ def read_model(book: Book, name: str) -> list[list[Any]]:
 
 # --- saving -------------------------------------------------------------------------------
 
+def check_can_save(book: Book) -> None:
+    """Refuse, before anything is written, a save that could not complete or would lose someone's work:
+    a read-only file or folder, a workbook open in a spreadsheet program, a file changed since it was read.
+    A command may call this right after `open_book` to refuse before training."""
+    real = book.real_path or book.path
+    file_guard.check_can_replace(real, book.path if book.path.is_symlink() else None)
+    if book.seen is not None:
+        file_guard.check_unchanged(real, book.seen)
+
+
 def save_book(book: Book) -> tuple[Path, str]:
-    """Save without losing anything; returns where it went and why, if not over the original."""
-    for part in book.log.parts:  # interim: placements applied through openpyxl; the package writer replaces this
-        apply_to_workbook(book.formulas, part)
-    lost = unread_parts(book.path)
-    target = book.path
-    note = ""
-    if lost:
-        target = _free_name(book.path)
-        note = (
-            f"{book.path.name} holds parts that openpyxl cannot keep ({', '.join(lost)}), so it was left untouched "
-            f"and the result was written to {target.name}"
-        )
-    return save_new(book.formulas, target), note
+    """Apply ``book.log`` to the file in place, changing only what sheetnet owns; returns the path and a note
+    (empty unless something deserves a word). The previous version is kept as a backup
+    (`file_guard.backup_path`); the file keeps its permissions, symbolic links and hard links."""
+    if book.package is None or book.real_path is None:
+        raise WorkbookError("this workbook was not opened with open_book, so sheetnet cannot save it safely")
+    if not book.log.parts:
+        return book.path, "nothing to write"
+    check_can_save(book)
+    parts = list(book.log.parts)
+    written = io.BytesIO()
+    try:
+        write_package(book.package, parts, written)
+    except PackageError as error:
+        raise WorkbookError(str(error)) from None
+    data = written.getvalue()
+    file_guard.replace_file(book.real_path, lambda stream: stream.write(data), book.lock)
+    book.package = open_package(data, book.path.name)  # a later save starts from what is on disk now
+    book.seen = file_guard.fingerprint(book.real_path, data)
+    book.log = PlacementLog()
+    return book.path, ""
 
 
 def save_new(workbook: Workbook, target: Path) -> Path:
-    """Save atomically: a temporary file beside the target, renamed over it; the old file kept as .bak."""
-    handle, temporary = tempfile.mkstemp(prefix=".sheetnet-", suffix=target.suffix, dir=target.parent)
-    os.close(handle)
-    try:
-        workbook.save(temporary)
-        with open(temporary, "rb") as written:
-            os.fsync(written.fileno())
-        if target.exists():
-            shutil.copy2(target, target.with_name(target.name + ".bak"))
-            shutil.copymode(target, temporary)  # the file keeps the permissions it had
-        else:
-            umask = os.umask(0)
-            os.umask(umask)
-            os.chmod(temporary, 0o666 & ~umask)
-        os.replace(temporary, target)
-    finally:
-        if os.path.exists(temporary):
-            os.unlink(temporary)
+    """Save a workbook sheetnet built whole (the demo, the starter) atomically; an older file there is kept as a backup."""
+    target = Path(os.path.realpath(target)) if Path(target).exists() else Path(target)
+    file_guard.replace_file(target, workbook.save)
     return target
-
-
-def _free_name(path: Path) -> Path:
-    for n in range(1, 1000):
-        candidate = path.with_name(f"{path.stem}-sheetnet{'' if n == 1 else n}{path.suffix}")
-        if not candidate.exists():
-            return candidate
-    raise WorkbookError(f"no free file name beside {path.name}; tidy up the folder")
