@@ -324,7 +324,22 @@ def column_of(cells: Any, what: str, height: int) -> tuple[str, list[Any]]:
     values = [row[0] for row in grid[1:]]
     if len(values) != height:
         raise InputError(f"the {what} has {len(values)} rows below its header but the table has {height}; select both ranges over the same rows")
-    return str(grid[0][0]), values
+    header = grid[0][0]
+    if is_blank(header):
+        raise InputError(f"the {what} has a blank first cell; select the {what} with its header (its name) on top")
+    return _number_text(header) if isinstance(header, (int, float)) and not isinstance(header, bool) else str(header).strip(), values
+
+
+def one_value(value: Any, what: str) -> Any:
+    """An argument that takes one cell: a 1 x 1 range gives its cell; a larger range is refused."""
+    if isinstance(value, np.ndarray):
+        value = value.tolist()
+    while isinstance(value, (list, tuple)) and len(value) == 1:
+        value = value[0]
+    if isinstance(value, (list, tuple)):
+        raise SettingError(f"the {what} takes one cell, but it got a range of several cells; select or type one value")
+    _check_cell_types([[value]], what)
+    return value
 
 
 def as_cells(values: Sequence[Any] | np.ndarray) -> list[Cell]:

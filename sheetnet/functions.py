@@ -32,6 +32,7 @@ from .cells import (
     is_blank,
     message_cell,
     numeric_frame,
+    one_value,
     parse_hidden,
     parse_settings,
     range_row,
@@ -221,6 +222,7 @@ def _fingerprint(table: SheetTable, columns: list[str], rows: np.ndarray) -> str
 def split(table: Any, holdout_share: Any = None, seed: Any = None, mode: Any = None) -> Cells:
     """A column as tall as the table: a header, then 'train' or 'holdout' for each data row."""
     sheet = read_sheet_table(table)
+    holdout_share, seed, mode = one_value(holdout_share, "holdout share"), one_value(seed, "seed"), one_value(mode, "split mode")
     share = 0.2 if is_blank(holdout_share) else _number_setting(holdout_share, "holdout share")
     chosen_seed = 0 if is_blank(seed) else _whole_number(seed, "seed")
     text = "random" if is_blank(mode) else str(mode).strip()
@@ -230,7 +232,7 @@ def split(table: Any, holdout_share: Any = None, seed: Any = None, mode: Any = N
         column = text[len("stratified"):].strip(" :")
         if not column:
             raise SettingError("a stratified split needs the column to stratify by: write the mode as 'stratified grade'")
-        labels = [str(v) for v in sheet.column(column)]
+        labels = [label_in_words(v) for v in sheet.column(column)]  # blanks and 3.0 read as the sheet shows them
         lowered = "stratified"
     elif lowered not in ("random", "ordered"):
         raise SettingError(f"split mode {cell_in_words(text)} is not known; use random, ordered, or 'stratified COLUMN'")
@@ -299,6 +301,7 @@ def train_block(
 ) -> Cells:
     """TRAIN without the cache and the message cell: raises `SheetnetError`; reports progress per epoch."""
     sheet = read_sheet_table(table)
+    target, hidden = one_value(target, "target"), one_value(hidden, "hidden layers")
     if is_blank(target):
         raise InputError(f"no target given; name the column to predict, one of: {', '.join(map(str, sheet.frame.columns))}")
     target_name = str(target).strip()
@@ -394,7 +397,7 @@ def _parse_output(value: Any) -> list[str]:
 def predict(model: Any, table: Any, output: Any = None) -> Cells:
     """As tall as the table: a header, then per row the prediction (and what `output` asks for)."""
     decoded, info, options = _decode(model)
-    wanted = _parse_output(output)
+    wanted = _parse_output(one_value(output, "output"))
     sheet = read_sheet_table(table)
     sheet = _numbers_for_model(sheet, decoded, info, options, with_target=False)
     rows = _rows_used(sheet, list(decoded.input_names), options["skip_blanks"])
@@ -569,13 +572,15 @@ def lags(series: Any, lags: Any = None) -> Cells:
     which have no history yet, are blank: train with the setting blank_rows=skip.
     """
     name, values = column_of(series, "series", len(as_grid(series, "series")) - 1)
-    steps = _lag_steps(lags, len(values))
+    steps = _lag_steps(one_value(lags, "lags"), len(values))
     numbers: list[float | None] = []
     for i, value in enumerate(values):
         if is_blank(value):
             numbers.append(None)
-        elif isinstance(value, bool) or not isinstance(value, (int, float)):
-            raise BadValueError(name, i + 1, value, "text in a numeric series", "type a number or clear the cell", range_row(i))
+        elif isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, float, np.number)):
+            raise BadValueError(name, i + 1, value, "not a number in a numeric series", "type a number or clear the cell", range_row(i))
+        elif not np.isfinite(float(value)) or abs(float(value)) > MAX_NUMBER:
+            raise BadValueError(name, i + 1, value, "the number is infinite or too large", "type a finite number or clear the cell", range_row(i))
         else:
             numbers.append(float(value))
     answer: Cells = [[f"{name} lag {k}" for k in steps]]

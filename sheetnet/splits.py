@@ -14,6 +14,7 @@ from typing import Any, Sequence
 
 import numpy as np
 
+from .cell_text import cell_in_words
 from .errors import NotEnoughRowsError, SplitError
 
 SPLIT_MODES = ("random", "stratified", "ordered")
@@ -21,7 +22,7 @@ SPLIT_MODES = ("random", "stratified", "ordered")
 
 def _holdout_count(n: int, share: float) -> int:
     if not 0.0 < share < 1.0:
-        raise SplitError(f"the holdout share is {share!r}; give a number between 0 and 1, such as 0.2")
+        raise SplitError(f"the holdout share is {cell_in_words(share)}; give a number between 0 and 1, such as 0.2")
     count = int(round(share * n))
     if n < 2:
         raise NotEnoughRowsError(f"a holdout needs at least 2 rows; the table has {n}")
@@ -41,7 +42,7 @@ def holdout_mask(
     [False, False, False, True, True]
     """
     if mode not in SPLIT_MODES:
-        raise SplitError(f"split mode {mode!r} is not known; choose one of: {', '.join(SPLIT_MODES)}")
+        raise SplitError(f"split mode {cell_in_words(mode)} is not known; choose one of: {', '.join(SPLIT_MODES)}")
     count = _holdout_count(n_rows, share)
     mask = np.zeros(n_rows, dtype=bool)
     if mode == "ordered":
@@ -57,7 +58,7 @@ def holdout_mask(
     for label, rows in groups.items():
         if len(rows) < 2:
             raise SplitError(
-                f"class {label!r} has a single row, so it cannot be in both training and holdout rows; "
+                f"class {cell_in_words(label)} has a single row, so it cannot be in both training and holdout rows; "
                 "add rows of that class, merge it with another, or use a random split"
             )
         take = int(round(share * len(rows)))
@@ -104,7 +105,7 @@ def k_folds(
         for label, rows in _groups(labels).items():
             if len(rows) < k:
                 raise SplitError(
-                    f"class {label!r} has {len(rows)} rows, fewer than the {k} folds; use fewer folds or unstratified folds"
+                    f"class {cell_in_words(label)} has {len(rows)} rows, fewer than the {k} folds; use fewer folds or unstratified folds"
                 )
             fold_of[rng.permutation(rows)] = (np.arange(len(rows)) + offset) % k
             offset += len(rows)

@@ -78,3 +78,12 @@ def test_score_of_a_binary_model_uses_its_threshold(rng):
     predicted = model.predict(X)
     assert found["accuracy"] == pytest.approx((predicted == y).mean())
     assert found["confusion"][:, 1].sum() == (predicted == "yes").sum()
+
+
+def test_scores_leave_mape_out_for_a_target_that_crosses_zero(rng):
+    X, y = _signal_and_noise(rng, rows=120)  # y is centred on 0, so it crosses zero
+    model = sheetnet.fit(X, y, hidden=(3,), seed=0, epochs=50)
+    found = sheetnet.score(model, X, y)
+    assert found["mape"] is None and found["rmse"] > 0
+    folds = sheetnet.cross_validate(X, y, k=3, hidden=(3,), workers=1, epochs=30)
+    assert "mape" not in folds["mean"] and set(folds["mean"]) == {"rmse", "mae", "r2"}

@@ -136,7 +136,7 @@ def test_settings_as_a_two_column_range(shipments):
 def test_lags_are_aligned_with_the_series():
     answer = cellfn.lags([["sales"], [10], [11], [12], [None], [14]], "1,2")
     assert answer == [["sales lag 1", "sales lag 2"], ["", ""], [10.0, ""], [11.0, 10.0], [12.0, 11.0], ["", 12.0]]
-    _is_message(cellfn.lags([["sales"], [1], ["many"]], 1), "text in a numeric series", "row 3 of the table")
+    _is_message(cellfn.lags([["sales"], [1], ["many"]], 1), "not a number in a numeric series", "row 3 of the table")
 
 
 # --- bad cells and bad calls ---------------------------------------------------------------

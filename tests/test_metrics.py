@@ -1,5 +1,7 @@
 """Every metric against sklearn.metrics on the same inputs (reference: scikit-learn)."""
 
+import warnings
+
 import numpy as np
 import pytest
 from sklearn import metrics as reference
@@ -24,6 +26,44 @@ def test_regression_metrics_equal_scikit_learn(regression_pair):
 
 def test_mape_is_undefined_when_an_actual_value_is_zero():
     assert metrics.mape([0.0, 2.0], [1.0, 2.0]) is None
+    # scikit-learn's mean_absolute_percentage_error divides by max(|y|, machine epsilon) instead (its documented
+    # behaviour), so one zero actual value makes the mean astronomically large: the reason sheetnet leaves MAPE out
+    assert reference.mean_absolute_percentage_error([0.0, 2.0], [1.0, 2.0]) > 1e14
+    assert "an actual value is 0" in metrics.mape_left_out_reason([0.0, 2.0])
+
+
+def test_mape_is_left_out_for_targets_that_cross_or_come_near_zero():
+    crossing = np.array([-3.0, -1.0, 2.0, 5.0])
+    assert metrics.mape(crossing, crossing + 0.5) is None
+    assert "cross zero" in metrics.mape_left_out_reason(crossing)
+    near = np.array([100.0, 120.0, 0.2, 90.0])  # 0.2 is below 1% of the mean size (about 78)
+    assert metrics.mape(near, near + 1.0) is None
+    reason = metrics.mape_left_out_reason(near)
+    assert reason.startswith("some actual values lie near 0 (the smallest size is 0.2, against a typical size of 77.5)")  # 310.2 / 4, to 3 digits
+    negative = np.array([-10.0, -12.0, -9.0])  # all one sign and well away from 0: defined, and equal to the reference
+    assert metrics.mape_left_out_reason(negative) is None
+    assert metrics.mape(negative, negative + 1.0) == pytest.approx(reference.mean_absolute_percentage_error(negative, negative + 1.0), rel=1e-12)
+
+
+def test_regression_metrics_keep_a_none_for_an_undefined_mape():
+    found = metrics.regression_metrics([-1.0, 1.0, 2.0], [-1.5, 1.0, 2.5])
+    assert found["mape"] is None
+    assert found["rmse"] == pytest.approx(np.sqrt(reference.mean_squared_error([-1.0, 1.0, 2.0], [-1.5, 1.0, 2.5])), rel=1e-12)
+    assert found["mae"] == pytest.approx(reference.mean_absolute_error([-1.0, 1.0, 2.0], [-1.5, 1.0, 2.5]), rel=1e-12)
+    assert found["r2"] == pytest.approx(reference.r2_score([-1.0, 1.0, 2.0], [-1.5, 1.0, 2.5]), rel=1e-12)
+
+
+def test_roc_auc_is_none_for_one_class_where_the_reference_has_no_value():
+    # scikit-learn's roc_auc_score has no value either with one class present: the installed version warns and
+    # returns NaN (older versions raised ValueError); sheetnet returns None and SCORE names the reason
+    assert metrics.roc_auc(np.array([True, True, True]), np.array([0.2, 0.5, 0.9])) is None
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        try:
+            value = reference.roc_auc_score([1, 1, 1], [0.2, 0.5, 0.9])
+        except ValueError:
+            value = float("nan")
+    assert np.isnan(value)
 
 
 def _classification_case(rng, n_classes, rows=120):

@@ -8,7 +8,7 @@ from hypothesis import strategies as st
 
 import sheetnet
 from sheetnet import errors
-from sheetnet.preparation import fit_preparation, fit_target, read_table, read_target
+from sheetnet.preparation import fit_preparation, fit_target, numbers_of, planned_width, read_table, read_target, task_choice_in_words
 
 FAST = dict(epochs=25, validation_share=0)
 few_examples = settings(max_examples=12, deadline=None)
@@ -134,3 +134,44 @@ def test_duplicate_column_names_are_refused():
     frame = pd.DataFrame([[1, 2], [3, 4]], columns=["a", "a"])
     with pytest.raises(errors.InputError, match="two columns named 'a'"):
         read_table(frame)
+
+
+def test_a_stray_text_in_a_numeric_target_is_a_bad_cell_not_a_class():
+    values = [float(v) for v in np.linspace(1, 40, 40)]
+    values[7] = "n/a"
+    with pytest.raises(errors.BadValueError) as refused:
+        fit_target(read_target(values))
+    assert (refused.value.column, refused.value.row, refused.value.value) == ("target", 8, "n/a")
+    assert str(refused.value).startswith("column 'target', row 8: text in a numeric column ('n/a'); type a number")
+    assert fit_target(read_target(values), "multiclass").task == "multiclass"  # asked for: every value is a class
+    mostly_text = ["x", "y", "x", "y", 3]
+    assert fit_target(read_target(mostly_text)).classes == (3, "x", "y")
+
+
+def test_too_many_classes_and_constant_targets_are_named_in_words():
+    with pytest.raises(errors.SizeError, match="the target has 300 different values"):
+        fit_target(read_target([f"id{i}" for i in range(300)]))
+    with pytest.raises(errors.ConstantColumnError, match=r"the same value \(2\.5\) in every training row"):
+        fit_target(read_target(np.full(10, 2.5)))
+
+
+def test_the_task_choice_in_words_names_the_rule_and_the_override():
+    assert task_choice_in_words("regression", "regression", ()) == "regression, as the setting task=regression asked"
+    assert "task=multiclass" in task_choice_in_words("regression", "auto", ())
+    assert task_choice_in_words("binary", "auto", ("no", "yes")).endswith("so the model tells which of the two applies")
+    assert "task=regression" in task_choice_in_words("binary", "auto", (0, 1))
+    assert "holds text with 3 different values (a, b, c)" in task_choice_in_words("multiclass", "auto", ("a", "b", "c"))
+
+
+def test_planned_width_counts_one_input_per_category():
+    frame = pd.DataFrame({"speed": [1.0, 2.0, 3.0, 4.0], "site": ["n", "s", "e", "n"], "code": [1.0, 2.0, 1.0, 7.0]})
+    assert planned_width(read_table(frame)) == 1 + 3 + 1
+    assert planned_width(read_table(frame), categories=["code"]) == 1 + 3 + 3
+    assert planned_width(read_table(frame), categories=["code"]) == fit_preparation(read_table(frame), ["code"]).width
+
+
+def test_numbers_too_large_to_scale_are_named():
+    with pytest.raises(errors.BadValueError, match=r"column 'load', row 3: the number is too large to work with \(1E\+200\)"):
+        numbers_of("load", np.array([1.0, 2.0, 1e200]))
+    with pytest.raises(errors.BadValueError, match=r"row 2: the number is too large"):
+        numbers_of("load", np.array([1.0, -1e101], dtype=object))

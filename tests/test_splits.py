@@ -30,6 +30,17 @@ def test_stratified_split_refuses_a_class_with_one_row():
         holdout_mask(4, 0.5, mode="stratified", labels=labels)
 
 
+def test_split_messages_show_labels_in_spreadsheet_words():
+    labels = np.array([1.0, 1.0, 1.0, 2.0])
+    with pytest.raises(errors.SplitError) as refused:
+        holdout_mask(4, 0.5, mode="stratified", labels=labels)
+    assert str(refused.value).startswith("class 2 has a single row")  # not np.float64(2.0)
+    with pytest.raises(errors.SplitError, match="class 1 has 3 rows, fewer than the 5 folds"):
+        k_folds(10, 5, labels=np.array([1.0] * 3 + [0.0] * 7))
+    with pytest.raises(errors.SplitError, match="^the holdout share is 1.5; give a number between 0 and 1"):
+        holdout_mask(10, np.float64(1.5))
+
+
 @pytest.mark.parametrize("share", [0, 1, 1.5, -0.1])
 def test_holdout_share_must_lie_between_zero_and_one(share):
     with pytest.raises(errors.SplitError, match="between 0 and 1"):
