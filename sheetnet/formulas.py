@@ -7,8 +7,7 @@ workbook-level names, so retraining a model into the same names updates
 every native prediction without rewriting a formula.
 
 Only functions that Excel 2010 and later and LibreOffice 7.4 and later both
-evaluate are used: MMULT, INDEX, TANH, EXP, ABS, SUM, MAX, MATCH, IF, NA.
-Each formula is entered as a single-cell array formula (so MMULT and the
+evaluate are used (`ALLOWED_FUNCTIONS`). Each formula is entered as a single-cell array formula (so MMULT and the
 element-wise arithmetic work the same everywhere); no LET, LAMBDA, SEQUENCE
 or spilled arrays.
 
@@ -23,21 +22,19 @@ whole number reads without decimals (``3.0`` is ``'3'``), any other number as
 Python writes it (``2.5``, ``1e-07``), TRUE and FALSE as those words; blanks
 and error values are refused. Number-to-text conversion differs between
 spreadsheet engines (digits, decimal separator), so the formula never turns
-numbers into text. Instead each ``cats<i>`` constant has two rows
-(`category_cells`):
+numbers into text. Instead a ``cats<i>`` constant is one row
+(`category_lookup`): every key as a spreadsheet's TRIM leaves a text (runs of
+inner spaces made one), always written as text so ``'=1+1'`` or ``'3'`` stay
+texts; then, for each key the engine reads from a number (``'3'`` from 3,
+``'2.5'`` from 2.5; `category_number`), that number. ``W1c<i>`` holds the
+first-layer row of each of those cells' categories, so a key with a number
+has its row twice.
 
-* row 1, each key as a spreadsheet's TRIM would leave it (runs of inner
-  spaces made one), always written as text, so ``'=1+1'`` or ``'3'`` stay
-  texts;
-* row 2, the number the engine reads as that key (``'3'`` is 3, ``'2.5'`` is
-  2.5; `category_number`), or the key itself as text where no number reads as
-  it (``'north'``, ``'3.0'``, ``'007'``): a number never equals a text.
-
-The formula compares by the kind of the cell: a logical cell as the word
-TRUE or FALSE against row 1, a number against row 2, a text's TRIM against
-row 1; ``MATCH(1, hits, 0)`` picks the one matching key's first-layer row,
-and no match (a category the model never saw, a blank, an error value) gives
-#N/A, where the engine refuses the row.
+The formula turns the cell into something comparable: a logical becomes the
+word TRUE or FALSE (only where a key could match a logical), a number stays a number (a number never equals a text),
+a text is TRIMmed; ``MATCH(1, --(that = cats), 0)`` finds the cell, and
+``INDEX`` takes its row of ``W1c``. No match (a category the model never saw,
+a blank, an error value) gives #N/A, where the engine refuses the row.
 
 Numeric inputs: the engine refuses blanks, text and error values there,
 while a spreadsheet reads a blank as 0; so the whole formula is
@@ -49,9 +46,9 @@ is a number to a spreadsheet but refused by the engine.)
 Limits, because a spreadsheet compares its own way: texts compare ignoring
 case, TRIM shrinks inner runs of spaces, and numbers compare equal to about
 15 significant digits. Keys that collide so are all made unmatchable (a
-leading space in row 1, which no TRIMmed text has; the key's text in row 2),
-so a cell reading as one of them gives #N/A instead of a wrong category; a
-cell differing from a category only in case or inner spaces reads as it.
+leading space, which no TRIMmed text has; no number cell), so a cell
+reading as one of them gives #N/A instead of a wrong category; a cell
+differing from a known category only in case or inner spaces reads as it.
 TRIM keeps tabs, line breaks and non-breaking spaces at a text's ends (the
 engine strips them), so such cells give #N/A. A date is a number to a
 spreadsheet, so it never matches the text the engine makes of a date.
@@ -115,23 +112,29 @@ def category_number(key: str) -> float | None:
     return number
 
 
-def category_cells(categories: Sequence[str]) -> tuple[tuple[float | str, ...], ...]:
-    """A ``cats<i>`` constant: the keys as a spreadsheet compares texts, then the number each is read from.
+def category_lookup(categories: Sequence[str]) -> tuple[tuple[float | str, ...], tuple[int, ...]]:
+    """The one row of a ``cats<i>`` constant, and the category each of its cells stands for.
 
-    Keys a spreadsheet cannot tell apart (differing only in case or inner
-    spaces, or numbers equal to 15 digits) are made unmatchable, so a cell
-    reading as any of them gives #N/A rather than the wrong category.
+    First every key as a spreadsheet's TRIM leaves a text (always written as
+    text), then the number of each key the engine reads from a number. Keys a
+    spreadsheet cannot tell apart (differing only in case or inner spaces, or
+    numbers equal to 15 digits) are made unmatchable: a leading space, which
+    no TRIMmed text has, or no number at all.
 
-    >>> category_cells(["3", "North", "a  b", "north"])
-    (('3', ' North', 'a b', ' north'), (3.0, 'North', 'a  b', 'north'))
+    >>> category_lookup(["3", "North", "a  b", "north"])
+    (('3', ' North', 'a b', ' north', 3.0), (0, 1, 2, 3, 0))
     """
     texts = [re.sub(" +", " ", key) for key in categories]
-    numbers = [category_number(key) for key in categories]
     folded = Counter(text.lower() for text in texts)
-    close = Counter(float(f"{n:.15g}") for n in numbers if n is not None)
-    row1 = tuple(" " + text if folded[text.lower()] > 1 else text for text in texts)  # TRIM never leaves a leading space
-    row2 = tuple(key if n is None or close[float(f"{n:.15g}")] > 1 else n for key, n in zip(categories, numbers))
-    return row1, row2
+    cells: list[float | str] = [" " + text if folded[text.lower()] > 1 else text for text in texts]
+    rows = list(range(len(categories)))
+    numbers = [(i, n) for i, n in enumerate(category_number(key) for key in categories) if n is not None]
+    close = Counter(float(f"{n:.15g}") for _, n in numbers)
+    for i, number in numbers:
+        if close[float(f"{number:.15g}")] == 1:
+            cells.append(number)
+            rows.append(i)
+    return tuple(cells), tuple(rows)
 
 
 def _rows(array: np.ndarray) -> tuple[tuple[float, ...], ...]:
@@ -152,7 +155,7 @@ def formula_constants(model: Model, model_name: str) -> list[Constant]:
             numeric_rows.append(at)
         else:
             category_rows.append((index, spec))
-            constants.append(Constant(f"{prefix}cats{index + 1}", category_cells(spec.categories)))
+            constants.append(Constant(f"{prefix}cats{index + 1}", (category_lookup(spec.categories)[0],)))
         at += spec.width
     means = np.array([s.mean for s in specs if isinstance(s, NumericInput)])
     scales = np.array([s.scale for s in specs if isinstance(s, NumericInput)])
@@ -167,7 +170,8 @@ def formula_constants(model: Model, model_name: str) -> list[Constant]:
         at = 0
         for index, spec in enumerate(specs):
             if isinstance(spec, CategoryInput):
-                constants.append(Constant(f"{prefix}m{m}_W1c{index + 1}", _rows(w1[at:at + spec.width])))
+                rows = list(category_lookup(spec.categories)[1])
+                constants.append(Constant(f"{prefix}m{m}_W1c{index + 1}", _rows(w1[at:at + spec.width][rows])))
             at += spec.width
         for layer, (w, b) in enumerate(layers[1:], start=2):
             constants.append(Constant(f"{prefix}m{m}_W{layer}", _rows(w)))
@@ -198,13 +202,18 @@ def _activate(activation: str, x: str) -> str:
     raise FormulaError(f"the activation {activation!r} has no native formula")
 
 
-def _category_hits(cell: str, cats: str) -> str:
-    """A 1 x categories row of 1 where the cell reads as that category, else 0 (see the module docstring)."""
-    texts, numbers = f"INDEX({cats},1,0)", f"INDEX({cats},2,0)"
-    return (
-        f'--IF(ISLOGICAL({cell}),IF({cell},"TRUE","FALSE")={texts},'
-        f"IF(ISNUMBER({cell}),{cell}={numbers},TRIM({cell})={texts}))"
-    )
+def _category_row(cell: str, cats: str, weights: str, spec: CategoryInput) -> str:
+    """The first-layer row of the category the cell reads as, #N/A for none (see the module docstring)."""
+    comparable = f"IF(ISNUMBER({cell}),{cell},TRIM({cell}))"
+    if _logicals_matter(spec.categories):
+        comparable = f'IF(ISLOGICAL({cell}),IF({cell},"TRUE","FALSE"),{comparable})'
+    return f"INDEX({weights},MATCH(1,--({comparable}={cats}),0),0)"
+
+
+def _logicals_matter(categories: Sequence[str]) -> bool:
+    """Whether a logical cell needs its own reading: a TRUE or FALSE key, or a key read from 0 or 1
+    (LibreOffice holds logicals as the numbers 1 and 0). Without one, a logical cell matches nothing."""
+    return any(c.lower() in ("true", "false") or category_number(c) in (0.0, 1.0) for c in categories)
 
 
 def _member_output(model: Model, prefix: str, member: int, cells: dict[str, str]) -> str:
@@ -217,8 +226,7 @@ def _member_output(model: Model, prefix: str, member: int, cells: dict[str, str]
             numeric += 1
             terms.append(f"{cell}*INDEX({prefix}m{member}_W1n,{numeric},0)")
         else:
-            hits = _category_hits(cell, f"{prefix}cats{index + 1}")
-            terms.append(f"INDEX({prefix}m{member}_W1c{index + 1},MATCH(1,{hits},0),0)")
+            terms.append(_category_row(cell, f"{prefix}cats{index + 1}", f"{prefix}m{member}_W1c{index + 1}", spec))
     x = "+".join(terms)
     for layer in range(2, len(model.sizes)):
         x = f"MMULT({_activate(model.activation, x)},{prefix}m{member}_W{layer})+{prefix}m{member}_b{layer}"
