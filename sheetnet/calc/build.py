@@ -2,8 +2,8 @@
 
 Calc names an add-in function ``<service name>.<METHOD>``; the service name is ``SHEETNET`` and each
 method is the registry name's last part in lower case, so cells read ``=SHEETNET.PREDICT(...)``
-exactly as with the Office add-in. Required ranges are typed ``sequence< sequence< any > >`` (the
-function wizard offers a range); every other argument is ``any`` (Calc lets an ``any`` be left out).
+exactly as with the Office add-in. Every argument is ``any`` (see `idl_type`); every answer is
+``sequence< sequence< any > >``, the only return type Calc shows as a 2-D array.
 """
 
 from __future__ import annotations
@@ -67,7 +67,10 @@ def idl_name(argument: Argument) -> str:
 
 
 def idl_type(argument: Argument) -> str:
-    return RANGE_TYPE if argument.kind == "range" and not argument.optional else "any"
+    """Every argument is ``any``: Calc hands a range to an ``any`` with its #N/A cells as blanks (voids),
+    where a range-typed argument refuses the whole call (Err:504), and the #N/A padding of an array
+    formula larger than its answer (a model block's area) must not break the functions reading it."""
+    return "any"
 
 
 def interface_idl(registry: Iterable[CellFunction] = REGISTRY) -> str:
