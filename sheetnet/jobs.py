@@ -166,7 +166,7 @@ class JobBoard:
         names = _check_names(existing_names)
         job = Job(uuid.uuid4().hex, name, names)
         with self._lock:
-            if self.running_count() >= self.max_running:
+            if self._running() >= self.max_running:
                 raise BoardFull(
                     f"{self.max_running} models are training already, the most this server runs at once; "
                     "wait for one to finish or cancel one, then start again"
@@ -195,6 +195,10 @@ class JobBoard:
             return list(self._jobs.values())
 
     def running_count(self) -> int:
+        with self._lock:
+            return self._running()
+
+    def _running(self) -> int:
         return sum(job.state == "running" for job in self._jobs.values())
 
     def models(self) -> list[dict[str, Any]]:

@@ -30,7 +30,7 @@ import secrets
 import threading
 from http import HTTPStatus
 from pathlib import Path
-from typing import Annotated, Any, Mapping
+from typing import Any, Mapping
 
 from fastapi import FastAPI, HTTPException, Request
 from fastapi.exceptions import RequestValidationError
@@ -51,8 +51,6 @@ ADDIN_FILES = Path(__file__).parent / "addin"
 STATUS_OF_ERROR: tuple[tuple[type[SheetnetError], int], ...] = ((UnknownJob, 404), (JobRequestError, 422), (BoardFull, 429))
 log = logging.getLogger(__name__)
 
-Cell = bool | int | float | str | None
-
 
 class CallBody(BaseModel):
     args: list[Any] = Field(default_factory=list, description="the cell function's arguments in order; ranges as lists of rows")
@@ -68,9 +66,8 @@ class JobBody(BaseModel):
 
 class PlacementsBody(BaseModel):
     name: str = Field(description="the model's name")
-    block: list[Annotated[list[Cell], Field(min_length=1)]] = Field(
-        min_length=1, description="the model block, as SHEETNET.TRAIN returned it (a list of rows, none empty)"
-    )
+    # any cells: what is wrong with a damaged block is the service's to say (a 400 with its message)
+    block: list[list[Any]] = Field(description="the model block, as SHEETNET.TRAIN returned it (a list of rows)")
     existing_names: list[str] = Field(default_factory=list, description="the workbook's defined names now")
 
 
@@ -94,11 +91,18 @@ def _plain_detail(status: int, detail: Any, request: Request) -> str:
 
 
 def _problems(error: RequestValidationError) -> str:
-    def place(location: Any) -> str:
-        parts = [str(p) for p in location if p != "body"]
-        return " item ".join(parts) if parts else "the body"
+    """Pydantic's findings in plain words: where (field, then item numbers counted from 1) and what."""
 
-    return "; ".join(f"{place(e.get('loc', ()))}: {e.get('msg', 'not accepted')}" for e in error.errors())
+    def place(location: Any) -> str:
+        parts = [f"item {p + 1}" if isinstance(p, int) else str(p) for p in location if p != "body"]
+        return " ".join(parts) if parts else "the body"
+
+    found = []
+    for problem in error.errors():
+        if problem.get("type") == "json_invalid":
+            return "it is not JSON"
+        found.append(f"{place(problem.get('loc', ()))}: {problem.get('msg', 'not accepted')}")
+    return "; ".join(dict.fromkeys(found))
 
 
 class BodyLimit:

@@ -252,10 +252,12 @@ def test_placements_refuse_a_bad_name_or_a_damaged_block_with_the_services_messa
     for junk in ([], [[]], [["sheetnet model block"]], [[{"a": 1}]], [["x", None, 1e308, True]]):
         answer = client.post("/v1/placements", json={"name": "shipments", "block": junk})
         assert answer.status_code in (400, 422) and isinstance(answer.json()["detail"], str), junk
-    assert client.post("/v1/placements", json={"name": "shipments", "block": [[]]}).json()["detail"] == (
-        "the request body is not what this call takes (block item 0: List should have at least 1 item after validation, not 0); "
-        "GET /openapi.json shows what each call takes"
-    )
+    empty = client.post("/v1/placements", json={"name": "shipments", "block": [[]]})
+    assert empty.status_code == 400 and empty.json()["detail"].startswith("the model argument is not a model block")
+    not_json = client.post("/v1/jobs", content=b"{not json", headers={"content-type": "application/json"})
+    assert not_json.status_code == 422 and not_json.json()["detail"].startswith("the request body is not what this call takes (it is not JSON)")
+    wrong_item = client.post("/v1/jobs", json={"name": "x", "args": [1, 2], "existing_names": ["a", 3]})
+    assert "(existing_names item 2: Input should be a valid string)" in wrong_item.json()["detail"]
 
 
 # --- one shape for every error ----------------------------------------------------------------
@@ -366,3 +368,13 @@ def test_cors_answers_only_our_own_origin(client):
     assert ours.headers.get("access-control-allow-origin") == "http://127.0.0.1"
     other = client.get("/v1/functions", headers={"Origin": "http://evil.example"})
     assert "access-control-allow-origin" not in other.headers
+
+
+def test_an_unexpected_failure_answers_500_in_the_same_shape(client, monkeypatch, table):
+    def broken(*args, **kwargs):
+        raise RuntimeError("a bug deep inside")
+
+    monkeypatch.setattr(server.service, "model_placements", broken)
+    answer = client.post("/v1/placements", json={"name": "shipments", "block": [["sheetnet model block", 1]]})
+    assert answer.status_code == 500
+    assert answer.json() == {"detail": "the sheetnet server hit an unexpected problem; this is a bug, please report it with what you sent"}
