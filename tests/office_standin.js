@@ -10,10 +10,11 @@
 //   "VeryHidden" sheet (the reference says to make it hidden or visible first);
 // - Range.values: a string starting with "=", "+" or "-" is taken as a formula; null leaves a cell
 //   unchanged (the reference's numberFormat example writes nulls); "" empties it;
-// - a cell whose number format is Text ("@") keeps what is written as text (Excel's Text format:
-//   "the content is treated as text, displayed exactly as typed");
-// - from memory, not the reference: number-like text written to a General cell becomes a number;
-//   the last visible sheet cannot be hidden or deleted; a second name spelt the same is refused.
+// Beyond the API reference (Excel's own behaviour, from memory of Microsoft Support's pages on
+// formatting numbers as text and on keeping leading zeros):
+// - a cell whose number format is Text ("@") keeps what is written as text, even "=..." or "007";
+// - number-like text written to a General cell becomes a number;
+// - the last visible sheet cannot be hidden or deleted; a second name spelt the same is refused.
 // Sheet and defined names compare ignoring case, as Excel compares them.
 (function () {
   "use strict";
