@@ -434,29 +434,40 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     try:
-        if args.command == "demo":
-            return run_demo(args.seed, sys.stdout, args.out, args.pictures)
-        if args.command == "settings":
-            from .settings import settings_table_markdown
-
-            print(settings_table_markdown())
-            return 0
-        if args.command == "functions":
-            return run_functions(sys.stdout)
-        if args.command == "xl":
-            return run_xl_setup(args, sys.stdout)
-        if args.command == "serve":
-            return run_serve(args, sys.stdout)
-        if args.command == "calc":
-            from .calc.commands import run_calc
-
-            return run_calc(args, sys.stdout)
-        runners = {"train": run_train, "predict": run_predict, "formulas": run_formulas, "models": run_models, "check": run_check, "refresh": run_refresh}
-        return runners[args.command](args, sys.stdout)
+        code = _dispatch(args)
+        sys.stdout.flush()  # inside the try: a reader that stopped early shows here, not at exit
+        return code
     except SheetnetError as error:
         print(f"{type(error).__name__}: {error}", file=sys.stderr)
         return 1
-    return 2  # pragma: no cover - argparse rejects unknown commands
+    except BrokenPipeError:  # the reader (head, less) stopped early: nothing more to say, and no traceback at exit
+        import os
+
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        return 0
+
+
+def _dispatch(args: argparse.Namespace) -> int:
+    if args.command == "demo":
+        return run_demo(args.seed, sys.stdout, args.out, args.pictures)
+    if args.command == "settings":
+        from .settings import settings_table_markdown
+
+        print(settings_table_markdown())
+        return 0
+    if args.command == "functions":
+        return run_functions(sys.stdout)
+    if args.command == "xl":
+        return run_xl_setup(args, sys.stdout)
+    if args.command == "serve":
+        return run_serve(args, sys.stdout)
+    if args.command == "calc":
+        from .calc.commands import run_calc
+
+        return run_calc(args, sys.stdout)
+    runners = {"train": run_train, "predict": run_predict, "formulas": run_formulas, "models": run_models, "check": run_check, "refresh": run_refresh}
+    return runners[args.command](args, sys.stdout)
 
 
 if __name__ == "__main__":  # pragma: no cover

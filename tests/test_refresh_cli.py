@@ -91,3 +91,12 @@ def test_names_differing_only_in_case_are_one_model(tmp_path, capsys):
     direct = functions.raising(functions.predict)(read_model(open_book(path), "grades"), grid)
     predicted = openpyxl.load_workbook(path)["sn predict grades"]
     assert [predicted.cell(4 + i, 1).value for i in range(3)] == [row[0] for row in direct[1:4]]
+
+
+def test_piping_a_listing_into_a_reader_that_stops_early_is_quiet():
+    import subprocess
+    import sys
+
+    # the reader closes the pipe before sheetnet writes a line (as `head` does once it has read enough)
+    run = subprocess.run(f"'{sys.executable}' -m sheetnet.cli settings | (exec 0<&-; sleep 0)", shell=True, capture_output=True, text=True, timeout=60)
+    assert run.stderr == ""
