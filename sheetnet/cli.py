@@ -249,8 +249,9 @@ def run_serve(args: argparse.Namespace, out: TextIO) -> int:
     out.write(f"add-in manifest: {base}/addin/manifest.xml\n")
     out.flush()
     app = create_app(token, origin=base)
-    from .server_file import remove_server_file, write_server_file
+    from .server_file import exit_cleanly_on_terminate, remove_server_file, write_server_file
 
+    exit_cleanly_on_terminate()
     server_file = write_server_file(args.port, token, scheme)  # how the Calc extension finds this server
     try:
         uvicorn.run(app, host="127.0.0.1", port=args.port, log_level="warning", **tls)  # type: ignore[arg-type]

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import os
+import signal
 import tempfile
 from pathlib import Path
 from typing import Any
@@ -67,6 +68,16 @@ def remove_server_file(path: Path | None = None, pid: int | None = None) -> bool
         return False
     target.unlink(missing_ok=True)
     return True
+
+
+def exit_cleanly_on_terminate() -> None:
+    """Make SIGTERM end the process through ``SystemExit``, so ``finally`` blocks remove the file.
+    (uvicorn answers SIGTERM by shutting down and then raising the signal again under the handler
+    that was in place before it started: with the default one the process dies before cleaning up.)"""
+    def leave(number: int, frame: object) -> None:
+        raise SystemExit(128 + number)
+
+    signal.signal(signal.SIGTERM, leave)
 
 
 def _running(pid: int) -> bool:
