@@ -162,8 +162,8 @@ def _loss_curve(sheet: Any, model: Any, row: int, column: int) -> None:
     member = model.members[0]
     data_column = column + 12
     _header(sheet, row, data_column, ["epoch (sampled)", "training loss", "validation loss"])
-    n = len(member.training_curve)
-    epochs: list[int] = np.unique(np.linspace(1, member.epochs, n).round().astype(int)).tolist() if n else []
+    epochs = [int(e) for e in member.training_epochs]  # the epochs the curve's points were taken at
+    n = len(epochs)
     for i, (epoch, loss) in enumerate(zip(epochs, member.training_curve)):
         sheet.cell(row + 1 + i, data_column, int(epoch))
         sheet.cell(row + 1 + i, data_column + 1, loss)
