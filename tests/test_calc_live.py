@@ -211,3 +211,18 @@ def test_server_file_is_private(live: dict[str, Any]) -> None:
     path = live["home"] / ".sheetnet" / "server.json"
     assert (path.stat().st_mode & 0o777) == 0o600
 
+
+
+def test_an_oversized_model_area_works_through_iferror(live: dict[str, Any]) -> None:
+    """Calc 7.4 pads an array formula larger than its answer with #N/A, and refuses ranges holding
+    errors before any add-in runs (Err:504); IFERROR(area; "") turns the padding into blanks."""
+    book, office, table = live["book"], live["office"], live["table"]
+    n = len(table)
+    office.call("array_formula", doc=book.doc, sheet=SHEET, address="AK1:AS150", formula=f'=SHEETNET.TRAIN(A1:D{n};"loaves";3)')
+    office.call("array_formula", doc=book.doc, sheet=SHEET, address="AU1:AU3", formula='=SHEETNET.ABOUT(AK1:AS150)')
+    office.call("array_formula", doc=book.doc, sheet=SHEET, address=f"AW1:AW{n}", formula=f'=SHEETNET.PREDICT(IFERROR(AK1:AS150;"");A1:C{n})')
+    office.call("calculate", doc=book.doc)
+    padded = book.office.call("read", doc=book.doc, sheet=SHEET, address="AK1:AS150")
+    block = from_calc([row for row in padded if row[0] is not None])
+    assert office.call("cells", doc=book.doc, sheet=SHEET, address="AU1:AU1")[0][0]["error"] == 504
+    assert office.call("read", doc=book.doc, sheet=SHEET, address=f"AW1:AW{n}") == shown(functions.predict(block, [r[:3] for r in table]))
