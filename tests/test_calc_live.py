@@ -226,3 +226,10 @@ def test_an_oversized_model_area_works_through_iferror(live: dict[str, Any]) -> 
     block = from_calc([row for row in padded if row[0] is not None])
     assert office.call("cells", doc=book.doc, sheet=SHEET, address="AU1:AU1")[0][0]["error"] == 504
     assert office.call("read", doc=book.doc, sheet=SHEET, address=f"AW1:AW{n}") == shown(functions.predict(block, [r[:3] for r in table]))
+
+
+def test_store_command_without_options_takes_the_last_column_and_a_free_name(live: dict[str, Any]) -> None:
+    book, office = live["book"], live["office"]
+    done = office.call("store_command", doc=book.doc, sheet=SHEET, address="A1:D40", url=STORE_COMMAND)
+    assert done["result"] == "model model1 (loaves) stored on the hidden sheet sheetnet_model1 under the defined name model1", done
+    assert ["sheetnet_model1", False] in office.call("sheets", doc=book.doc)

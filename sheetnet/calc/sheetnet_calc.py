@@ -9,9 +9,12 @@ generated from sheetnet's registry when the extension is built.
 - ``SHEETNET.*`` cell functions (service ``com.sun.star.sheet.AddIn``, service name ``SHEETNET``):
   each returns a 2-D array; failures are one readable ``#SHEETNET! ...`` cell, never a bare error.
 - ``vnd.sheetnet.calc:store[?name=..&target=..&hidden=..&settings=..&table=..]`` (a protocol
-  handler, on the Tools > Add-Ons menu and a toolbar): trains the selected table (header row first;
-  the target defaults to its last column, the name to the first free ``modelN``) through the server
-  and writes the placements the server decides (hidden model sheet, block, constants, defined names).
+  handler, on the Tools > Add-Ons menu and a toolbar): trains the selected table (header row first)
+  through the server and writes the placements the server decides (hidden model sheet, block,
+  constants, defined names). From the menu a small dialog asks for the name, the target column
+  (the selection's last column by default), hidden layers and settings; with options in the command
+  address, or in an office not on screen, no dialog: the target defaults to the last column and the
+  name to the first free ``modelN``.
 """
 
 import json
@@ -379,8 +382,49 @@ def _free_model_name(existing):
     return f"model{number}"
 
 
-def store_model(doc, selection, options):
-    """Train the selected table through the server and store the model; returns what happened, in words."""
+class Cancelled(Exception):
+    pass
+
+
+DIALOG_FIELDS = (
+    ("name", "Model name"),
+    ("target", "Column to predict"),
+    ("hidden", "Hidden layers (8, or 8,4)"),
+    ("settings", "Settings (epochs=500; rate=0.3)"),
+)
+
+
+def ask_options(ctx, defaults):
+    """A small dialog for the menu and toolbar: the model's name, the target column, hidden layers and
+    settings, filled with the defaults; the answers, or None when cancelled."""
+    manager = ctx.ServiceManager
+    model = manager.createInstanceWithContext("com.sun.star.awt.UnoControlDialogModel", ctx)
+    model.Width, model.Height, model.Title = 260, 112, "sheetnet: store a model from the selected table"
+    for row, (key, label) in enumerate(DIALOG_FIELDS):
+        text = model.createInstance("com.sun.star.awt.UnoControlFixedTextModel")
+        text.PositionX, text.PositionY, text.Width, text.Height, text.Label = 6, 9 + 20 * row, 118, 12, label
+        model.insertByName("label_" + key, text)
+        field = model.createInstance("com.sun.star.awt.UnoControlEditModel")
+        field.PositionX, field.PositionY, field.Width, field.Height, field.Text = 126, 6 + 20 * row, 128, 14, defaults.get(key, "")
+        model.insertByName(key, field)
+    for key, label, kind, left in (("ok", "Train and store", 1, 126), ("cancel", "Cancel", 2, 194)):
+        button = model.createInstance("com.sun.star.awt.UnoControlButtonModel")
+        button.PositionX, button.PositionY, button.Width, button.Height, button.Label, button.PushButtonType = left, 88, 60, 16, label, kind
+        model.insertByName(key, button)
+    dialog = manager.createInstanceWithContext("com.sun.star.awt.UnoControlDialog", ctx)
+    dialog.setModel(model)
+    dialog.createPeer(manager.createInstanceWithContext("com.sun.star.awt.Toolkit", ctx), None)
+    try:
+        if dialog.execute() != 1:
+            return None
+        return {key: dialog.getControl(key).getText().strip() for key, _ in DIALOG_FIELDS}
+    finally:
+        dialog.dispose()
+
+
+def store_model(doc, selection, options, ask=None):
+    """Train the selected table through the server and store the model; returns what happened, in words.
+    ``ask`` (the dialog) gets the defaults and returns the options, or None to cancel."""
     if options.get("table"):
         sheet_name, _, address = options["table"].rpartition(".")
         sheet = doc.Sheets.getByName(sheet_name.strip("$'")) if sheet_name else doc.getCurrentController().getActiveSheet()
@@ -391,6 +435,11 @@ def store_model(doc, selection, options):
     if len(table) < 2:
         raise ServerProblem("the selection has no data rows; select the table with its header row and the rows below")
     existing = list(doc.NamedRanges.getElementNames())
+    if ask is not None:
+        options = ask({"name": _free_model_name(existing), "target": str(table[0][-1]), "hidden": "", "settings": ""})
+        if options is None:
+            raise Cancelled()
+        options = {k: v for k, v in options.items() if v}
     target = options.get("target") or str(table[0][-1])
     name = options.get("name") or _free_model_name(existing)
     args = [table, target, options.get("hidden"), options.get("settings")]
@@ -442,8 +491,12 @@ class StoreCommand(unohelper.Base, XInitialization, XDispatchProvider, XNotifyin
         try:
             controller = self.frame.getController()
             doc = controller.getModel()
-            text = store_model(doc, controller.getSelection(), _query(url.Complete))
+            options = _query(url.Complete)
+            ask = (lambda defaults: ask_options(self.ctx, defaults)) if not options and self._on_screen() else None
+            text = store_model(doc, controller.getSelection(), options, ask)
             ok = True
+        except Cancelled:
+            return False, "cancelled"
         except ServerProblem as problem:
             text, ok = message(str(problem)), False
         except Exception as error:
@@ -451,11 +504,17 @@ class StoreCommand(unohelper.Base, XInitialization, XDispatchProvider, XNotifyin
         self._tell(text)
         return ok, text
 
+    def _on_screen(self):
+        try:
+            return bool(self.frame.getContainerWindow().isVisible())
+        except Exception:
+            return False
+
     def _tell(self, text):
         """A message box when the window is on screen (never in a headless or hidden office)."""
         try:
             window = self.frame.getContainerWindow()
-            if not window.isVisible():
+            if not self._on_screen():
                 return
             toolkit = self.ctx.ServiceManager.createInstanceWithContext("com.sun.star.awt.Toolkit", self.ctx)
             from com.sun.star.awt.MessageBoxType import INFOBOX
