@@ -81,6 +81,8 @@ def exit_cleanly_on_terminate() -> None:
 
 
 def _running(pid: int) -> bool:
+    if os.name == "nt":  # os.kill there would end the process, not probe it: trust the file
+        return True
     try:
         os.kill(pid, 0)
     except ProcessLookupError:
