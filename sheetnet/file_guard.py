@@ -26,6 +26,7 @@ import os
 import secrets
 import shutil
 import stat
+import threading
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -79,67 +80,110 @@ def check_unchanged(path: Path, seen: Fingerprint) -> None:
 
 # --- the lock -----------------------------------------------------------------------------
 
-class WorkbookLock:
-    """Held while one command reads, trains and writes a workbook; see the module docstring."""
+class _Held:
+    """One lock this process holds on one file, shared by every book of the process open on it."""
 
-    def __init__(self, path: Path, descriptor: int | None, lock_file: Path | None = None) -> None:
+    def __init__(self, key: tuple[int, int], descriptor: int | None, lock_file: Path | None = None) -> None:
+        self.key, self.descriptor, self.lock_file, self.count = key, descriptor, lock_file, 0
+
+
+_HELD: dict[tuple[int, int], _Held] = {}
+_HELD_GUARD = threading.Lock()
+
+
+class WorkbookLock:
+    """Held while one command reads, trains and writes a workbook; see the module docstring.
+
+    Exclusive between processes; within one process, books open on the same file share it
+    (a second `acquire` there does not wait), and the fingerprint check keeps their saves apart."""
+
+    def __init__(self, path: Path, held: _Held) -> None:
         self.path = path
-        self.descriptor = descriptor
-        self.lock_file = lock_file
+        self._held: _Held | None = held
+
+    @property
+    def descriptor(self) -> int | None:
+        return None if self._held is None else self._held.descriptor
 
     @classmethod
     def acquire(cls, path: Path, wait: float | None = None) -> "WorkbookLock":
         deadline = time.monotonic() + (LOCK_WAIT_SECONDS if wait is None else wait)
-        if fcntl is None:  # pragma: no cover
-            return cls._acquire_file(path, deadline)
         while True:
-            try:
-                descriptor = os.open(path, os.O_RDONLY)
-            except PermissionError:
-                raise WorkbookFileError(f"{path.name} cannot be read (no permission); ask its owner for access") from None
-            try:
-                fcntl.flock(descriptor, fcntl.LOCK_EX | fcntl.LOCK_NB)
-            except BlockingIOError:
-                os.close(descriptor)
-                if time.monotonic() > deadline:
-                    raise WorkbookFileError(_busy(path)) from None
-                time.sleep(0.05)
-                continue
-            except OSError:  # a file system without locks: go on unlocked rather than refuse every command
-                return cls(path, descriptor)
-            try:
-                same = os.fstat(descriptor).st_ino == os.stat(path).st_ino
-            except FileNotFoundError:
-                same = False
-            if same:
-                return cls(path, descriptor)
-            os.close(descriptor)  # the file was replaced while we waited: lock the new one
+            with _HELD_GUARD:
+                info = os.stat(path)
+                held = _HELD.get((info.st_dev, info.st_ino))
+                if held is not None:
+                    held.count += 1
+                    return cls(path, held)
+                held = cls._try(path)
+                if held is not None:
+                    held.count = 1
+                    _HELD[held.key] = held
+                    return cls(path, held)
+            if time.monotonic() > deadline:
+                raise WorkbookFileError(_busy(path))
+            time.sleep(0.05)
 
-    @classmethod
-    def _acquire_file(cls, path: Path, deadline: float) -> "WorkbookLock":  # pragma: no cover - Windows
-        lock_file = path.with_name(LOCK_FILE_PREFIX + path.name)
-        while True:
+    @staticmethod
+    def _try(path: Path) -> _Held | None:
+        """The lock if free now, else None (also when the file was replaced meanwhile: the caller tries again)."""
+        if fcntl is None:  # pragma: no cover - Windows
+            lock_file = path.with_name(LOCK_FILE_PREFIX + path.name)
             try:
                 os.close(os.open(lock_file, os.O_CREAT | os.O_EXCL | os.O_WRONLY))
-                return cls(path, None, lock_file)
             except FileExistsError:
-                if time.monotonic() > deadline:
-                    raise WorkbookFileError(_busy(path) + f" (if none is running, delete {lock_file.name})") from None
-                time.sleep(0.05)
+                return None
+            info = os.stat(path)
+            return _Held((info.st_dev, info.st_ino), None, lock_file)
+        try:
+            descriptor = os.open(path, os.O_RDONLY)
+        except PermissionError:
+            raise WorkbookFileError(f"{path.name} cannot be read (no permission); ask its owner for access") from None
+        try:
+            fcntl.flock(descriptor, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            os.close(descriptor)
+            return None
+        except OSError:  # a file system without locks: go on unlocked rather than refuse every command
+            pass
+        mine = os.fstat(descriptor)
+        try:
+            current = os.stat(path)
+        except FileNotFoundError:
+            current = None
+        if current is None or (current.st_dev, current.st_ino) != (mine.st_dev, mine.st_ino):
+            os.close(descriptor)
+            return None
+        return _Held((mine.st_dev, mine.st_ino), descriptor)
 
     def move_to(self, descriptor: int) -> None:
-        """Hold the lock on a new file (already locked by the caller) and let the old one go."""
-        old, self.descriptor = self.descriptor, descriptor
+        """Hold the lock on the new file that replaced the old one (``descriptor`` is open on it, locked)."""
+        with _HELD_GUARD:
+            held = self._held
+            if held is None:
+                os.close(descriptor)
+                return
+            old = held.descriptor
+            _HELD.pop(held.key, None)
+            info = os.fstat(descriptor)
+            held.key, held.descriptor = (info.st_dev, info.st_ino), descriptor
+            _HELD[held.key] = held
         if old is not None:
             os.close(old)
 
     def release(self) -> None:
-        if self.descriptor is not None:
-            os.close(self.descriptor)
-            self.descriptor = None
-        if self.lock_file is not None:  # pragma: no cover - Windows
-            self.lock_file.unlink(missing_ok=True)
-            self.lock_file = None
+        with _HELD_GUARD:
+            held, self._held = self._held, None
+            if held is None:
+                return
+            held.count -= 1
+            if held.count > 0:
+                return
+            _HELD.pop(held.key, None)
+        if held.descriptor is not None:
+            os.close(held.descriptor)
+        if held.lock_file is not None:  # pragma: no cover - Windows
+            held.lock_file.unlink(missing_ok=True)
 
 
 def _busy(path: Path) -> str:
@@ -208,7 +252,8 @@ def replace_file(path: Path, write: Callable[[BinaryIO], object], lock: Workbook
             "check that the file and its folder are writable and not in use, then run sheetnet again"
         ) from None
     except OSError as error:
-        raise WorkbookFileError(f"{path.name} could not be saved ({error.strerror or error}); nothing was changed. Free some space or check the disk, then run sheetnet again") from None
+        reason = error.strerror or str(error)
+        raise WorkbookFileError(f"{path.name} could not be saved ({reason}); nothing was changed. Free some space or check the disk, then try again") from None
 
 
 def _replace(path: Path, write: Callable[[BinaryIO], object], lock: WorkbookLock | None) -> None:

@@ -56,6 +56,10 @@ CALC_CHAIN_REL = REL_NS + "/calcChain"
 DECLARATION = re.compile(rb"<!\s*(doctype|entity)", re.IGNORECASE)
 
 
+RESAVE = "open it in a spreadsheet program and save it again"
+OUR_SHEET_INSTEAD = "write into a sheet of sheetnet's instead (leave out --to)"
+
+
 class PackageError(SheetnetError):
     """A workbook package cannot be read or edited safely."""
 
@@ -77,7 +81,7 @@ class Package:
         try:
             return self.archive.read(part)
         except (zipfile.BadZipFile, OSError, EOFError, ValueError, NotImplementedError, RuntimeError):
-            raise PackageError(f"the part {part} of {self.label} cannot be unpacked, so the file is damaged; open it in a spreadsheet program and save it again") from None
+            raise PackageError(f"the part {part} of {self.label} cannot be unpacked, so the file is damaged; {RESAVE}") from None
 
     def text(self, part: str) -> str:
         try:
@@ -97,7 +101,7 @@ def open_package(data: bytes, label: str) -> Package:
         archive = zipfile.ZipFile(io.BytesIO(data))
         infos = archive.infolist()
     except (zipfile.BadZipFile, zipfile.LargeZipFile, ValueError, OSError, EOFError):
-        raise PackageError(f"{label} is damaged or is not a workbook file (it is not a readable zip package); open it in a spreadsheet program and save it again") from None
+        raise PackageError(f"{label} is damaged or is not a workbook file (it is not a readable zip package); {RESAVE}") from None
     check_budget(infos, label)
     for info in infos:
         if info.filename.lower().endswith((".xml", ".rels", ".vml")) or _looks_like_xml(archive, info, label):
@@ -111,11 +115,13 @@ def check_budget(infos: list[zipfile.ZipInfo], label: str) -> None:
         raise PackageError(f"{label} holds {len(infos):,} parts, more than the {MAX_PARTS:,} sheetnet reads; it is not an ordinary workbook")
     names = [info.filename for info in infos]
     if len(set(names)) != len(names):
-        raise PackageError(f"{label} lists a part twice, so it is damaged; open it in a spreadsheet program and save it again")
+        raise PackageError(f"{label} lists a part twice, so it is damaged; {RESAVE}")
     total = 0
     for info in infos:
         if info.file_size > PART_LIMIT:
-            raise PackageError(f"the part {info.filename} of {label} would expand to {info.file_size:,} bytes, beyond the {PART_LIMIT:,} sheetnet accepts; it was not read")
+            raise PackageError(
+                f"the part {info.filename} of {label} would expand to {info.file_size:,} bytes, beyond the {PART_LIMIT:,} sheetnet accepts; it was not read"
+            )
         if info.file_size > RATIO_FLOOR and info.file_size > RATIO_LIMIT * max(info.compress_size, 1):
             raise PackageError(
                 f"the part {info.filename} of {label} would expand {info.file_size / max(info.compress_size, 1):,.0f} times its stored size "
@@ -132,7 +138,7 @@ def _looks_like_xml(archive: zipfile.ZipFile, info: zipfile.ZipInfo, label: str)
         with archive.open(info) as stream:
             head = stream.read(64)
     except (zipfile.BadZipFile, OSError, EOFError, ValueError, NotImplementedError, RuntimeError):
-        raise PackageError(f"the part {info.filename} of {label} cannot be unpacked, so the file is damaged; open it in a spreadsheet program and save it again") from None
+        raise PackageError(f"the part {info.filename} of {label} cannot be unpacked, so the file is damaged; {RESAVE}") from None
     return head.lstrip(b"\xef\xbb\xbf\xff\xfe \t\r\n\x00").startswith(b"<")
 
 
@@ -142,7 +148,7 @@ def _read_capped(archive: zipfile.ZipFile, info: zipfile.ZipInfo, label: str) ->
         with archive.open(info) as stream:
             data = stream.read(info.file_size + 1)
     except (zipfile.BadZipFile, OSError, EOFError, ValueError, NotImplementedError, RuntimeError):
-        raise PackageError(f"the part {info.filename} of {label} cannot be unpacked, so the file is damaged; open it in a spreadsheet program and save it again") from None
+        raise PackageError(f"the part {info.filename} of {label} cannot be unpacked, so the file is damaged; {RESAVE}") from None
     if len(data) > info.file_size:
         raise PackageError(f"the part {info.filename} of {label} is longer than its archive entry says, so the file is damaged or crafted; it was not read")
     return data
@@ -304,10 +310,10 @@ def insert_cells(xml: str, cells: Grid, label: str) -> str:
     but ``<dimension>`` and the ``spans`` of touched rows. A target cell holding anything is refused."""
     p = namespace_prefix(xml, MAIN_NS)
     if p is None:
-        raise PackageError(f"the sheet {label} is not written the usual way, so sheetnet does not add cells to it; write into a sheet of sheetnet's instead (leave out --to)")
+        raise PackageError(f"the sheet {label} is not written the usual way, so sheetnet does not add cells to it; {OUR_SHEET_INSTEAD}")
     data = re.search(rf"<{re.escape(p)}sheetData(\s[^>]*?)?(/>|>)", xml)
     if data is None:
-        raise PackageError(f"the sheet {label} has no cell table; write into a sheet of sheetnet's instead (leave out --to)")
+        raise PackageError(f"the sheet {label} has no cell table; {OUR_SHEET_INSTEAD}")
     wanted: dict[int, dict[int, Cell]] = {}
     for (row, column), cell in cells.items():
         wanted.setdefault(row, {})[column] = cell
@@ -317,7 +323,7 @@ def insert_cells(xml: str, cells: Grid, label: str) -> str:
         return _widen_dimension(patched, p, cells)
     end = xml.find(f"</{p}sheetData>", data.end())
     if end < 0:
-        raise PackageError(f"the sheet {label} is damaged (its cell table does not end); open the workbook in a spreadsheet program and save it again")
+        raise PackageError(f"the sheet {label} is damaged (its cell table does not end); {RESAVE}")
     inner = xml[data.end():end]
     pieces: list[str] = []
     position = 0
@@ -327,10 +333,10 @@ def insert_cells(xml: str, cells: Grid, label: str) -> str:
         tag = match.group("attrs") or ""
         number = attributes(tag).get("r")
         if number is None or not number.isdigit():
-            raise PackageError(f"the sheet {label} lists rows without their numbers; open the workbook in a spreadsheet program and save it again")
+            raise PackageError(f"the sheet {label} lists rows without their numbers; {RESAVE}")
         row = int(number)
         if row <= previous:
-            raise PackageError(f"the sheet {label} lists its rows out of order; open the workbook in a spreadsheet program and save it again")
+            raise PackageError(f"the sheet {label} lists its rows out of order; {RESAVE}")
         previous = row
         pieces.append(inner[position:match.start()])
         while pending and pending[0] < row:
@@ -362,7 +368,7 @@ def _patched_row(p: str, match: re.Match[str], row: int, cells: dict[int, Cell],
     for cell in element_pattern(p, "c").finditer(content):
         reference = attributes(cell.group("attrs") or "").get("r")
         if reference is None:
-            raise PackageError(f"the sheet {label} lists cells without their addresses; open the workbook in a spreadsheet program and save it again")
+            raise PackageError(f"the sheet {label} lists cells without their addresses; {RESAVE}")
         column = split_cell(reference)[1]
         columns.append(column)
         pieces.append(content[position:cell.start()])
@@ -451,21 +457,24 @@ class WorkbookParts:
         self.package = package
         label = package.label
         if not package.has("[Content_Types].xml") or not package.has("_rels/.rels"):
-            raise PackageError(f"{label} lacks the parts every workbook has, so it is damaged or not a workbook; open it in a spreadsheet program and save it again")
+            raise PackageError(f"{label} lacks the parts every workbook has, so it is damaged or not a workbook; {RESAVE}")
         root = [a for _, a in _relationships(package.text("_rels/.rels")) if a.get("Type", "").endswith("/officeDocument")]
         if not root:
-            raise PackageError(f"{label} names no workbook part, so it is damaged; open it in a spreadsheet program and save it again")
+            raise PackageError(f"{label} names no workbook part, so it is damaged; {RESAVE}")
         self.workbook_part = _resolve("", root[0]["Target"])
         self.rels_part = _rels_path(self.workbook_part)
         if not package.has(self.workbook_part) or not package.has(self.rels_part):
-            raise PackageError(f"{label} lacks its workbook part, so it is damaged; open it in a spreadsheet program and save it again")
+            raise PackageError(f"{label} lacks its workbook part, so it is damaged; {RESAVE}")
         self.workbook = package.text(self.workbook_part)
         self.rels = package.text(self.rels_part)
         self.types = package.text("[Content_Types].xml")
         prefix = namespace_prefix(self.workbook, MAIN_NS)
         rel_prefix = namespace_prefix(self.workbook, REL_NS)
         if prefix is None or rel_prefix is None or rel_prefix == "":
-            raise PackageError(f"{label} is written in a form of the workbook format sheetnet does not edit (strict or unusual namespaces); save it as an ordinary .xlsx workbook")
+            raise PackageError(
+                f"{label} is written in a form of the workbook format sheetnet does not edit (strict or unusual namespaces); "
+                "save it as an ordinary .xlsx workbook"
+            )
         self.p, self.r = prefix, rel_prefix
         self.rel_targets = {a["Id"]: (a.get("Type", ""), _resolve(self.workbook_part, a.get("Target", ""))) for _, a in _relationships(self.rels) if "Id" in a}
         self.sheets = self._read_sheets()
@@ -476,7 +485,7 @@ class WorkbookParts:
     def _sheets_block(self) -> re.Match[str]:
         match = re.search(rf"<{re.escape(self.p)}sheets(\s[^>]*?)?(?:/>|>(.*?)</{re.escape(self.p)}sheets\s*>)", self.workbook, re.DOTALL)
         if match is None:
-            raise PackageError(f"{self.package.label} lists no sheets, so it is damaged; open it in a spreadsheet program and save it again")
+            raise PackageError(f"{self.package.label} lists no sheets, so it is damaged; {RESAVE}")
         return match
 
     def _read_sheets(self) -> list[SheetEntry]:
@@ -532,7 +541,8 @@ class WorkbookParts:
             if revived is not None:  # the same sheet of ours again: keep its place, id and part
                 revived.dropped, revived.title, revived.visibility, revived.generated = False, plan.title, plan.visibility, {}
             else:
-                self.sheets.append(SheetEntry(plan.title, self._free_part(), None, self._free_sheet_id(), self._free_rel_id(), True, plan.visibility, generated={}))
+                entry = SheetEntry(plan.title, self._free_part(), None, self._free_sheet_id(), self._free_rel_id(), True, plan.visibility, generated={})
+                self.sheets.append(entry)
         for block in placements.cells:
             grid = self._grid(block.sheet)
             for i, row in enumerate(block.values):
@@ -626,11 +636,14 @@ class WorkbookParts:
         p = re.escape(self.p)
         block = re.search(rf"<{p}definedNames(\s[^>]*?)?(?:/>|>(.*?)</{p}definedNames\s*>)", text, re.DOTALL)
         originals = {n.original: n for n in self.names if n.original is not None}
-        added = "".join(f'<{self.p}definedName name="{escape(n.name, True)}">{escape(n.reference)}</{self.p}definedName>' for n in self.names if n.original is None and not n.dropped)
+        new = [n for n in self.names if n.original is None and not n.dropped]
+        added = "".join(f'<{self.p}definedName name="{escape(n.name, True)}">{escape(n.reference)}</{self.p}definedName>' for n in new)
         if block is None:
             if not added:
                 return text
-            anchor = max(m.end() for m in re.finditer(rf"</{p}sheets\s*>|<{p}functionGroups\b[^>]*/>|</{p}functionGroups\s*>|</{p}externalReferences\s*>", text))
+            # definedNames follows sheets, functionGroups and externalReferences in the schema's order
+            before = rf"</{p}sheets\s*>|<{p}functionGroups\b[^>]*/>|</{p}functionGroups\s*>|</{p}externalReferences\s*>"
+            anchor = max(m.end() for m in re.finditer(before, text))
             return text[:anchor] + f"<{self.p}definedNames>{added}</{self.p}definedNames>" + text[anchor:]
         inner = block.group(2) or ""
         pieces, position = [], 0

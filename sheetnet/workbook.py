@@ -34,7 +34,7 @@ from openpyxl.worksheet.worksheet import Worksheet
 from . import file_guard
 from .block import MAGIC
 from .errors import InputError, SheetnetError
-from .package import Package, PackageError, open_package, write_package
+from .package import RESAVE, Package, PackageError, open_package, write_package
 from .placements import PlacementLog
 
 # package parts openpyxl does not model (kept as they are by save_book, which never rewrites them)
@@ -139,7 +139,7 @@ def _load(data: bytes, label: str) -> tuple[Workbook, Workbook]:
         raise
     except Exception as error:  # openpyxl raises many kinds on files it cannot read; all mean the same to the user
         detail = str(error).splitlines()[0][:200] if str(error) else type(error).__name__
-        raise WorkbookError(f"{label} could not be read as a workbook ({detail}); check that it is not damaged, or open it in a spreadsheet program and save it again") from None
+        raise WorkbookError(f"{label} could not be read as a workbook ({detail}); check that it is not damaged, or {RESAVE}") from None
     return formulas, values
 
 

@@ -357,7 +357,7 @@ def test_two_trainings_at_once_keep_both_models(rich: Path) -> None:
     ]
     outcomes = [run.communicate(timeout=120) + (run.returncode,) for run in runs]
     stored = set(_openpyxl(rich).defined_names)
-    for (out, err, code), name in zip(outcomes, ("first", "second")):
+    for (_, err, code), name in zip(outcomes, ("first", "second")):
         if code == 0:
             assert name in stored
         else:
@@ -365,14 +365,31 @@ def test_two_trainings_at_once_keep_both_models(rich: Path) -> None:
     assert any(code == 0 for *_, code in outcomes)
 
 
+HOLDER = "import sys, time\nfrom sheetnet.workbook import open_book\nbook = open_book(sys.argv[1])\nprint('holding', flush=True)\ntime.sleep(60)\n"
+
+
 def test_a_second_command_waits_a_bounded_time_then_refuses(tmp_path: Path) -> None:
     path = _small_book(tmp_path / "busy.xlsx")
-    with open_book(path):
+    environment = dict(os.environ, PYTHONPATH=str(Path(__file__).parents[1]))
+    holder = subprocess.Popen([sys.executable, "-c", HOLDER, str(path)], stdout=subprocess.PIPE, text=True, env=environment)
+    try:
+        assert holder.stdout is not None and holder.stdout.readline() == "holding\n"
         started = time.monotonic()
-        with pytest.raises(file_guard.WorkbookFileError, match="another sheetnet command is working on busy.xlsx"):
+        with pytest.raises(file_guard.WorkbookFileError, match="another sheetnet command is working on busy.xlsx; wait until it has finished"):
             open_book(path, wait=0.3)
         assert 0.3 <= time.monotonic() - started < 5
-    open_book(path, wait=0).close()  # free again once the first one is closed
+    finally:
+        holder.kill()
+        holder.wait()
+        if holder.stdout is not None:
+            holder.stdout.close()
+    open_book(path, wait=0).close()  # a killed holder lets go of the file
+    with open_book(path, wait=0) as first, open_book(path, wait=0) as second:  # one process shares its lock
+        first.log.add(Placements(sheets=(SheetPlan("sn one"),)))
+        save_book(first)
+        second.log.add(Placements(sheets=(SheetPlan("sn two"),)))
+        with pytest.raises(file_guard.WorkbookFileError, match="changed on disk since sheetnet read it"):
+            save_book(second)
 
 
 # --- reading ------------------------------------------------------------------------------

@@ -7,7 +7,7 @@ import openpyxl
 import sheetnet_demo
 from openpyxl.chart import BarChart, Reference
 
-from sheetnet import cli
+from sheetnet import cli, file_guard
 from sheetnet.block import MAGIC, decode_block
 from sheetnet.workbook import open_book, read_model, unread_parts
 
@@ -59,7 +59,7 @@ def test_train_stores_the_block_very_hidden_under_a_defined_name(tmp_path, capsy
     assert [c.value for c in results[4][:5]] == ["table row", "split", "actual grade", "predicted grade", None]
     marks = [results.cell(r, 2).value for r in range(5, 5 + rows)]
     assert set(marks) == {"train", "holdout"} and marks.count("holdout") == round(0.2 * rows)
-    assert (path.with_name("lots.xlsx.bak")).exists()
+    assert file_guard.backup_path(path, 1).exists() and not path.with_name("lots.xlsx.bak").exists()
 
 
 def test_the_stored_block_round_trips_and_predicts_identically(tmp_path, capsys):
@@ -98,17 +98,19 @@ def test_predict_refuses_a_range_that_is_not_empty(tmp_path, capsys):
     assert path.read_bytes() == before
 
 
-def test_a_workbook_with_a_chart_is_not_overwritten(tmp_path, capsys):
+def test_a_workbook_with_a_chart_is_saved_in_place_with_the_chart_kept(tmp_path, capsys):
     path = tmp_path / "charted.xlsx"
     rows = _write_book(path, chart=True)
     assert unread_parts(path) == ["charts", "drawings"]
-    before = path.read_bytes()
+    with zipfile.ZipFile(path) as before:
+        kept = {name: before.read(name) for name in before.namelist() if name.startswith(("xl/charts/", "xl/drawings/", "xl/worksheets/"))}
     assert _train(path, rows) == 0
     out = capsys.readouterr().out
-    assert "left untouched" in out and "charted-sheetnet.xlsx" in out
-    assert path.read_bytes() == before
-    written = openpyxl.load_workbook(tmp_path / "charted-sheetnet.xlsx")
-    assert "grades" in written.defined_names
+    assert f"saved {path}" in out and "note:" not in out
+    assert not (tmp_path / "charted-sheetnet.xlsx").exists()
+    with zipfile.ZipFile(path) as after:
+        assert {name: after.read(name) for name in kept} == kept
+    assert "grades" in openpyxl.load_workbook(path).defined_names
 
 
 def test_macros_in_xlsm_are_kept(tmp_path, capsys):
