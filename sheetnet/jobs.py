@@ -63,6 +63,27 @@ class Cancelled(SheetnetError):
     """A training job was cancelled by its caller."""
 
 
+@dataclass(frozen=True)
+class SplitRequest:
+    """How the server splits and seeds, as `service.TrainRequest` takes it."""
+
+    holdout: float = service.DEFAULT_HOLDOUT
+    mode: str = "auto"
+    seed: int | None = None
+    address: str | None = None
+
+
+def _check_split_request(split: SplitRequest, args: list[Any]) -> None:
+    if args[4] is not None:
+        raise JobRequestError("give either a split column (TRAIN's fifth argument) or a holdout share for the server to split by, not both")
+    if isinstance(split.holdout, bool) or not isinstance(split.holdout, (int, float)) or not 0 <= split.holdout < 1:
+        raise JobRequestError(f"the holdout share must be a number from 0 up to (not including) 1, such as 0.2; got {split.holdout}")
+    if split.mode not in service.HOLDOUT_MODES:
+        raise JobRequestError(f"holdout mode '{split.mode}' is not known; choose one of: {', '.join(service.HOLDOUT_MODES)}")
+    if split.seed is not None and (isinstance(split.seed, bool) or not isinstance(split.seed, int) or split.seed < 0):
+        raise JobRequestError(f"the seed must be a whole number of 0 or more; got {split.seed}")
+
+
 @dataclass
 class Job:
     """One training request and what became of it. ``state``: running, done, failed or cancelled."""
@@ -70,6 +91,7 @@ class Job:
     id: str
     name: str
     existing_names: tuple[str, ...] | None = None
+    split: SplitRequest | None = None  # the door's holdout request, when the server makes the split
     state: str = "running"
     epoch: int = 0
     epochs: int = 0
@@ -156,15 +178,19 @@ class JobBoard:
         self._models: OrderedDict[str, dict[str, Any]] = OrderedDict()  # by folded name, newest last
         self._lock = threading.Lock()
 
-    def submit(self, name: str, args: Sequence[Any], existing_names: Iterable[str] | None = None) -> Job:
+    def submit(self, name: str, args: Sequence[Any], existing_names: Iterable[str] | None = None, split: SplitRequest | None = None) -> Job:
         """Check the request, register a job and start training it in a thread of its own.
 
-        Raises `JobRequestError` (bad arguments or names), `InputError` (a name that cannot be a model's,
-        the service's message) or `BoardFull`; in every case nothing is registered."""
+        With ``split`` (holdout share, mode, seed, address) the server makes the holdout split and seeds
+        the training exactly as every other door does (`service.train_model`); TRAIN's own split argument
+        must then be left out. Raises `JobRequestError` (bad arguments or names), `InputError` (a name
+        that cannot be a model's, the service's message) or `BoardFull`; in every case nothing is registered."""
         padded = check_train_arguments(args)
         service.check_model_name(name)
         names = _check_names(existing_names)
-        job = Job(uuid.uuid4().hex, name, names)
+        if split is not None:
+            _check_split_request(split, padded)
+        job = Job(uuid.uuid4().hex, name, names, split=split)
         with self._lock:
             if self._running() >= self.max_running:
                 raise BoardFull(
@@ -239,7 +265,11 @@ class JobBoard:
         reporting: ProgressCallback = progress
         try:
             table, target, hidden, settings, split = args
-            block = self.trainer(table, target, hidden, settings, split, progress=reporting)
+            if job.split is not None:
+                request = service.TrainRequest(table, target, hidden, settings, job.split.holdout, job.split.mode, job.split.seed, job.split.address)
+                block = service.train_model(request, reporting).block
+            else:
+                block = self.trainer(table, target, hidden, settings, split, progress=reporting)
             if job.existing_names is not None:
                 job.placements, job.message = self._placements(job, block)
             self._remember_model(job, block)

@@ -42,7 +42,7 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 from . import __version__, service
 from .cells import MARKER
 from .errors import SheetnetError
-from .jobs import BoardFull, JobBoard, JobRequestError, UnknownJob, finite
+from .jobs import BoardFull, JobBoard, JobRequestError, SplitRequest, UnknownJob, finite
 from .registry import BY_NAME, REGISTRY
 
 MAX_BODY_BYTES = 32 * 1024 * 1024  # about a million numeric cells
@@ -62,6 +62,12 @@ class JobBody(BaseModel):
     existing_names: list[str] | None = Field(
         None, description="the workbook's defined names now; when given, a done job carries the model's placements"
     )
+    holdout: float | None = Field(
+        None, description="when given (leave TRAIN's split argument out), the server holds out this share and seeds split and training as every door does"
+    )
+    mode: str = Field("auto", description="how holdout rows are chosen: auto (stratified when the target is learned as classes), random, stratified, ordered")
+    seed: int | None = Field(None, description="seed of the split and the training (default: the seed setting, else 0)")
+    address: str | None = Field(None, description="where the table lives, like 'Data'!A1:F500, recorded so the model can be refreshed")
 
 
 class PlacementsBody(BaseModel):
@@ -259,7 +265,8 @@ def create_app(token: str, origin: str = "http://127.0.0.1", max_body: int = MAX
 
     @app.post("/v1/jobs", status_code=202, summary="start a training job (SHEETNET.TRAIN with progress)")
     def start_job(body: JobBody) -> dict[str, Any]:
-        job = board.submit(body.name, body.args, body.existing_names)
+        split = None if body.holdout is None else SplitRequest(body.holdout, body.mode, body.seed, body.address)
+        job = board.submit(body.name, body.args, body.existing_names, split)
         return {"id": job.id, "state": job.state}
 
     @app.get("/v1/jobs/{job_id}", summary="a training job's progress and, when done, its model block")

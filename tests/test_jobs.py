@@ -171,3 +171,35 @@ def test_finished_jobs_and_models_kept_are_bounded(table):
     _finish(again)
     assert [m["name"] for m in board.models()] == ["M7X", "m6x"]
 
+
+
+def test_a_job_with_a_holdout_request_splits_and_seeds_as_every_door(table):
+    from sheetnet.jobs import SplitRequest
+
+    board = JobBoard()
+    job = board.submit("spoilage", [table, "spoiled", "3", "epochs=40"], split=SplitRequest(0.25, "auto", 7, "'Shipments'!$A$1:$F$121"))
+    assert _finish(job)["state"] == "done", job.message
+    direct = service.train_model(service.TrainRequest(table, "spoiled", "3", "epochs=40", 0.25, "auto", 7, "'Shipments'!$A$1:$F$121"))
+    from sheetnet.block import decode_block
+
+    model, info = decode_block(job.result)
+    assert np.array_equal(model.members[0].theta, decode_block(direct.block)[0].members[0].theta)
+    assert model.seed == 7 and info.source == ("'Shipments'!$A$1:$F$121", 0.25, "auto", 7) and info.holdout_rows == 30
+
+
+@pytest.mark.parametrize(
+    "args, split, words",
+    [
+        (["T", "y", None, None, [["split"]]], (0.2, "auto", 0), "not both"),
+        (["T", "y"], (1.5, "auto", 0), "holdout share must be a number from 0"),
+        (["T", "y"], (0.2, "sideways", 0), "holdout mode 'sideways' is not known"),
+        (["T", "y"], (0.2, "auto", -3), "seed must be a whole number of 0 or more"),
+    ],
+)
+def test_a_bad_holdout_request_is_refused_before_any_job_exists(args, split, words):
+    from sheetnet.jobs import SplitRequest
+
+    board = JobBoard()
+    with pytest.raises(JobRequestError, match=words):
+        board.submit("m", args, split=SplitRequest(*split))
+    assert board.jobs() == []

@@ -19,7 +19,7 @@ import xlwings_standin as standin
 from sheetnet import cli, functions, service, xl_macros
 from sheetnet.block import decode_block
 from sheetnet.cells import MARKER
-from sheetnet.jobs import JobBoard
+from sheetnet.jobs import JobBoard, SplitRequest
 from sheetnet.placements import placements_from_json
 from sheetnet.workbook import open_book, read_model
 
@@ -62,9 +62,9 @@ def _xl_book(table):
 
 
 def _by_job(table, existing_names=()):
+    """What the task pane sends: TRAIN's arguments without a split, and the holdout request."""
     board = JobBoard()
-    split = functions.split(table, HOLDOUT, SEED, service.split_mode(table, "grade", MODE, SETTINGS))
-    job = board.submit("grades", [table, "grade", HIDDEN, f"{SETTINGS}; seed={SEED}", split], list(existing_names))
+    job = board.submit("grades", [table, "grade", HIDDEN, SETTINGS], list(existing_names), SplitRequest(HOLDOUT, MODE, SEED))
     assert job.finished.wait(120)
     return job
 

@@ -42,12 +42,18 @@ function parseTable(text) {
   }));
 }
 
+let selectedAddress = null; // where the last table came from, recorded in the block so the model can be refreshed
+
 async function selectedTable() {
-  if (!inExcel()) return parseTable($("table-text").value);
+  if (!inExcel()) {
+    selectedAddress = null;
+    return parseTable($("table-text").value);
+  }
   return Excel.run(async (context) => {
     const range = context.workbook.getSelectedRange();
-    range.load("values");
+    range.load("values, address");
     await context.sync();
+    selectedAddress = range.address;
     return range.values;
   });
 }
@@ -180,17 +186,12 @@ async function train() {
     const table = await selectedTable();
     if (!table.length || table.length < 3) throw new Error("select (or paste) a table: a header row and at least two data rows");
     const holdout = Number($("holdout").value);
+    const seed = Number($("seed").value);
     const name = $("model-name").value.trim();
-    let split = null;
-    if (holdout > 0) {
-      const target = $("target").value.trim();
-      const textTarget = table.slice(1).some((row) => typeof row[table[0].indexOf(target)] === "string");
-      const answer = await api("/v1/functions/SHEETNET.SPLIT", { method: "POST", body: JSON.stringify({ args: [table, holdout, 0, textTarget ? `stratified ${target}` : "random"] }) });
-      if (answer.message) throw new Error(answer.message);
-      split = answer.result;
-    }
-    const args = [table, $("target").value.trim(), $("hidden").value.trim(), $("settings").value.trim() || null, split];
-    const job = await api("/v1/jobs", { method: "POST", body: JSON.stringify({ name, args }) });
+    // the server splits and seeds as every door does (one meaning of the auto mode and of the seed)
+    const args = [table, $("target").value.trim(), $("hidden").value.trim(), $("settings").value.trim() || null];
+    const body = { name, args, holdout, mode: $("mode").value, seed: Number.isInteger(seed) ? seed : null, address: selectedAddress };
+    const job = await api("/v1/jobs", { method: "POST", body: JSON.stringify(body) });
     currentJob = job.id;
     $("progress").hidden = false;
     $("cancel").hidden = false;
