@@ -252,7 +252,8 @@ def run_serve(args: argparse.Namespace, out: TextIO) -> int:
     from .server_file import exit_cleanly_on_terminate, remove_server_file, write_server_file
 
     exit_cleanly_on_terminate()
-    server_file = write_server_file(args.port, token, scheme)  # how the Calc extension finds this server
+    own_certificate = Path(tls["ssl_certfile"]) if tls else None
+    server_file = write_server_file(args.port, token, scheme, certificate=own_certificate)  # how the Calc extension finds this server
     try:
         uvicorn.run(app, host="127.0.0.1", port=args.port, log_level="warning", **tls)  # type: ignore[arg-type]
     finally:

@@ -1,7 +1,7 @@
 """The server file: where a running ``sheetnet serve`` tells local doors how to reach it.
 
 ``sheetnet serve`` writes ``~/.sheetnet/server.json`` (``{"scheme", "port", "token", "pid",
-"version"}``) readable by the user only (0600, in a 0700 folder) and removes it on exit, so a door
+"version"}``, with ``"certificate"`` under ``--https``) readable by the user only (0600, in a 0700 folder) and removes it on exit, so a door
 that cannot be handed the token by a person (the Calc extension) finds the server by itself. A file
 left by a server that died is recognised by its process no longer running.
 """
@@ -23,13 +23,18 @@ def server_file_path(home: Path | None = None) -> Path:
     return (home if home is not None else Path.home()) / ".sheetnet" / SERVER_FILE_NAME
 
 
-def write_server_file(port: int, token: str, scheme: str = "http", path: Path | None = None, pid: int | None = None) -> Path:
-    """Write the file atomically with owner-only permissions; returns its path."""
+def write_server_file(
+    port: int, token: str, scheme: str = "http", path: Path | None = None, pid: int | None = None, certificate: Path | None = None
+) -> Path:
+    """Write the file atomically with owner-only permissions; returns its path. ``certificate``: the
+    server's own TLS certificate (``sheetnet serve --https``), which local callers then trust."""
     from . import __version__
 
     target = path if path is not None else server_file_path()
     target.parent.mkdir(mode=0o700, parents=True, exist_ok=True)
-    record = {"scheme": scheme, "port": port, "token": token, "pid": pid if pid is not None else os.getpid(), "version": __version__}
+    record: dict[str, Any] = {"scheme": scheme, "port": port, "token": token, "pid": pid if pid is not None else os.getpid(), "version": __version__}
+    if certificate is not None:
+        record["certificate"] = str(certificate)
     descriptor, temporary = tempfile.mkstemp(prefix=".server-", dir=target.parent)  # mkstemp creates it 0600
     try:
         with os.fdopen(descriptor, "w", encoding="utf-8") as handle:

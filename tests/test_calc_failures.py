@@ -11,6 +11,7 @@ import signal
 import socket
 import subprocess
 import sys
+import time
 from pathlib import Path
 from typing import Any, Iterator
 
@@ -110,6 +111,31 @@ def test_bad_input_reads_in_spreadsheet_words(office: dict[str, Any]) -> None:
     expected = functions.predict([row[:] for row in office["table"][:5]], [row[:3] for row in office["table"][:10]])
     assert cells == [[expected[0][0]]] and cells[0][0].startswith("#SHEETNET! ")
     assert missing[0][0].startswith("#SHEETNET! SHEETNET.PREDICT needs at least 2 arguments")
+
+
+def test_an_https_server_is_reached_through_its_own_certificate(office: dict[str, Any], tmp_path: Path) -> None:
+    import threading
+
+    import uvicorn
+
+    from sheetnet.tls import local_certificate
+
+    certificate, key = local_certificate(tmp_path / "tls")
+    server = uvicorn.Server(uvicorn.Config(create_app(TOKEN), host="127.0.0.1", port=0, log_level="warning",
+                                           ssl_certfile=str(certificate), ssl_keyfile=str(key)))
+    thread = threading.Thread(target=server.run, daemon=True)
+    thread.start()
+    try:
+        deadline = time.monotonic() + 20
+        while not server.started and time.monotonic() < deadline:
+            time.sleep(0.05)
+        port = server.servers[0].sockets[0].getsockname()[1]
+        write_server_file(port, TOKEN, "https", office["home"] / ".sheetnet" / "server.json", os.getpid(), certificate)
+        cells, _ = fresh_cell(office, "=SHEETNET.LAGS(D1:D4;1)", height=4)
+    finally:
+        server.should_exit = True
+        thread.join(10)
+    assert cells == [[v] for (v,) in functions.lags([[r[3]] for r in office["table"][:4]], 1)]
 
 
 def test_no_server_starts_one_with_the_recorded_interpreter(office: dict[str, Any]) -> None:

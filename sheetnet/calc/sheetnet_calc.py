@@ -21,6 +21,7 @@ import json
 import math
 import os
 import socket
+import ssl
 import subprocess
 import time
 import urllib.error
@@ -127,7 +128,10 @@ def _post(record, path, body, limit):
         headers={"Authorization": f"Bearer {record['token']}", "Content-Type": "application/json"},
         method="POST",
     )
-    with urllib.request.urlopen(request, timeout=limit) as response:  # 127.0.0.1 only: the address is built here
+    context = None
+    if record.get("scheme") == "https":  # sheetnet serve --https: trust its own certificate, named in the server file
+        context = ssl.create_default_context(cafile=record.get("certificate"))
+    with urllib.request.urlopen(request, timeout=limit, context=context) as response:  # 127.0.0.1 only: the address is built here
         return json.loads(response.read().decode("utf-8"))
 
 
