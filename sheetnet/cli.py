@@ -204,6 +204,7 @@ XL_STEPS = """Remaining steps, in desktop Excel on Windows (macOS: the macros on
 
 
 def run_xl_setup(args: argparse.Namespace, out: TextIO) -> int:
+    from .placements import Placements, SheetPlan, cell_block, same_title
     from .workbook import open_book
 
     book = open_book(args.book)
@@ -212,15 +213,19 @@ def run_xl_setup(args: argparse.Namespace, out: TextIO) -> int:
         wanted["INTERPRETER_WIN"] = args.interpreter_win
     if args.interpreter_mac:
         wanted["INTERPRETER_MAC"] = args.interpreter_mac
-    merged: dict[str, Any] = {}
-    if "xlwings.conf" in book.formulas.sheetnames:  # keep the keys already there, update ours
-        old = book.formulas["xlwings.conf"]
-        merged = {str(row[0]).upper(): row[1] for row in old.iter_rows(max_col=2, values_only=True) if row[0]}
-        del book.formulas["xlwings.conf"]
-    merged.update(wanted)
-    sheet = book.formulas.create_sheet("xlwings.conf")
-    for key, value in merged.items():
-        sheet.append([key, value])
+    title = next((t for t in book.formulas.sheetnames if same_title(t, "xlwings.conf")), None)
+    if title is None:
+        rows = [[key, value] for key, value in wanted.items()]
+        book.log.add(Placements(sheets=(SheetPlan("xlwings.conf"),), cells=(cell_block("xlwings.conf", 1, 1, rows),)))
+    else:  # the sheet is the user's: add the keys it lacks below its rows, never change a value it holds
+        sheet = book.formulas[title]
+        have = {str(row[0]).strip().upper(): row[1] for row in sheet.iter_rows(max_col=2, values_only=True) if row[0] is not None}
+        for key, value in wanted.items():
+            if key in have and str(have[key]).strip() != value:
+                raise InputError(f"the sheet {title} already sets {key} to {have[key]}; change it there to {value} (or clear that row) and run this again")
+        missing = [[key, value] for key, value in wanted.items() if key not in have]
+        if missing:
+            book.log.add(Placements(cells=(cell_block(title, sheet.max_row + 1, 1, missing),)))
     _saved(book, out)
     out.write("the workbook's xlwings.conf sheet now names sheetnet.xl_udfs as its UDF module\n" + XL_STEPS)
     return 0

@@ -63,8 +63,10 @@ class Book:
     real_path: Path | None = None
     seen: file_guard.Fingerprint | None = None
     lock: file_guard.WorkbookLock | None = None
+    opened_sheets: tuple[Any, ...] = ()  # the sheet objects as read: save_book refuses when code replaced them outside the log
 
     def __post_init__(self) -> None:
+        self.opened_sheets = self.opened_sheets or tuple(self.formulas._sheets)
         lock = self.lock
         self._finalizer = weakref.finalize(self, _release, lock)  # a book nobody closed lets its file go when it is freed
         _OPEN.add(self)
@@ -259,6 +261,12 @@ def save_book(book: Book) -> tuple[Path, str]:
     (`file_guard.backup_path`); the file keeps its permissions, symbolic links and hard links."""
     if book.package is None or book.real_path is None:
         raise WorkbookError("this workbook was not opened with open_book, so sheetnet cannot save it safely")
+    now = tuple(book.formulas._sheets)
+    if len(now) != len(book.opened_sheets) or any(a is not b for a, b in zip(now, book.opened_sheets)):
+        raise WorkbookError(
+            "this command changed the workbook's sheets directly instead of through placements, which the safe save does not carry "
+            "(a sheetnet bug: please report it); nothing was written"
+        )
     if not book.log.parts:
         return book.path, "nothing to write"
     check_can_save(book)
