@@ -417,6 +417,17 @@ def _match(value: Grid, grid: Grid, kind: Grid | None = None) -> Grid:
     return _scalar(NA)
 
 
+def _if_error(grid: Grid, instead: Grid) -> Grid:
+    if grid.dtype != object:
+        return grid
+    grid, instead = _fit(grid, instead)
+    out = np.empty(grid.shape, dtype=object)
+    for index in np.ndindex(grid.shape):
+        value = grid[index]
+        out[index] = _plain(instead[index]) if isinstance(value, ErrorValue) else value
+    return _tighten(out)
+
+
 def _count_numbers(grid: Grid) -> int:
     if grid.dtype == np.float64:
         return grid.size
@@ -452,6 +463,7 @@ _FUNCTIONS: dict[str, tuple[int, int, Callable[..., Grid]]] = {  # name: (fewest
     "MAX": (1, 255, _aggregate(lambda v: max(v) if v else 0.0)),
     "MATCH": (2, 3, _match),
     "NA": (0, 0, lambda: _scalar(NA)),
+    "IFERROR": (2, 2, lambda grid, instead: _if_error(grid, instead)),
     "COUNT": (1, 255, lambda *grids: _scalar(float(sum(_count_numbers(g) for g in grids)))),
     "ISLOGICAL": (1, 1, _cell_test(lambda v: isinstance(v, (bool, np.bool_)))),
     "ISNUMBER": (1, 1, _cell_test(lambda v: isinstance(v, (float, np.floating)) and not isinstance(v, bool))),
@@ -474,8 +486,9 @@ _TOKEN = re.compile(
 )
 
 
-def _tokens(text: str) -> list[tuple[str, str]]:
-    tokens: list[tuple[str, str]] = []
+def _tokens(text: str) -> list[tuple[str, str, int, int]]:
+    """(kind, text, first character, after the last character) of each token."""
+    tokens: list[tuple[str, str, int, int]] = []
     at = 0
     text = text.rstrip()
     while at < len(text):
@@ -485,7 +498,7 @@ def _tokens(text: str) -> list[tuple[str, str]]:
             raise FormulaSyntaxError(f"the formula cannot be read from character {at + 1}: {text[at:at + 20]!r}")
         kind = match.lastgroup
         assert kind is not None
-        tokens.append((kind, match.group(kind)))
+        tokens.append((kind, match.group(kind), match.start(kind), match.end(kind)))
         at = match.end()
     return tokens
 
@@ -505,7 +518,14 @@ def reference_key(reference: str) -> str:
 
 class _Parser:
     def __init__(self, text: str) -> None:
-        self.tokens = _tokens(text)
+        found = _tokens(text)
+        self.text = text
+        self.tokens = [(kind, token) for kind, token, _, _ in found]
+        self.starts = [start for _, _, start, _ in found]
+        self.ends = [end for _, _, _, end in found]
+        self.references_before = [0]  # references among the first i tokens
+        for kind, _ in self.tokens:
+            self.references_before.append(self.references_before[-1] + (kind == "reference"))
         self.at = 0
         self.names: set[str] = set()
         self.references: set[str] = set()
@@ -516,9 +536,8 @@ class _Parser:
         Native formulas repeat parts (each member's output appears in several
         places of a softmax), so this saves most of the work.
         """
-        span = self.tokens[start:self.at]
-        key = "\x00".join(text for _, text in span)
-        constant = all(kind != "reference" for kind, _ in span)
+        key = self.text[self.starts[start]:self.ends[self.at - 1]]  # the same text is the same part
+        constant = self.references_before[self.at] == self.references_before[start]
 
         def apply(env: Environment) -> Grid:
             memo = env[3] if constant else env[2]

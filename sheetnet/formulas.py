@@ -34,7 +34,10 @@ The formula turns the cell into something comparable: a logical becomes the
 word TRUE or FALSE (only where a key could match a logical), a number stays a number (a number never equals a text),
 a text is TRIMmed; ``MATCH(1, --(that = cats), 0)`` finds the cell, and
 ``INDEX`` takes its row of ``W1c``. No match (a category the model never saw,
-a blank, an error value) gives #N/A, where the engine refuses the row.
+a blank, an error value) gives #N/A, where the engine refuses the row. (The
+error travels on through MMULT and MATCH, which LibreOffice turns into
+#VALUE! in places; the whole formula is inside ``IFERROR(..., NA())`` so every
+refused row shows #N/A in every engine.)
 
 Numeric inputs: the engine refuses blanks, text and error values there,
 while a spreadsheet reads a blank as 0; so the whole formula is
@@ -72,7 +75,7 @@ from .preparation import CategoryInput, NumericInput, category_text
 FORMULA_LIMIT = 8192  # characters, Excel's limit for one formula
 OUTPUTS = ("value", "class", "probabilities")
 ALLOWED_FUNCTIONS = frozenset(
-    {"MMULT", "INDEX", "TANH", "EXP", "ABS", "SUM", "MAX", "MATCH", "IF", "NA", "ISLOGICAL", "ISNUMBER", "TRIM", "COUNT"}
+    {"MMULT", "INDEX", "TANH", "EXP", "ABS", "SUM", "MAX", "MATCH", "IF", "NA", "ISLOGICAL", "ISNUMBER", "TRIM", "COUNT", "IFERROR"}
 )
 
 
@@ -275,7 +278,7 @@ def native_formula(model: Model, model_name: str, cells: dict[str, str], output:
     numeric_cells = [cells[s.name] for s in model.preparation.inputs if isinstance(s, NumericInput)]
     if numeric_cells:
         text = f"IF(COUNT({','.join(numeric_cells)})<{len(numeric_cells)},NA(),{text})"
-    formula = "=" + text
+    formula = f"=IFERROR({text},NA())"  # one error value for every refused row, whatever the engine makes of it
     if len(formula) > FORMULA_LIMIT:
         raise FormulaError(
             f"this model needs a formula of {len(formula):,} characters per cell, beyond the spreadsheet limit of {FORMULA_LIMIT:,}; "
