@@ -139,6 +139,8 @@ def test_saved_workbook_opens_in_openpyxl_with_the_hidden_sheet_names_and_text_l
 @pytest.mark.skipif(office_missing() is not None, reason=str(office_missing()))
 def test_saved_workbook_opens_in_libreoffice_with_hidden_sheet_names_and_text_labels(rich: Path, tmp_path: Path) -> None:
     assert _train(rich) == 0
+    assert cli.main(["predict", str(rich), "--model", "grades", "--table", TABLE, "--to", "Notes!C1"]) == 0
+    assert cli.main(["formulas", str(rich), "--model", "grades", "--table", TABLE, "--to", "Lots!N1", "--output", "class"]) == 0
     with open_book(rich) as book:
         book.log.add(Placements(sheets=(SheetPlan("sn labels"),), cells=(cell_block("sn labels", 1, 1, [[v] for v in FORMULA_LOOKING]),)))
         save_book(book)
@@ -157,6 +159,11 @@ def test_saved_workbook_opens_in_libreoffice_with_hidden_sheet_names_and_text_la
         assert office.call("read", doc=doc, sheet="Lots", address="J2:J3") == [[653.65], [1307.3]]
         block = office.call("read", doc=doc, sheet="sheetnet_grades", address="A1:B1")
         assert block[0][0] == "sheetnet model block"
+        # native formulas inserted into the user's sheet compute, in LibreOffice, the classes sheetnet predicted
+        native = office.call("cells", doc=doc, sheet="Lots", address=f"N2:N{ROWS + 1}")
+        assert {c[0]["type"] for c in native} == {"FORMULA"} and {c[0]["error"] for c in native} == {0}
+        predicted = office.call("read", doc=doc, sheet="Notes", address=f"C2:C{ROWS + 1}")
+        assert [c[0]["string"] for c in native] == [row[0] for row in predicted]
     finally:
         office.close()
 
@@ -460,6 +467,34 @@ def test_a_sheet_of_ours_holding_parts_we_did_not_write_is_not_replaced(rich: Pa
         book.log.add(Placements(drop_sheets=("Lots",)))
         with pytest.raises(WorkbookError, match="the sheet 'Lots' holds pictures, charts or other parts sheetnet did not write"):
             save_book(book)
+
+
+CALC_CHAIN = '<calcChain xmlns="http://schemas.openxmlformats.org/spreadsheetml/2006/main"><c r="B2" i="{}"/><c r="B3"/></calcChain>'
+
+
+@pytest.mark.parametrize("listed_sheet, kept", [(1, True), (2, False)])
+def test_the_formula_cache_list_goes_only_when_it_lists_a_sheet_sheetnet_replaced(tmp_path: Path, listed_sheet: int, kept: bool) -> None:
+    path = _small_book(tmp_path / "chain.xlsx")
+    with open_book(path) as book:
+        book.log.add(service.results_placements("sn x", [(3, 1, [["=SUM(1)"]])]))
+        save_book(book)
+    with zipfile.ZipFile(path) as archive:
+        rels = archive.read("xl/_rels/workbook.xml.rels").decode()
+        types = archive.read("[Content_Types].xml").decode()
+    chain = CALC_CHAIN.format(listed_sheet).encode()
+    chain_rel = f'<Relationship Id="rIdChain" Type="{package.CALC_CHAIN_REL}" Target="calcChain.xml"/>'
+    chain_type = '<Override PartName="/xl/calcChain.xml" ContentType="application/vnd.openxmlformats-officedocument.spreadsheetml.calcChain+xml"/>'
+    rels = rels.replace("</Relationships>", chain_rel + "</Relationships>")
+    types = types.replace("</Types>", chain_type + "</Types>")
+    _rezip(path, tmp_path / "with-chain.xlsx", {"xl/_rels/workbook.xml.rels": rels.encode(), "[Content_Types].xml": types.encode(), "xl/calcChain.xml": chain})
+    with open_book(tmp_path / "with-chain.xlsx") as book:
+        book.log.add(service.results_placements("sn x", [(3, 1, [["again"]])]))
+        save_book(book)
+    members = _members(tmp_path / "with-chain.xlsx")
+    assert (members.get("xl/calcChain.xml") == chain) is kept
+    assert ("calcChain" in members["xl/_rels/workbook.xml.rels"].decode()) is kept
+    assert ("calcChain" in members["[Content_Types].xml"].decode()) is kept
+    assert _openpyxl(tmp_path / "with-chain.xlsx")["sn x"]["A3"].value == "again"
 
 
 @pytest.fixture(autouse=True)
