@@ -16,7 +16,7 @@ from calc_office import office_missing
 from calc_scenario import TOKEN, address, bakery_table, from_calc, install_extension, shown, start_office
 from local_server import serving
 
-from sheetnet import functions
+from sheetnet import functions, service
 from sheetnet.block import decode_block
 from sheetnet.calc.build import STORE_COMMAND
 from sheetnet.server import create_app
@@ -167,7 +167,11 @@ def test_store_command_writes_a_hidden_model_sheet(live: dict[str, Any], tmp_pat
     assert names["bakery"] == f"$sheetnet_bakery.$A$1:$I${len(stored)}"
     assert any(name.startswith("snf_bakery_") for name in names)
     decode_block(stored)
-    assert without_time(shown(stored)) == without_time(shown(functions.train(table, "loaves", "4", "epochs=200")))  # the command passes its options as text
+    # the same training as every door's: the service's holdout split and seed, the address recorded (options arrive as text)
+    request = service.TrainRequest(table, "loaves", "4", "epochs=200", service.DEFAULT_HOLDOUT, "auto", None, f"'Data'!$A$1:$D${n}")
+    assert without_time(shown(stored)) == without_time(shown(service.train_model(request).block))
+    assert [f"'Data'!$A$1:$D${n}", service.DEFAULT_HOLDOUT] == [r for r in stored if r[0] == "source"][0][1:3]
+    assert any(r[0] == "holdout_metric" for r in stored)
     # text from the data stays text on the model sheet, even when it starts with '='
     cells = office.call("cells", doc=book.doc, sheet="sheetnet_bakery", address=f"A1:I{len(stored)}")
     holiday = [c for row in cells for c in row if c["string"] == "=holiday"]

@@ -22,6 +22,7 @@ from xml.sax.saxutils import escape, quoteattr
 from .. import __version__
 from ..cells import MARKER
 from ..registry import REGISTRY, Argument, CellFunction
+from ..service import DEFAULT_HOLDOUT
 
 HERE = Path(__file__).parent
 COMPONENT_SOURCE = HERE / "sheetnet_calc.py"
@@ -129,6 +130,7 @@ def function_table(settings: InstallSettings = DEFAULT_SETTINGS, registry: Itera
         "category": CATEGORY,
         "marker": MARKER,
         "interpreter": settings.interpreter,
+        "holdout": DEFAULT_HOLDOUT,  # the store command's default share held out, as at every door
         "timeouts": dict(settings.timeouts),
         "functions": [
             {

@@ -8,10 +8,11 @@ generated from sheetnet's registry when the extension is built.
 
 - ``SHEETNET.*`` cell functions (service ``com.sun.star.sheet.AddIn``, service name ``SHEETNET``):
   each returns a 2-D array; failures are one readable ``#SHEETNET! ...`` cell, never a bare error.
-- ``vnd.sheetnet.calc:store[?name=..&target=..&hidden=..&settings=..&table=..]`` (a protocol
+- ``vnd.sheetnet.calc:store[?name=..&target=..&hidden=..&settings=..&holdout=..&mode=..&seed=..&table=..]`` (a protocol
   handler, on the Tools > Add-Ons menu and a toolbar): trains the selected table (header row first)
-  through the server and writes the placements the server decides (hidden model sheet, block,
-  constants, defined names). From the menu a small dialog asks for the name, the target column
+  as a server training job (which holds out rows, seeds and records the table's address as at every
+  door) and writes the placements the server decides (hidden model sheet, block, constants,
+  defined names). From the menu a small dialog asks for the name, the target column
   (the selection's last column by default), hidden layers and settings; with options in the command
   address, or in an office not on screen, no dialog: the target defaults to the last column and the
   name to the first free ``modelN``.
@@ -121,12 +122,12 @@ def timeout_for(name):
     return float(limits.get(name, limits["default"]))
 
 
-def _post(record, path, body, limit):
+def _send(record, path, body, limit, method):
     request = urllib.request.Request(
         f"{record.get('scheme', 'http')}://127.0.0.1:{record['port']}{path}",
-        data=json.dumps(body, allow_nan=False).encode("utf-8"),
+        data=None if body is None else json.dumps(body, allow_nan=False).encode("utf-8"),
         headers={"Authorization": f"Bearer {record['token']}", "Content-Type": "application/json"},
-        method="POST",
+        method=method,
     )
     context = None
     if record.get("scheme") == "https":  # sheetnet serve --https: trust its own certificate, named in the server file
@@ -141,6 +142,14 @@ def too_slow(limit):
 
 def call_server(path, body, name):
     """POST to the local server; the parsed answer, or a `ServerProblem` in spreadsheet words."""
+    return request_server(path, body, name, "POST")
+
+
+def get_server(path, name):
+    return request_server(path, None, name, "GET")
+
+
+def request_server(path, body, name, method):
     limit = timeout_for(name)
     record = read_server()
     if record is None:
@@ -148,7 +157,7 @@ def call_server(path, body, name):
     if record is None:
         raise ServerProblem("no sheetnet server is running; start one with: sheetnet serve")
     try:
-        return _post(record, path, body, limit)
+        return _send(record, path, body, limit, method)
     except urllib.error.HTTPError as error:
         try:
             detail = json.loads(error.read().decode("utf-8")).get("detail")
@@ -397,6 +406,7 @@ DIALOG_FIELDS = (
     ("target", "Column to predict"),
     ("hidden", "Hidden layers (8, or 8,4)"),
     ("settings", "Settings (epochs=500; rate=0.3)"),
+    ("holdout", "Share of rows held out"),
 )
 
 
@@ -405,7 +415,7 @@ def ask_options(ctx, defaults):
     settings, filled with the defaults; the answers, or None when cancelled."""
     manager = ctx.ServiceManager
     model = manager.createInstanceWithContext("com.sun.star.awt.UnoControlDialogModel", ctx)
-    model.Width, model.Height, model.Title = 260, 112, "sheetnet: store a model from the selected table"
+    model.Width, model.Height, model.Title = 260, 132, "sheetnet: store a model from the selected table"
     for row, (key, label) in enumerate(DIALOG_FIELDS):
         text = model.createInstance("com.sun.star.awt.UnoControlFixedTextModel")
         text.PositionX, text.PositionY, text.Width, text.Height, text.Label = 6, 9 + 20 * row, 118, 12, label
@@ -415,7 +425,7 @@ def ask_options(ctx, defaults):
         model.insertByName(key, field)
     for key, label, kind, left in (("ok", "Train and store", 1, 126), ("cancel", "Cancel", 2, 194)):
         button = model.createInstance("com.sun.star.awt.UnoControlButtonModel")
-        button.PositionX, button.PositionY, button.Width, button.Height, button.Label, button.PushButtonType = left, 88, 60, 16, label, kind
+        button.PositionX, button.PositionY, button.Width, button.Height, button.Label, button.PushButtonType = left, 108, 60, 16, label, kind
         model.insertByName(key, button)
     dialog = manager.createInstanceWithContext("com.sun.star.awt.UnoControlDialog", ctx)
     dialog.setModel(model)
@@ -428,7 +438,46 @@ def ask_options(ctx, defaults):
         dialog.dispose()
 
 
-def store_model(doc, selection, options, ask=None):
+def file_address(selection):
+    """The selection as a workbook file writes it, like 'Data'!$A$1:$D$61, recorded so the model can be refreshed."""
+    where = selection.getRangeAddress()
+    sheet = selection.getSpreadsheet().getName()
+    first = calc_reference(sheet, where.StartRow + 1, where.StartColumn + 1, where.EndRow + 1, where.EndColumn + 1)
+    quoted, _, cells = first[1:].partition(".")
+    return f"{quoted}!{cells}"
+
+
+def _number(text, what, whole=False):
+    try:
+        number = float(text)
+    except ValueError:
+        raise ServerProblem(f"the {what} is '{text}'; give a number such as {'0' if whole else '0.2'}") from None
+    return int(number) if whole and number.is_integer() else number
+
+
+def train_job(body, progress=None):
+    """Train through a server job (the service splits, seeds and places as for every door); the done job."""
+    limit = timeout_for("SHEETNET.TRAIN")
+    job = call_server("/v1/jobs", body, "SHEETNET.TRAIN")
+    deadline = time.monotonic() + limit
+    while time.monotonic() < deadline:
+        view = get_server("/v1/jobs/" + urllib.parse.quote(job["id"]), "SHEETNET.TRAIN")
+        if view["state"] != "running":
+            if view["state"] != "done":
+                text = str(view.get("message") or f"the training job ended {view['state']}")
+                raise ServerProblem(text[len(MARKER):].strip() if text.startswith(MARKER) else text)
+            return view
+        if progress is not None:
+            progress(view.get("epoch") or 0, view.get("epochs") or 0)
+        time.sleep(0.1)
+    try:
+        request_server("/v1/jobs/" + urllib.parse.quote(job["id"]), None, "SHEETNET.TRAIN", "DELETE")
+    except ServerProblem:
+        pass
+    raise ServerProblem(f"the training did not finish within {limit:g} s and was cancelled; train fewer rows or epochs")
+
+
+def store_model(doc, selection, options, ask=None, progress=None):
     """Train the selected table through the server and store the model; returns what happened, in words.
     ``ask`` (the dialog) gets the defaults and returns the options, or None to cancel."""
     if options.get("table"):
@@ -442,7 +491,8 @@ def store_model(doc, selection, options, ask=None):
         raise ServerProblem("the selection has no data rows; select the table with its header row and the rows below")
     existing = list(doc.NamedRanges.getElementNames())
     if ask is not None:
-        options = ask({"name": _free_model_name(existing), "target": str(table[0][-1]), "hidden": "", "settings": ""})
+        defaults = {"name": _free_model_name(existing), "target": str(table[0][-1]), "hidden": "", "settings": "", "holdout": f"{TABLE['holdout']:g}"}
+        options = ask(defaults)
         if options is None:
             raise Cancelled()
         options = {k: v for k, v in options.items() if v}
@@ -451,11 +501,17 @@ def store_model(doc, selection, options, ask=None):
     args = [table, target, options.get("hidden"), options.get("settings")]
     while args and args[-1] is None:
         args.pop()
-    answer = call_server("/v1/functions/SHEETNET.TRAIN", {"args": args}, "SHEETNET.TRAIN")
-    if answer.get("message"):
-        raise ServerProblem(answer["message"][len(MARKER):].strip())
-    block = answer["result"]
-    placements = call_server("/v1/placements", {"name": name, "block": block, "existing_names": existing}, "placements")
+    body = {
+        "name": name, "args": args, "existing_names": existing, "address": file_address(selection),
+        "holdout": _number(options["holdout"], "holdout share") if "holdout" in options else TABLE["holdout"],
+        "mode": options.get("mode", "auto"),
+    }
+    if "seed" in options:
+        body["seed"] = _number(options["seed"], "seed", whole=True)
+    view = train_job(body, progress)
+    placements = view.get("placements")
+    if not placements:
+        raise ServerProblem(str(view.get("message") or "the server sent no placements for the model; restart sheetnet serve"))
     apply_placements(doc, placements)
     sheets = ", ".join(plan["title"] for plan in placements.get("sheets", []))
     return f"model {name} ({target}) stored on the hidden sheet {sheets} under the defined name {name}"
@@ -499,7 +555,12 @@ class StoreCommand(unohelper.Base, XInitialization, XDispatchProvider, XNotifyin
             doc = controller.getModel()
             options = _query(url.Complete)
             ask = (lambda defaults: ask_options(self.ctx, defaults)) if not options and self._on_screen() else None
-            text = store_model(doc, controller.getSelection(), options, ask)
+            indicator = self._indicator()
+            try:
+                text = store_model(doc, controller.getSelection(), options, ask, self._progress(indicator))
+            finally:
+                if indicator is not None:
+                    indicator.end()
             ok = True
         except Cancelled:
             return False, "cancelled"
@@ -509,6 +570,22 @@ class StoreCommand(unohelper.Base, XInitialization, XDispatchProvider, XNotifyin
             text, ok = message(f"storing the model failed ({type(error).__name__}: {error}); please report it"), False
         self._tell(text)
         return ok, text
+
+    def _indicator(self):
+        try:
+            indicator = self.frame.createStatusIndicator()
+            indicator.start("sheetnet: training", 100)
+            return indicator
+        except Exception:
+            return None
+
+    @staticmethod
+    def _progress(indicator):
+        def show(epoch, epochs):
+            if indicator is not None and epochs:
+                indicator.setText(f"sheetnet: training, epoch {epoch} of at most {epochs}")
+                indicator.setValue(min(100, int(100 * epoch / epochs)))
+        return show
 
     def _on_screen(self):
         try:
