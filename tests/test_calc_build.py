@@ -126,3 +126,26 @@ def test_serve_writes_the_file_and_removes_it_on_exit(tmp_path: Path) -> None:
         server.send_signal(signal.SIGTERM)
         _, errors = server.communicate(timeout=60)
     assert not path.exists(), errors
+
+
+def test_install_and_remove_in_a_temporary_profile(tmp_path: Path) -> None:
+    import shutil
+
+    if shutil.which("unopkg") is None:
+        pytest.skip("unopkg (LibreOffice: apt-get install libreoffice-calc-nogui) is not installed")
+    from sheetnet.calc import commands
+
+    profile = tmp_path / "profile"
+
+    def listed() -> str:
+        shared = ["--shared"] if os.geteuid() == 0 else []
+        done = subprocess.run([str(commands.find_unopkg()), "list", *shared, *office_settings(profile)], capture_output=True, text=True, timeout=180,
+                              env=dict(os.environ, HOME=str(tmp_path)))
+        return done.stdout
+
+    oxt = commands.install(profile, InstallSettings(), tmp_path / "sheetnet.oxt")
+    assert oxt.exists() and f"Identifier: {build.EXTENSION_ID}" in listed()
+    commands.remove(profile)
+    assert build.EXTENSION_ID not in listed()
+    with pytest.raises(commands.CalcSetupError, match="not installed in this profile; nothing to remove"):
+        commands.remove(profile)  # nothing left to remove: a message, not a traceback

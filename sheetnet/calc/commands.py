@@ -59,6 +59,8 @@ def _unopkg(arguments: list[str], profile: Path | None) -> str:
     except subprocess.TimeoutExpired:
         raise CalcSetupError("unopkg did not finish within 3 minutes; close LibreOffice (it locks the profile) and try again") from None
     if done.returncode != 0:
+        if "no such extension deployed" in done.stderr + done.stdout:
+            raise CalcSetupError(f"unopkg {arguments[0]} failed: sheetnet's Calc extension is not installed in this profile; nothing to remove")
         text = (done.stderr or done.stdout).strip().splitlines()
         raise CalcSetupError(f"unopkg {arguments[0]} failed: {' '.join(text[-3:])}; close LibreOffice (it locks the profile) and try again")
     return done.stdout
