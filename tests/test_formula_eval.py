@@ -143,6 +143,8 @@ def test_what_it_cannot_read_is_refused_with_a_reason(text, where):
 def test_formula_text_is_never_run_as_python():
     with pytest.raises(FormulaSyntaxError):
         _eval("=__import__('os')")
+    with pytest.raises(FormulaSyntaxError, match="too deeply"):
+        _eval("=" + "(" * 5000 + "1" + ")" * 5000)
 
 
 # --- native formulas against predict ---------------------------------------------------------
@@ -261,6 +263,8 @@ def test_the_check_names_rows_and_numbers_when_a_constant_was_edited(models):
     problems = check_native_formulas(model, "net", edited, frame[INPUTS].head(40), "probabilities", row_numbers=range(2, 42), limit=3)
     assert len(problems) == 4 and problems[-1].startswith("... and ") and problems[-1].endswith(" more rows differ")
     assert problems[0].startswith("row 2: the native formulas give 0.") and " but the model gives the probabilities 0." in problems[0]
+    spread = check_native_formulas(model, "net", edited, frame[INPUTS].head(40), "probabilities", row_numbers=range(2, 42), max_rows=3)
+    assert [p.split(":")[0] for p in spread] == ["row 2", "row 22", "row 41"]
     classes = check_native_formulas(model, "net", edited, frame[INPUTS].head(40), "class")
     assert classes and all(" but the model predicts 'pass'" in p or " but the model predicts 'fail'" in p for p in classes[:-1])
 
@@ -306,6 +310,15 @@ def test_sample_rows_cover_the_inputs_of_a_model(models):
     for model in fitted.values():
         for output in _outputs(model):
             assert check_native_formulas(model, "net", _stored(model), sample_rows(model), output) == []
+
+
+@pytest.mark.parametrize("module", ["sheetnet.formula_eval", "sheetnet.formulas"])
+def test_docstring_examples_run(module):
+    import doctest
+    import importlib
+
+    result = doctest.testmod(importlib.import_module(module))
+    assert result.attempted > 0 and result.failed == 0
 
 
 def test_an_error_value_shows_its_code():
