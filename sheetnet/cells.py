@@ -48,11 +48,12 @@ def is_blank(value: Any) -> bool:
     return isinstance(value, str) and not value.strip()
 
 
-def as_grid(cells: Any, what: str) -> list[list[Any]]:
+def as_grid(cells: Any, what: str, check_cells: bool = True) -> list[list[Any]]:
     """A range as a list of rows; a single value is a 1 x 1 range.
 
     Every cell must be one value (number, text, TRUE/FALSE, date or blank): a
-    list inside a cell, as nested lists give, is refused with its place.
+    list inside a cell, as nested lists give, is refused with its place
+    (``check_cells=False`` leaves that to a caller that looks at every column anyway).
     """
     if isinstance(cells, np.ndarray):
         cells = cells.tolist()
@@ -72,14 +73,16 @@ def as_grid(cells: Any, what: str) -> list[list[Any]]:
         raise InputError(
             f"the {what} range has {len(rows) * width:,} cells, more than the {MAX_CELLS:,} sheetnet reads; select only the rows and columns in use"
         )
-    _check_cell_types(rows, what)
+    if check_cells:
+        _check_cell_types(rows, what)
     if len(widths) == 1:
         return rows  # rectangular already: the rows are read, never changed, so they are not copied
     return [r + [None] * (width - len(r)) for r in rows]
 
 
-def _check_cell_types(rows: list[list[Any]], what: str) -> None:
-    types = set(map(type, itertools.chain.from_iterable(rows)))  # one pass in C; the per-cell search below runs only on a refusal
+def _check_cell_types(rows: list[list[Any]], what: str, types: set[type] | None = None) -> None:
+    if types is None:
+        types = set(map(type, itertools.chain.from_iterable(rows)))  # one pass in C; the per-cell search below runs only on a refusal
     strange = [t for t in types if t not in CELL_TYPES and not issubclass(t, CELL_TYPE_FAMILIES)]
     if not strange:
         return
@@ -108,7 +111,8 @@ class SheetTable:
 
 def read_sheet_table(cells: Any, what: str = "table") -> SheetTable:
     """Split a range into header and data rows; refuse missing or repeated column names."""
-    grid = as_grid(cells, what)
+    grid = as_grid(cells, what, check_cells=False)  # the cells' types are looked at column by column below
+    _check_cell_types(grid[:1], what)
     header = grid[0]
     names: list[str] = []
     for j, name in enumerate(header):
@@ -123,7 +127,10 @@ def read_sheet_table(cells: Any, what: str = "table") -> SheetTable:
     blank = np.ones(len(body), dtype=bool)
     typed: list[np.ndarray | list[Any]] = []
     for column in columns:
-        if set(map(type, column)) <= NUMBER_TYPES:  # numbers and blanks only: one vectorised conversion
+        types = set(map(type, column))
+        if not types <= CELL_TYPES:
+            _check_cell_types(grid, what, types)
+        if types <= NUMBER_TYPES:  # numbers and blanks only: one vectorised conversion
             numbers = np.array(column, dtype=np.float64)  # blanks (None) become NaN
             blank &= np.isnan(numbers)
             typed.append(numbers)

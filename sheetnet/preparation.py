@@ -394,7 +394,7 @@ def read_target(y: Any) -> np.ndarray:
     if array.ndim == 2 and array.shape[1] == 1:
         array = array[:, 0]
     if array.ndim != 1:
-        raise InputError(f"the target has shape {array.shape}; pass one column of values")
+        raise InputError(f"the target has {array.ndim} dimensions ({' by '.join(map(str, array.shape))}); pass one column of values")
     return _column_array(array)
 
 
@@ -542,8 +542,10 @@ def task_choice_in_words(task: str, setting: str, classes: Sequence[Any]) -> str
     >>> task_choice_in_words("multiclass", "auto", [1, 2, 3, 4, 5]).split("; ")[-1]
     'to predict them as numbers that keep their order (a rating or a count), add the setting task=regression'
     """
-    if setting != "auto":
+    if setting == task:
         return f"{task}, as the setting task={setting} asked"
+    if setting != "auto":  # multiclass asked for a target of two classes
+        return f"{task}: the setting task={setting} asked for classes, and the target holds two, which one output tells apart"
     head = f"{task}, chosen automatically"
     if task == "regression":
         return (

@@ -157,6 +157,7 @@ def test_too_many_classes_and_constant_targets_are_named_in_words():
 
 def test_the_task_choice_in_words_names_the_rule_and_the_override():
     assert task_choice_in_words("regression", "regression", ()) == "regression, as the setting task=regression asked"
+    assert task_choice_in_words("binary", "multiclass", ("no", "yes")).startswith("binary: the setting task=multiclass asked for classes")
     assert "task=multiclass" in task_choice_in_words("regression", "auto", ())
     assert task_choice_in_words("binary", "auto", ("no", "yes")).endswith("so the model tells which of the two applies")
     assert "task=regression" in task_choice_in_words("binary", "auto", (0, 1))
