@@ -878,7 +878,7 @@ def check_native_formulas(
     >>> check_native_formulas(model, "grades", stored, frame, "class")   # doctest: +SKIP
     ["row 5: the native formula gives 'B' but the model predicts 'A'"]
     """
-    from .formulas import FormulaError, native_formula
+    from .formulas import FormulaError, formula_constants, native_formula
 
     frame = _input_frame(model, rows)
     numbers = list(row_numbers) if row_numbers is not None else list(range(1, len(frame) + 1))
@@ -899,6 +899,14 @@ def check_native_formulas(
             f"the workbook has no defined name {', '.join(missing)}, which the native formulas of '{model_name}' read; "
             "store the model again so its formula constants are written"
         ]
+    misshapen = [
+        f"the defined name {c.name} covers {' x '.join(map(str, names[c.name.casefold()].shape))} cells but the native formulas "
+        f"of '{model_name}' need {' x '.join(map(str, c.shape))}; store the model again so its formula constants are written"
+        for c in formula_constants(model, model_name)
+        if c.name.casefold() in names and names[c.name.casefold()].shape != c.shape
+    ]
+    if misshapen:
+        return misshapen
     keys = [reference_key(cells[name]) for name in model.input_names]
     floor = 1e-6 if output == "probabilities" else 1e-6 * (model.target.scale if model.task == "regression" else 1.0)
     problems: list[str] = []

@@ -278,6 +278,12 @@ def test_the_check_reports_a_missing_name_and_a_row_only_the_formula_accepts(mod
         "the workbook has no defined name snf_net_cats4, which the native formulas of 'net' read; "
         "store the model again so its formula constants are written"
     ]
+    names = _stored(model)
+    names["snf_net_m1_W2"] = names["snf_net_m1_W2"][:2]
+    assert check_native_formulas(model, "net", names, frame[INPUTS].head(3)) == [
+        "the defined name snf_net_m1_W2 covers 2 x 1 cells but the native formulas of 'net' need 5 x 1; "
+        "store the model again so its formula constants are written"
+    ]
     rows = frame[INPUTS].head(2).astype(object)
     rows.iat[1, 0] = datetime.date(2024, 1, 5)  # a number to a spreadsheet, refused by the engine
     problems = check_native_formulas(model, "net", _stored(model), rows, row_word="sample row")
