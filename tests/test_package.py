@@ -314,10 +314,25 @@ def test_backups_are_ours_rotated_and_never_the_users(tmp_path: Path, capsys: py
 
 
 SAVER = textwrap.dedent('''
-    import sys
+    import os, sys, time
+    from sheetnet import file_guard
     from sheetnet.placements import Placements, SheetPlan, cell_block
     from sheetnet.workbook import open_book, save_book
-    path, rounds = sys.argv[1], int(sys.argv[2])
+    path, rounds, pause = sys.argv[1], int(sys.argv[2]), sys.argv[3] == "pause"
+    real_fsync, real_keep = os.fsync, file_guard._keep_attributes
+
+    def slow_fsync(descriptor):  # a slow disk: kills land inside the write more often
+        time.sleep(0.03)
+        real_fsync(descriptor)
+
+    def keep_then_wait(*arguments):  # the new file is written beside the workbook, not yet in its place
+        real_keep(*arguments)
+        print("written", flush=True)
+        time.sleep(30)
+
+    os.fsync = slow_fsync
+    if pause:
+        file_guard._keep_attributes = keep_then_wait
     for n in range(rounds):
         with open_book(path) as book:
             rows = [[f"=row {r}", r * 0.5, n] for r in range(2000)]
@@ -333,14 +348,20 @@ def test_a_save_killed_at_any_moment_leaves_the_workbook_or_its_backup_whole(tmp
     user_before = {k: v for k, v in _members(path).items() if k not in _owned(path)}
     chance = random.Random(20261202)
     environment = dict(os.environ, PYTHONPATH=str(Path(__file__).parents[1]))
-    for _ in range(4):
-        saver = subprocess.Popen([sys.executable, "-c", SAVER, str(path), "50"], stdout=subprocess.PIPE, env=environment)
+    for round_number in range(5):
+        pause = round_number == 0  # the first kill comes while the new file lies written beside the workbook
+        saver = subprocess.Popen([sys.executable, "-c", SAVER, str(path), "50", "pause" if pause else "go"], stdout=subprocess.PIPE, env=environment)
         assert saver.stdout is not None
-        saver.stdout.readline()  # one save done: the next ones are under way when the kill comes
-        time.sleep(chance.uniform(0.0, 0.5))
+        if pause:
+            assert saver.stdout.readline() == b"written\n"
+        else:
+            assert saver.stdout.readline().startswith(b"saved")  # the next saves are under way when the kill comes
+            time.sleep(chance.uniform(0.0, 0.6))
         saver.send_signal(signal.SIGKILL)
         saver.wait()
         saver.stdout.close()
+        if pause:
+            assert len(list(tmp_path.glob(f"{file_guard.TEMP_PREFIX}killed.xlsx.*"))) == 1
         for candidate in (path, file_guard.backup_path(path, 1)):
             try:
                 members = _members(candidate)
@@ -353,6 +374,7 @@ def test_a_save_killed_at_any_moment_leaves_the_workbook_or_its_backup_whole(tmp
         book.log.add(Placements(sheets=(SheetPlan("sn after"),)))
         save_book(book)
     assert not list(tmp_path.glob(f"{file_guard.TEMP_PREFIX}*"))
+    assert _openpyxl(path, data_only=True)["Lots"]["J2"].value == 653.65
 
 
 def test_two_trainings_at_once_keep_both_models(rich: Path) -> None:
