@@ -132,11 +132,12 @@ def _saved(book: Any, out: TextIO) -> None:
 
 def run_train(args: argparse.Namespace, out: TextIO) -> int:
     from . import functions, service
-    from .workbook import open_book, read_range
+    from .workbook import check_can_save, open_book, read_range
     from .workbook_models import check_storable, results_sheet, store_model
 
     book = open_book(args.book)
     check_storable(book, args.name, args.replace)
+    check_can_save(book)  # a read-only or open workbook is refused before training, not after
     table = read_range(book, args.table)
     request = service.TrainRequest(table, args.target, args.hidden, _settings_text(args.set), args.holdout, args.mode, args.seed, args.table)
     bar = ProgressLine(f"training {args.name}")
@@ -439,9 +440,12 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
+    from .file_guard import command_scope
+
     args = build_parser().parse_args(argv)
     try:
-        code = _dispatch(args)
+        with command_scope():  # every workbook the command opened lets go of its file when it ends
+            code = _dispatch(args)
         sys.stdout.flush()  # inside the try: a reader that stopped early shows here, not at exit
         return code
     except SheetnetError as error:

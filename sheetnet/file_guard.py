@@ -28,9 +28,11 @@ import shutil
 import stat
 import threading
 import time
+import weakref
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
-from typing import BinaryIO, Callable
+from typing import BinaryIO, Callable, Iterator
 
 from .errors import SheetnetError
 
@@ -89,6 +91,19 @@ class _Held:
 
 _HELD: dict[tuple[int, int], _Held] = {}
 _HELD_GUARD = threading.Lock()
+_HANDLES: "weakref.WeakSet[WorkbookLock]" = weakref.WeakSet()
+
+
+@contextmanager
+def command_scope() -> Iterator[None]:
+    """Release, when the block ends, every workbook lock taken inside it (one command: read, train, write, done)."""
+    before = set(_HANDLES)
+    try:
+        yield
+    finally:
+        for handle in list(_HANDLES):
+            if handle not in before:
+                handle.release()
 
 
 class WorkbookLock:
@@ -100,6 +115,7 @@ class WorkbookLock:
     def __init__(self, path: Path, held: _Held) -> None:
         self.path = path
         self._held: _Held | None = held
+        _HANDLES.add(self)
 
     @property
     def descriptor(self) -> int | None:

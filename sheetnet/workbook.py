@@ -10,7 +10,7 @@ command writes is collected as `Placements` in ``Book.log`` (decided by
 (`sheetnet.file_guard.replace_file`).
 
 A `Book` holds a lock on its file from `open_book` until `Book.close` (or the
-end of a ``with open_book(...)`` block, or of `closing_books`), so two sheetnet
+end of a ``with open_book(...)`` block, or of `closing_books`, which the command line wraps every command in), so two sheetnet
 commands never interleave their reads and writes on one workbook.
 """
 
@@ -21,10 +21,9 @@ import os
 import warnings
 import weakref
 import zipfile
-from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Iterator
+from typing import Any
 
 import openpyxl
 from openpyxl.utils.cell import get_column_letter, quote_sheetname, range_boundaries
@@ -69,7 +68,6 @@ class Book:
         self.opened_sheets = self.opened_sheets or tuple(self.formulas._sheets)
         lock = self.lock
         self._finalizer = weakref.finalize(self, _release, lock)  # a book nobody closed lets its file go when it is freed
-        _OPEN.add(self)
 
     @property
     def keeps_macros(self) -> bool:
@@ -86,24 +84,12 @@ class Book:
         self.close()
 
 
-_OPEN: "weakref.WeakSet[Book]" = weakref.WeakSet()
-
-
 def _release(lock: file_guard.WorkbookLock | None) -> None:
     if lock is not None:
         lock.release()
 
 
-@contextmanager
-def closing_books() -> Iterator[None]:
-    """Close every book opened inside the block when it ends (one command: read, train, write, done)."""
-    before = set(_OPEN)
-    try:
-        yield
-    finally:
-        for book in list(_OPEN):
-            if book not in before:
-                book.close()
+closing_books = file_guard.command_scope  # every book opened inside lets go of its file when the block ends
 
 
 def open_book(path: str | Path, wait: float | None = None) -> Book:
