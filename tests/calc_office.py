@@ -202,6 +202,17 @@ class Driver:
         result = self.dispatcher.executeDispatch(controller.getFrame(), url, "", 0, ())
         return {"result": getattr(result, "Result", result), "state": getattr(result, "State", None), "seconds": time.perf_counter() - start}
 
+    def op_wizard_texts(self) -> dict[str, Any]:
+        """What the function wizard shows for every function whose name starts with SHEETNET."""
+        descriptions = self.context.ServiceManager.createInstanceWithContext("com.sun.star.sheet.FunctionDescriptions", self.context)
+        found = {}
+        for index in range(descriptions.getCount()):
+            entry = {p.Name: p.Value for p in descriptions.getByIndex(index)}
+            if str(entry.get("Name", "")).upper().startswith("SHEETNET."):
+                arguments = [{"name": a.Name, "help": a.Description, "optional": bool(a.IsOptional)} for a in (entry.get("Arguments") or ())]
+                found[entry["Name"]] = {"help": entry.get("Description"), "category": entry.get("Category"), "arguments": arguments}
+        return found
+
     def op_quit(self) -> None:
         for component in list(self.docs.values()):
             try:

@@ -21,8 +21,6 @@ from sheetnet.calc.commands import office_settings
 from sheetnet.registry import REGISTRY
 from sheetnet.server_file import read_server_file, remove_server_file, write_server_file
 
-OOR = "{http://openoffice.org/2001/registry}"
-
 
 def test_interface_has_one_method_per_registry_function() -> None:
     idl = build.interface_idl()
@@ -37,24 +35,6 @@ def test_shipped_type_library_equals_a_fresh_build(tmp_path: Path) -> None:
         pytest.skip("unoidl-write (LibreOffice SDK: apt-get install libreoffice-dev) is not installed, so the shipped type library was not rebuilt")
     fresh = build.build_rdb(tmp_path / "fresh.rdb")
     assert fresh.read_bytes() == build.SHIPPED_RDB.read_bytes(), "the registry changed: run sheetnet calc build --types and commit sheetnet/calc/sheetnet.rdb"
-
-
-def test_function_wizard_texts_come_from_the_registry() -> None:
-    root = ElementTree.fromstring(build.calc_addins_xcu())
-    functions = root.find(f"./node/node[@{OOR}name='{build.FUNCTIONS_IMPLEMENTATION}']/node")
-    assert functions is not None
-    by_method = {node.get(f"{OOR}name"): node for node in functions}
-    assert set(by_method) == {e.name.split(".")[1].lower() for e in REGISTRY}
-    for entry in REGISTRY:
-        node = by_method[entry.name.split(".")[1].lower()]
-        texts = {p.get(f"{OOR}name"): p.findtext("value") for p in node.findall("prop")}
-        assert texts["DisplayName"] == entry.name
-        assert texts["Description"] == f"{entry.help} Returns {entry.returns}."
-        parameters = node.find("node")
-        assert parameters is not None
-        assert [p.get(f"{OOR}name") for p in parameters] == [build.idl_name(a) for a in entry.arguments]
-        first = {p.get(f"{OOR}name"): p.findtext("value") for p in parameters[0].findall("prop")}
-        assert first["DisplayName"] == entry.arguments[0].name
 
 
 def test_extension_holds_every_part_with_its_media_type(tmp_path: Path) -> None:

@@ -117,6 +117,18 @@ def test_install_reports_what_to_do(live: dict[str, Any]) -> None:
     assert formulas == [["{=SHEETNET.PREDICT(H1:P%d;A1:C%d)}" % (len(live["book"].read("train")), ROWS + 1)]]
 
 
+def test_function_wizard_shows_the_registry_texts(live: dict[str, Any]) -> None:
+    from sheetnet.registry import REGISTRY
+
+    texts = live["office"].call("wizard_texts")
+    assert sorted(texts) == sorted(entry.name for entry in REGISTRY)
+    for entry in REGISTRY:
+        shown_entry = texts[entry.name]
+        assert shown_entry["help"] == f"{entry.help} Returns {entry.returns}."
+        assert [a["name"] for a in shown_entry["arguments"]] == [a.name for a in entry.arguments]
+        assert [a["help"] for a in shown_entry["arguments"]] == [a.help + (" (optional)" if a.optional else "") for a in entry.arguments]
+
+
 def test_every_function_equals_the_direct_call(live: dict[str, Any]) -> None:
     book = live["book"]
     block = assert_matches_direct(book, live["table"])

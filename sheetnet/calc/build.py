@@ -4,6 +4,11 @@ Calc names an add-in function ``<service name>.<METHOD>``; the service name is `
 method is the registry name's last part in lower case, so cells read ``=SHEETNET.PREDICT(...)``
 exactly as with the Office add-in. Every argument is ``any`` (see `idl_type`); every answer is
 ``sequence< sequence< any > >``, the only return type Calc shows as a 2-D array.
+
+No CalcAddIns.xcu: with one, Calc 7.4 lists the functions from the configuration without loading
+the component and then never shows their arguments in the function wizard (it fills argument
+information only from a loaded component, and builds its function list once). Without it, Calc
+loads the component when it starts and takes every name and help text from its `XAddIn` methods.
 """
 
 from __future__ import annotations
@@ -161,25 +166,6 @@ CONFIG_HEAD = ('<?xml version="1.0" encoding="UTF-8"?>\n'
                'oor:name="{name}" oor:package="org.openoffice.Office">\n')
 
 
-def calc_addins_xcu(registry: Iterable[CellFunction] = REGISTRY) -> str:
-    """Names and help texts for the function wizard, read by Calc without loading the component."""
-    functions = []
-    for entry in registry:
-        arguments = "".join(
-            f'<node oor:name="{idl_name(a)}" oor:op="replace">{_prop("DisplayName", a.name)}'
-            f'{_prop("Description", a.help + (" (optional)" if a.optional else ""))}</node>'
-            for a in entry.arguments
-        )
-        functions.append(
-            f'<node oor:name="{method_name(entry)}" oor:op="replace">{_prop("DisplayName", entry.name)}'
-            f'{_prop("Description", entry.help + " Returns " + entry.returns + ".")}{_prop("Category", CATEGORY, False)}'
-            f'<node oor:name="Parameters">{arguments}</node></node>'
-        )
-    return (CONFIG_HEAD.format(name="CalcAddIns") + '<node oor:name="AddInInfo">'
-            f'<node oor:name="{FUNCTIONS_IMPLEMENTATION}" oor:op="replace"><node oor:name="AddInFunctions">'
-            + "\n".join(functions) + "</node></node></node>\n</oor:component-data>\n")
-
-
 STORE_TITLE = "sheetnet: store a model from the selected table"
 
 
@@ -217,7 +203,6 @@ def components_xml() -> str:
 MEDIA_TYPES = {
     "sheetnet.rdb": "application/vnd.sun.star.uno-typelibrary;type=RDB",
     "sheetnet.components": "application/vnd.sun.star.uno-components",
-    "CalcAddIns.xcu": "application/vnd.sun.star.configuration-data",
     "Addons.xcu": "application/vnd.sun.star.configuration-data",
     "ProtocolHandler.xcu": "application/vnd.sun.star.configuration-data",
 }
@@ -244,7 +229,6 @@ def extension_files(settings: InstallSettings = DEFAULT_SETTINGS, rdb: Path = SH
         "META-INF/manifest.xml": manifest_xml(),
         "description.xml": description_xml(),
         "sheetnet.components": components_xml(),
-        "CalcAddIns.xcu": calc_addins_xcu(),
         "Addons.xcu": addons_xcu(),
         "ProtocolHandler.xcu": protocol_handler_xcu(),
         "sheetnet_calc.json": json.dumps(function_table(settings), indent=1),

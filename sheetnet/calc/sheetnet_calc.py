@@ -265,7 +265,7 @@ class CellFunctions(unohelper.Base, XCellFunctions, XAddIn, XServiceName, XServi
     def getLocale(self):
         return self.locale
 
-    # XAddIn: what the function wizard shows (the same texts as CalcAddIns.xcu)
+    # XAddIn: what the function wizard shows
     def getProgrammaticFuntionName(self, display_name):
         return BY_DISPLAY.get(display_name.upper(), "")
 
