@@ -74,6 +74,9 @@ class Package:
     archive: zipfile.ZipFile
     infos: list[zipfile.ZipInfo]
 
+    def __post_init__(self) -> None:
+        self._names = {info.filename for info in self.infos}
+
     def has(self, part: str) -> bool:
         return part in self._names
 
@@ -88,10 +91,6 @@ class Package:
             return self.read(part).decode("utf-8")
         except UnicodeDecodeError:
             raise PackageError(f"the part {part} of {self.label} is not UTF-8 text; save the workbook again in a spreadsheet program") from None
-
-    @property
-    def _names(self) -> set[str]:
-        return {info.filename for info in self.infos}
 
 
 def open_package(data: bytes, label: str) -> Package:
@@ -237,46 +236,48 @@ def split_cell(reference: str) -> tuple[int, int]:
 
 @dataclass(frozen=True)
 class Cell:
-    """One cell's XML without its ``r`` and ``s`` attributes: (type attribute, inner XML)."""
+    """One cell sheetnet writes, rendered with the prefix of the part it goes into."""
 
-    kind: str  # '' number, 'b', 'inlineStr', 'e', or 'formula'
-    inner: str
+    kind: str  # 'n' number, 'b' boolean, 'e' error, 'str' text (inline), 'f' formula
+    body: str  # already escaped for XML
+    array: bool = False  # formulas: a single-cell array formula
+    preserve: bool = False  # text: keep its leading and trailing spaces
 
     def xml(self, prefix: str, reference: str, style: str | None = None) -> str:
         p = prefix
         s = f' s="{style}"' if style else ""
-        t = f' t="{self.kind}"' if self.kind not in ("", "formula") else ""
-        return f'<{p}c r="{reference}"{s}{t}>{self.inner}</{p}c>'
+        if self.kind == "str":
+            space = ' xml:space="preserve"' if self.preserve else ""
+            return f'<{p}c r="{reference}"{s} t="inlineStr"><{p}is><{p}t{space}>{self.body}</{p}t></{p}is></{p}c>'
+        if self.kind == "f":
+            kind = f' t="array" ref="{reference}"' if self.array else ""
+            return f'<{p}c r="{reference}"{s}><{p}f{kind}>{self.body}</{p}f></{p}c>'
+        t = "" if self.kind == "n" else f' t="{self.kind}"'
+        return f'<{p}c r="{reference}"{s}{t}><{p}v>{self.body}</{p}v></{p}c>'
 
 
-def value_cell(value: Any, prefix: str = "") -> Cell | None:
-    """A value as a cell: strings always as inline text (never a formula), numbers, booleans; None is no cell."""
-    p = prefix
+def value_cell(value: Any) -> Cell | None:
+    """A value as a cell: strings always as inline text (never a formula), numbers, booleans; None is no cell.
+    Dates and times, which sheetnet never places itself, are written as their ISO text."""
     if value is None:
         return None
     if isinstance(value, bool) or (hasattr(value, "dtype") and getattr(value.dtype, "kind", "") == "b"):
-        return Cell("b", f"<{p}v>{1 if value else 0}</{p}v>")
+        return Cell("b", "1" if value else "0")
     if isinstance(value, numbers.Integral):
-        return Cell("", f"<{p}v>{int(value)}</{p}v>")
+        return Cell("n", str(int(value)))
     if isinstance(value, numbers.Real):
         number = float(value)
-        if not math.isfinite(number):
-            return Cell("e", f"<{p}v>#NUM!</{p}v>")
-        return Cell("", f"<{p}v>{repr(number)}</{p}v>")
+        return Cell("n", repr(number)) if math.isfinite(number) else Cell("e", "#NUM!")
     if isinstance(value, (dt.datetime, dt.date, dt.time)):
         value = value.isoformat(sep=" ") if isinstance(value, dt.datetime) else value.isoformat()
     text = str(value)
     if len(text) > CELL_TEXT_LIMIT:
         raise PackageError(f"a text of {len(text):,} characters is longer than a cell holds ({CELL_TEXT_LIMIT:,}); shorten it")
-    space = ' xml:space="preserve"' if text != text.strip() or "\n" in text else ""
-    return Cell("inlineStr", f"<{p}is><{p}t{space}>{cell_text(text)}</{p}t></{p}is>")
+    return Cell("str", cell_text(text), preserve=text != text.strip() or "\n" in text)
 
 
-def formula_cell(text: str, reference: str, array: bool, prefix: str = "") -> Cell:
-    p = prefix
-    body = cell_text(text[1:] if text.startswith("=") else text)
-    kind = f' t="array" ref="{reference}"' if array else ""
-    return Cell("formula", f"<{p}f{kind}>{body}</{p}f>")
+def formula_cell(text: str, array: bool) -> Cell:
+    return Cell("f", cell_text(text[1:] if text.startswith("=") else text), array=array)
 
 
 Grid = dict[tuple[int, int], Cell]
@@ -555,7 +556,7 @@ class WorkbookParts:
             for i, row in enumerate(formulas.formulas):
                 for j, text in enumerate(row):
                     where = (formulas.top + i, formulas.left + j)
-                    grid[where] = formula_cell(text, f"{column_letters(where[1])}{where[0]}", formulas.array)
+                    grid[where] = formula_cell(text, formulas.array)
         for placed in placements.names:
             for name in self.names:
                 if not name.local and not name.dropped and name.name.casefold() == placed.name.casefold():

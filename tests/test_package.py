@@ -438,8 +438,8 @@ def test_cells_go_into_a_users_rows_in_order_keeping_formats_and_refusing_filled
         '<x:sheetData><x:row r="1" spans="1:3"><x:c r="A1"><x:v>1</x:v></x:c><x:c r="C1" s="4"/></x:row>'
         '<x:row r="3"><x:c r="B3" t="s"><x:v>0</x:v></x:c></x:row></x:sheetData><x:extLst/></x:worksheet>'
     )
-    text = value_cell("=not a formula", "x:")
-    number = value_cell(2.5, "x:")
+    text = value_cell("=not a formula")
+    number = value_cell(2.5)
     assert isinstance(text, Cell) and isinstance(number, Cell)
     out = insert_cells(sheet, {(1, 2): number, (1, 3): text, (2, 1): number, (3, 5): text}, "Data")
     assert out == (
@@ -454,11 +454,20 @@ def test_cells_go_into_a_users_rows_in_order_keeping_formats_and_refusing_filled
         insert_cells(sheet, {(1, 1): number}, "Data")
 
 
+def _xml(value: Any) -> str:
+    cell = value_cell(value)
+    assert cell is not None
+    return cell.xml("", "A1")
+
+
 def test_values_become_cells_of_their_kind() -> None:
-    assert value_cell(True) == Cell("b", "<v>1</v>")
-    assert value_cell(7) == Cell("", "<v>7</v>")
-    assert value_cell(float("nan")) == Cell("e", "<v>#NUM!</v>")
-    assert value_cell(" a<b&\x01 ") == Cell("inlineStr", '<is><t xml:space="preserve"> a&lt;b&amp;_x0001_ </t></is>')
+    assert _xml(True) == '<c r="A1" t="b"><v>1</v></c>'
+    assert _xml(7) == '<c r="A1"><v>7</v></c>'
+    assert _xml(0.1) == '<c r="A1"><v>0.1</v></c>'
+    assert _xml(float("nan")) == '<c r="A1" t="e"><v>#NUM!</v></c>'
+    assert _xml(" a<b&\x01 ") == '<c r="A1" t="inlineStr"><is><t xml:space="preserve"> a&lt;b&amp;_x0001_ </t></is></c>'
+    assert _xml("=SUM(A1)") == '<c r="A1" t="inlineStr"><is><t>=SUM(A1)</t></is></c>'
+    assert package.formula_cell("=A1<2", True).xml("x:", "B5") == '<x:c r="B5"><x:f t="array" ref="B5">A1&lt;2</x:f></x:c>'
     assert value_cell(None) is None
     with pytest.raises(package.PackageError, match="longer than a cell holds"):
         value_cell("x" * 40_000)
