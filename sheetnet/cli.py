@@ -182,11 +182,16 @@ def run_predict(args: argparse.Namespace, out: TextIO) -> int:
 
 
 def run_formulas(args: argparse.Namespace, out: TextIO) -> int:
+    from .formulas import FormulaError
     from .workbook import open_book
-    from .workbook_models import write_native_formulas
+    from .workbook_models import native_formula_problems, table_rows_for_check, write_native_formulas
 
     book = open_book(args.book)
     where, rows = write_native_formulas(book, args.model, args.table, args.to, args.output)
+    frame, sheet_rows = table_rows_for_check(book, args.model, args.table)
+    problems = native_formula_problems(book, args.model, frame, sheet_rows)  # evaluated before anything is saved
+    if problems:
+        raise FormulaError(f"the native formulas would not give the model's answers ({'; '.join(problems[:3])}); nothing was written. Please report this")
     _saved(book, out)
     out.write(f"{rows} rows of native formulas for model {args.model} written to {where}; ")
     out.write(f"they read the model's constants through names starting snf_{args.model}_\n")
@@ -293,7 +298,7 @@ def run_check(args: argparse.Namespace, out: TextIO) -> int:
     from .block import BlockError, decode_block
     from .service import MODEL_SHEET_PREFIX, constant_owner
     from .workbook import model_names, open_book, read_model
-    from .workbook_models import changed_constants
+    from .workbook_models import changed_constants, native_formula_problems
 
     book = open_book(args.book)
     names = set(model_names(book))
@@ -316,6 +321,9 @@ def run_check(args: argparse.Namespace, out: TextIO) -> int:
             changed = changed_constants(book, name)
             if changed:
                 raise BlockError(f"the native-formula constants {', '.join(changed)} differ from the model block; run sheetnet formulas again or retrain")
+            problems = native_formula_problems(book, name)
+            if problems:
+                raise BlockError(f"its native formulas do not give the model's answers ({'; '.join(problems[:3])}); run sheetnet formulas again or retrain")
             out.write(f"ok      {name}\n")
         except SheetnetError as error:
             failed += 1

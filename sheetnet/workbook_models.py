@@ -109,6 +109,54 @@ def changed_constants(book: Book, name: str) -> list[str]:
     return changed
 
 
+def stored_constants(book: Book, name: str) -> dict[str, list[list[Any]]]:
+    """The model's native-formula constants as the file holds them: defined name to rows of cells."""
+    stored_name = defined_name(book, name) or name
+    found = {}
+    for constant in service.names_of_model(stored_name, book.formulas.defined_names):
+        if service.same_title(constant, stored_name):
+            continue
+        sheet, cells = list(book.formulas.defined_names[constant].destinations)[0]
+        found[constant] = read_range(book, f"{quote_sheetname(sheet)}!{cells}")
+    return found
+
+
+def native_formula_problems(book: Book, name: str, rows: Any = None, row_numbers: list[int] | None = None, max_rows: int = 1000) -> list[str]:
+    """Evaluate the native formulas sheetnet writes for a model over its constants as stored, and
+    compare with the model: over ``rows`` (a frame of the model's inputs), or rows built from the model."""
+    from .formula_eval import check_native_formulas, sample_rows
+
+    stored_name = defined_name(book, name) or name
+    model, _ = decode_block(read_model(book, name))
+    constants = stored_constants(book, name) or {c.name: [list(r) for r in c.values] for c in formula_constants(model, stored_name)}
+    sample = rows is None
+    frame = sample_rows(model) if sample else rows
+    outputs = ["value"] if model.task == "regression" else ["class", "probabilities"]
+    problems: list[str] = []
+    for output in outputs:
+        found = check_native_formulas(
+            model, stored_name, constants, frame, output, row_numbers=None if sample else row_numbers,
+            row_word="sample row" if sample else "row", max_rows=max_rows,
+        )
+        problems += [f"{output}: {p}" for p in found]
+    return problems
+
+
+def table_rows_for_check(book: Book, name: str, table_reference: str) -> tuple[Any, list[int]]:
+    """The model's input columns over a table's data rows, cells as the sheet holds them, with their sheet rows."""
+    import pandas as pd
+
+    from .cells import is_blank
+
+    model, _ = decode_block(read_model(book, name))
+    grid = read_range(book, table_reference)
+    top = range_boundaries(split_reference(table_reference)[1])[1]
+    header = [str(v).strip() if v is not None else "" for v in grid[0]]
+    kept = [(i, row) for i, row in enumerate(grid[1:], start=1) if not all(is_blank(v) for v in row)]
+    frame = pd.DataFrame({n: [row[header.index(n)] for _, row in kept] for n in model.input_names if n in header}, dtype=object)
+    return frame, [top + i for i, _ in kept]
+
+
 def _same_cells(got: list[list[Any]], wanted: tuple[tuple[Any, ...], ...]) -> bool:
     def same(g: Any, w: Any) -> bool:
         if isinstance(g, (int, float)) and isinstance(w, float) and not isinstance(g, bool):
