@@ -100,3 +100,20 @@ def test_piping_a_listing_into_a_reader_that_stops_early_is_quiet():
     # the reader closes the pipe before sheetnet writes a line (as `head` does once it has read enough)
     run = subprocess.run(f"'{sys.executable}' -m sheetnet.cli settings | (exec 0<&-; sleep 0)", shell=True, capture_output=True, text=True, timeout=60)
     assert run.stderr == ""
+
+
+def test_check_and_formulas_evaluate_the_native_formulas_they_write(tmp_path, capsys, monkeypatch):
+    from sheetnet import formulas
+
+    path = tmp_path / "lots.xlsx"
+    table = _write_book(path)
+    assert _train(path, table) == 0
+    assert cli.main(["check", str(path)]) == 0
+    honest = formulas.native_formula
+    monkeypatch.setattr(formulas, "native_formula", lambda *args, **kwargs: honest(*args, **kwargs).replace("TANH(", "-TANH(", 1))
+    capsys.readouterr()
+    assert cli.main(["check", str(path)]) == 1
+    assert "native formulas do not give the model's answers" in capsys.readouterr().out
+    before = path.read_bytes()
+    assert cli.main(["formulas", str(path), "--model", "grades", "--table", table]) == 1
+    assert "nothing was written" in capsys.readouterr().err and path.read_bytes() == before
