@@ -29,6 +29,7 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 
 from . import network
+from .cell_text import cell_in_words
 from .errors import ModelError
 from .model import FORMAT_VERSION, Member, Model
 from .network import ACTIVATIONS, parameter_count
@@ -92,7 +93,7 @@ def _typed_fields(value: Any, what: str) -> tuple[str, str]:
             raise ModelError(f"the model cannot be stored: {what} is a whole number of thousands of digits; give a smaller number and train again") from None
     if isinstance(value, (float, np.floating)):
         if not math.isfinite(float(value)):
-            raise ModelError(f"the model cannot be stored: {what} is {float(value)!r}, not a finite number; give a finite number and train again")
+            raise ModelError(f"the model cannot be stored: {what} is {cell_in_words(float(value))}, not a finite number; give a finite number and train again")
         return ("float", repr(float(value)))
     if isinstance(value, str):
         return ("text", value)
@@ -601,7 +602,7 @@ def _settings_of(found: list[Record], version: int) -> dict[str, Any]:
             settings[name] = _typed_value(*_kind_and_text(record), f"the setting '{name}'")
     threshold = settings.get("threshold", 0.5)  # the one setting prediction reads
     if isinstance(threshold, bool) or not isinstance(threshold, (int, float)) or not 0.0 <= threshold <= 1.0:
-        raise BlockError(f"the model block's setting 'threshold' is {threshold!r}, not a share from 0 to 1; it is damaged: train again")
+        raise BlockError(f"the model block's setting 'threshold' is {cell_in_words(threshold)}, not a share from 0 to 1; it is damaged: train again")
     return settings
 
 
@@ -620,7 +621,7 @@ def _format_1_setting(name: str, value: Any) -> Any:
     if number.is_integer():
         return int(number)
     if declared is not None and declared.kind is int:
-        raise BlockError(f"the model block's setting '{name}' is {value!r}, not a whole number; it is damaged: train again")
+        raise BlockError(f"the model block's setting '{name}' is {cell_in_words(value)}, not a whole number; it is damaged: train again")
     return number
 
 

@@ -67,6 +67,7 @@ from typing import Sequence
 
 import numpy as np
 
+from .cell_text import cell_in_words
 from .errors import ModelError
 from .model import Model
 from .network import unpack
@@ -202,7 +203,7 @@ def _activate(activation: str, x: str) -> str:
         return f"1/(1+EXP(-({x})))"
     if activation == "relu":
         return f"(({x})+ABS({x}))/2"  # max(x, 0) element by element, without an aggregating MAX
-    raise FormulaError(f"the activation {activation!r} has no native formula")
+    raise FormulaError(f"the activation {cell_in_words(activation)} has no native formula")
 
 
 def _category_row(cell: str, cats: str, weights: str, spec: CategoryInput) -> str:
@@ -247,7 +248,7 @@ def native_formula(model: Model, model_name: str, cells: dict[str, str], output:
     ``class`` (the label) or ``probabilities`` (``column`` picks the class, from 0).
     """
     if output not in OUTPUTS:
-        raise FormulaError(f"output {output!r} is not known; choose value, class or probabilities")
+        raise FormulaError(f"output {cell_in_words(output)} is not known; choose value, class or probabilities")
     missing = [name for name in model.input_names if name not in cells]
     if missing:
         raise FormulaError(f"no cell given for the inputs {', '.join(missing)}")

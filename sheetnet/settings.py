@@ -14,6 +14,7 @@ from dataclasses import dataclass
 from typing import Any, Mapping
 
 from . import defaults as d
+from .cell_text import cell_in_words
 from .errors import SettingError
 from .optimizers import OPTIMIZERS
 
@@ -72,30 +73,30 @@ def _coerce(setting: Setting, value: Any) -> Any:
     if value is None or (isinstance(value, str) and value.strip().lower() in ("", "none", "auto") and setting.allow_none):
         if setting.allow_none:
             return None
-        raise SettingError(f"setting '{setting.name}' needs a value; its default is {setting.default!r}")
+        raise SettingError(f"setting '{setting.name}' needs a value; its default is {cell_in_words(setting.default)}")
     if setting.kind is str:
         text = str(value).strip().lower()
         if text not in setting.choices:
             raise SettingError(
-                f"setting '{setting.name}' got {value!r}; choose one of: {', '.join(setting.choices)}"
+                f"setting '{setting.name}' got {cell_in_words(value)}; choose one of: {', '.join(setting.choices)}"
             )
         return text
     if isinstance(value, bool):
-        raise SettingError(f"setting '{setting.name}' got {value!r}; it takes a number")
+        raise SettingError(f"setting '{setting.name}' got {cell_in_words(value)}; it takes a number")
     try:
         number = float(value)
     except (TypeError, ValueError):
-        raise SettingError(f"setting '{setting.name}' got {value!r}; it takes a number") from None
+        raise SettingError(f"setting '{setting.name}' got {cell_in_words(value)}; it takes a number") from None
     if not math.isfinite(number):
-        raise SettingError(f"setting '{setting.name}' got {value!r}; it takes a finite number")
+        raise SettingError(f"setting '{setting.name}' got {cell_in_words(value)}; it takes a finite number")
     if setting.kind is int:
         if number != int(number):
-            raise SettingError(f"setting '{setting.name}' got {value!r}; it takes a whole number")
+            raise SettingError(f"setting '{setting.name}' got {cell_in_words(value)}; it takes a whole number")
         number = int(number)
     if setting.low is not None and number < setting.low:
-        raise SettingError(f"setting '{setting.name}' got {value!r}; it must be at least {setting.low:g}")
+        raise SettingError(f"setting '{setting.name}' got {cell_in_words(value)}; it must be at least {setting.low:g}")
     if setting.high is not None and number > setting.high:
-        raise SettingError(f"setting '{setting.name}' got {value!r}; it must be at most {setting.high:g}")
+        raise SettingError(f"setting '{setting.name}' got {cell_in_words(value)}; it must be at most {setting.high:g}")
     return number
 
 

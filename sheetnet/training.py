@@ -17,6 +17,7 @@ import numpy as np
 from threadpoolctl import ThreadpoolController
 
 from . import network, optimizers
+from .cell_text import cell_in_words
 from .defaults import (
     ADAM_BATCH_ROWS,
     AUTO_RATES,
@@ -82,7 +83,7 @@ def _check_hidden(hidden: int | Sequence[int]) -> tuple[int, ...]:
     layers = (hidden,) if isinstance(hidden, (int, np.integer)) else tuple(hidden)
     for width in layers:
         if isinstance(width, bool) or not isinstance(width, (int, np.integer)) or width < 1:
-            raise SettingError(f"hidden layer sizes must be whole numbers of 1 or more; got {hidden!r} (for example (8,) or (8, 4))")
+            raise SettingError(f"hidden layer sizes must be whole numbers of 1 or more; got {cell_in_words(hidden)} (for example (8,) or (8, 4))")
     return tuple(int(w) for w in layers)
 
 
@@ -173,7 +174,7 @@ def fit(
     resolved = resolve_settings(settings)
     layers = _check_hidden(hidden)
     if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
-        raise SettingError(f"seed must be a whole number of 0 or more; got {seed!r}")
+        raise SettingError(f"seed must be a whole number of 0 or more; got {cell_in_words(seed)}")
     table = read_table(X)
     target_values = read_target(y)
     if len(target_values) != table.n_rows:

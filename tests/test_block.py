@@ -204,7 +204,7 @@ def test_the_arguments_as_given_come_back_exactly(rng):
 
 def test_arguments_the_block_cannot_keep_are_refused_when_writing(rng):
     _, model = _mixed_model(rng)
-    with pytest.raises(sheetnet.errors.ModelError, match="the argument 'rate' is inf, not a finite number"):
+    with pytest.raises(sheetnet.errors.ModelError, match="the argument 'rate' is infinity, not a finite number"):
         encode_block(model, dataclasses.replace(INFO, given={"rate": float("inf")}))
     with pytest.raises(sheetnet.errors.ModelError, match="the argument 'epochs' is a list"):
         encode_block(model, dataclasses.replace(INFO, given={"epochs": [1, 2]}))
