@@ -28,6 +28,7 @@ from .defaults import (
     VALIDATION_ROW_LIMIT,
 )
 from .errors import LengthMismatchError, NotEnoughRowsError, SettingError, TrainingError
+from .limits import check_network_size
 from .model import Member, Model
 from .preparation import fit_preparation, fit_target, read_table, read_target
 from .settings import resolve_settings
@@ -188,6 +189,7 @@ def fit(
 
     target = fit_target(target_values, resolved["task"])
     preparation = fit_preparation(table, categories)
+    check_network_size(table.n_rows, preparation.width, layers, target.outputs)  # before any large array is made
     inputs = preparation.transform_columns(table.columns)
     outputs = target.encode(target_values)
     labels = target.class_indices(target_values) if target.task != "regression" else None

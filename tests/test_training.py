@@ -308,3 +308,15 @@ def test_too_few_rows_names_the_declared_minimum():
     rows = defaults.MIN_ROWS - 1
     with pytest.raises(errors.NotEnoughRowsError, match=f"at least {defaults.MIN_ROWS} rows; got {rows}"):
         sheetnet.fit([[i] for i in range(rows)], list(range(rows)))
+
+
+def test_fit_refuses_a_network_too_large_before_allocating_it():
+    import time
+
+    from sheetnet.errors import SizeError
+
+    rng = np.random.default_rng(0)
+    started = time.monotonic()
+    with pytest.raises(SizeError, match="500,000,001 weights, more than the 2,000,000"):
+        fit(rng.random((50, 3)), rng.random(50), (100_000_000,), 0)
+    assert time.monotonic() - started < 5  # refused from the sizes, not after minutes of allocation
