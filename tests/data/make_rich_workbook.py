@@ -26,6 +26,8 @@ from pathlib import Path
 HERE = Path(__file__).resolve().parent
 OUTPUT = HERE / "rich.xlsm"
 ROWS = 60
+OFFICE_TYPES = "application/vnd.openxmlformats-officedocument"
+RELATIONSHIPS = "http://schemas.openxmlformats.org/officeDocument/2006/relationships"
 
 
 def build_base(path: Path) -> None:
@@ -151,7 +153,8 @@ WORKBOOK_ROOT = (
     'xmlns:x15="http://schemas.microsoft.com/office/spreadsheetml/2010/11/main" '
 )
 WEB_EXTENSION = (
-    b'<?xml version="1.0" encoding="UTF-8" standalone="yes"?>\n<we:webextension xmlns:we="http://schemas.microsoft.com/office/webextensions/webextension/2010/11" '
+    b'<?xml version="1.0" encoding="UTF-8" standalone="yes"?>\n'
+    b'<we:webextension xmlns:we="http://schemas.microsoft.com/office/webextensions/webextension/2010/11" '
     b'id="{3C1E5E0A-7B5D-4F4B-9A7E-2D6C1B0A9F10}"><we:reference id="wa000000000" version="1.0.0.0" store="en-US" storeType="OMEX"/>'
     b"<we:alternateReferences/><we:properties/><we:bindings/><we:snapshot/></we:webextension>"
 )
@@ -166,13 +169,13 @@ def finish(converted: Path, output: Path) -> None:
             data = source.read(info.filename)
             if info.filename == "[Content_Types].xml":
                 text = data.decode()
-                text = text.replace("application/vnd.openxmlformats-officedocument.spreadsheetml.sheet.main+xml", "application/vnd.ms-excel.sheet.macroEnabled.main+xml")
+                text = text.replace(f"{OFFICE_TYPES}.spreadsheetml.sheet.main+xml", "application/vnd.ms-excel.sheet.macroEnabled.main+xml")
                 text = text.replace(
                     "</Types>",
                     '<Default Extension="bin" ContentType="application/vnd.ms-office.vbaProject"/>'
-                    '<Override PartName="/xl/printerSettings/printerSettings1.bin" ContentType="application/vnd.openxmlformats-officedocument.spreadsheetml.printerSettings"/>'
+                    f'<Override PartName="/xl/printerSettings/printerSettings1.bin" ContentType="{OFFICE_TYPES}.spreadsheetml.printerSettings"/>'
                     '<Override PartName="/xl/webextensions/webextension1.xml" ContentType="application/vnd.ms-office.webextension+xml"/>'
-                    '<Override PartName="/customXml/itemProps1.xml" ContentType="application/vnd.openxmlformats-officedocument.customXmlProperties+xml"/></Types>',
+                    f'<Override PartName="/customXml/itemProps1.xml" ContentType="{OFFICE_TYPES}.customXmlProperties+xml"/></Types>',
                 )
                 data = text.encode()
             elif info.filename == "xl/workbook.xml":
@@ -193,7 +196,7 @@ def finish(converted: Path, output: Path) -> None:
                 data = data.decode().replace(
                     "</Relationships>",
                     '<Relationship Id="rIdVba" Type="http://schemas.microsoft.com/office/2006/relationships/vbaProject" Target="vbaProject.bin"/>'
-                    '<Relationship Id="rIdCustom" Type="http://schemas.openxmlformats.org/officeDocument/2006/relationships/customXml" Target="../customXml/item1.xml"/>'
+                    f'<Relationship Id="rIdCustom" Type="{RELATIONSHIPS}/customXml" Target="../customXml/item1.xml"/>'
                     "</Relationships>",
                 ).encode()
             elif info.filename == "xl/worksheets/sheet1.xml":
