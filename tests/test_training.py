@@ -318,5 +318,5 @@ def test_fit_refuses_a_network_too_large_before_allocating_it():
     rng = np.random.default_rng(0)
     started = time.monotonic()
     with pytest.raises(SizeError, match="500,000,001 weights, more than the 2,000,000"):
-        fit(rng.random((50, 3)), rng.random(50), (100_000_000,), 0)
+        sheetnet.fit(rng.random((50, 3)), rng.random(50), (100_000_000,), 0)
     assert time.monotonic() - started < 5  # refused from the sizes, not after minutes of allocation
