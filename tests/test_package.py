@@ -500,6 +500,42 @@ def test_a_sheet_of_ours_holding_parts_we_did_not_write_is_not_replaced(rich: Pa
             save_book(book)
 
 
+EXCEL_STYLE_WORKBOOK = (
+    '<?xml version="1.0" encoding="UTF-8" standalone="yes"?>\r\n'
+    '<workbook xmlns="http://schemas.openxmlformats.org/spreadsheetml/2006/main" xmlns:r="http://schemas.openxmlformats.org/officeDocument/2006/relationships" '
+    'xmlns:mc="http://schemas.openxmlformats.org/markup-compatibility/2006" mc:Ignorable="x15 xr xr6 xr10 xr2" '
+    'xmlns:x15="http://schemas.microsoft.com/office/spreadsheetml/2010/11/main" xmlns:xr="http://schemas.microsoft.com/office/spreadsheetml/2014/revision" '
+    'xmlns:xr6="http://schemas.microsoft.com/office/spreadsheetml/2016/revision6" '
+    'xmlns:xr10="http://schemas.microsoft.com/office/spreadsheetml/2016/revision10" '
+    'xmlns:xr2="http://schemas.microsoft.com/office/spreadsheetml/2015/revision2">'
+    '<fileVersion appName="xl" lastEdited="7" lowestEdited="7" rupBuild="27328"/><workbookPr defaultThemeVersion="166925"/>'
+    '<mc:AlternateContent xmlns:mc="http://schemas.openxmlformats.org/markup-compatibility/2006"><mc:Choice Requires="x15">'
+    '<x15ac:absPath url="C:\\Users\\analyst\\" xmlns:x15ac="http://schemas.microsoft.com/office/spreadsheetml/2010/11/ac"/></mc:Choice></mc:AlternateContent>'
+    '<xr:revisionPtr revIDLastSave="0" documentId="8_{00000000-0000-0000-0000-000000000000}" xr6:coauthVersionLast="47" xr6:coauthVersionMax="47" '
+    'xr10:uidLastSave="{00000000-0000-0000-0000-000000000000}"/>'
+    '<bookViews><workbookView xWindow="-120" yWindow="-120" windowWidth="29040" windowHeight="15840" xr2:uid="{00000000-000D-0000-FFFF-FFFF00000000}"/>'
+    '</bookViews><sheets><sheet name="Data" sheetId="1" r:id="rId1"/></sheets>'
+    '<definedNames><definedName name="_xlnm._FilterDatabase" localSheetId="0" hidden="1">Data!$A$1:$B$31</definedName>'
+    '<definedName name="rates">Data!$B$2:$B$31</definedName></definedNames><calcPr calcId="191029"/>'
+    '<extLst><ext uri="{140A7094-0E35-4892-8432-C4D2E57EDEB5}" xmlns:x15="http://schemas.microsoft.com/office/spreadsheetml/2010/11/main">'
+    '<x15:workbookPr chartTrackingRefBase="1"/></ext></extLst></workbook>'
+)
+
+
+def test_a_workbook_part_written_the_way_excel_writes_it_keeps_all_but_our_entries(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    plain = _small_book(tmp_path / "plain.xlsx")
+    path = _rezip(plain, tmp_path / "excel.xlsx", {"xl/workbook.xml": EXCEL_STYLE_WORKBOOK.encode()})
+    for extra in ((), ("--replace",)):
+        assert cli.main(["train", str(path), "--table", "Data!A1:B31", "--target", "y", "--name", "m", "--set", "epochs=20", *extra]) == 0
+    workbook = _members(path)["xl/workbook.xml"].decode()
+    ours = re.compile(r'<sheet name="(sheetnet_m|sn m)"[^>]*/>|<definedName name="(m|snf_m_[^"]*)">[^<]*</definedName>')
+    assert ours.sub("", workbook) == EXCEL_STYLE_WORKBOOK
+    assert len(ours.findall(workbook)) >= 4
+    reread = _openpyxl(path)
+    assert reread.defined_names["rates"].attr_text == "Data!$B$2:$B$31"
+    assert reread.sheetnames == ["Data", "sheetnet_m", "sn m"]
+
+
 CALC_CHAIN = '<calcChain xmlns="http://schemas.openxmlformats.org/spreadsheetml/2006/main"><c r="B2" i="{}"/><c r="B3"/></calcChain>'
 
 
