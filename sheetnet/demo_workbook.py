@@ -60,7 +60,8 @@ def _cells(frame: pd.DataFrame) -> list[list[Any]]:
 
 def _header(sheet: Any, row: int, column: int, values: list[Any]) -> None:
     for j, value in enumerate(values):
-        cell = sheet.cell(row, column + j, value)
+        write_text_safe(sheet, row, column + j, value)
+        cell = sheet.cell(row, column + j)
         cell.font = Font(bold=True)
         cell.fill = HEADER_FILL
 
@@ -68,7 +69,7 @@ def _header(sheet: Any, row: int, column: int, values: list[Any]) -> None:
 def _put(sheet: Any, row: int, column: int, rows: list[list[Any]]) -> None:
     for i, values in enumerate(rows):
         for j, value in enumerate(values):
-            sheet.cell(row + i, column + j, None if value == "" else value)
+            write_text_safe(sheet, row + i, column + j, None if value == "" else value)
 
 
 def write_scenario(workbook: Any, scenario: Scenario, progress: ProgressCallback | None) -> ScenarioResult:
@@ -82,7 +83,7 @@ def write_scenario(workbook: Any, scenario: Scenario, progress: ProgressCallback
     if scenario.level_column:
         predicted, extra = _level_forecast(scenario, table, split, predicted)
         # the model's own metrics are about the change; the level forecast's follow them
-        scored = [scored[0]] + [[r[0] if r[0] == "rows" else f"{scenario.target} {r[0]}", r[1]] for r in scored[1:]] + extra
+        scored = [scored[0]] + [[r[0] if r[0] == "rows" or isinstance(r[1], str) else f"{scenario.target} {r[0]}", r[1]] for r in scored[1:]] + extra
     about = functions.raising(functions.about)(block, table)
 
     sheet = workbook.create_sheet(scenario.sheet)
