@@ -126,7 +126,10 @@ class WorkbookLock:
         deadline = time.monotonic() + (LOCK_WAIT_SECONDS if wait is None else wait)
         while True:
             with _HELD_GUARD:
-                info = os.stat(path)
+                try:
+                    info = os.stat(path)
+                except FileNotFoundError:
+                    raise WorkbookFileError(f"{path.name} was moved or deleted; check the file name") from None
                 held = _HELD.get((info.st_dev, info.st_ino))
                 if held is not None:
                     held.count += 1
