@@ -164,10 +164,11 @@ def run_train(args: argparse.Namespace, out: TextIO) -> int:
 
 def run_predict(args: argparse.Namespace, out: TextIO) -> int:
     from . import functions, service
-    from .workbook import defined_name, open_book, read_model, read_range
+    from .workbook import check_can_save, defined_name, open_book, read_model, read_range
     from .workbook_models import check_empty, results_sheet
 
     book = open_book(args.book)
+    check_can_save(book)
     block = read_model(book, args.model)
     table = read_range(book, args.table)
     answer = functions.raising(functions.predict)(block, table, args.output)
@@ -183,10 +184,11 @@ def run_predict(args: argparse.Namespace, out: TextIO) -> int:
 
 def run_formulas(args: argparse.Namespace, out: TextIO) -> int:
     from .formulas import FormulaError
-    from .workbook import open_book
+    from .workbook import check_can_save, open_book
     from .workbook_models import native_formula_problems, table_rows_for_check, write_native_formulas
 
     book = open_book(args.book)
+    check_can_save(book)
     where, rows = write_native_formulas(book, args.model, args.table, args.to, args.output)
     frame, sheet_rows = table_rows_for_check(book, args.model, args.table)
     problems = native_formula_problems(book, args.model, frame, sheet_rows)  # evaluated before anything is saved
@@ -336,10 +338,12 @@ def run_refresh(args: argparse.Namespace, out: TextIO) -> int:
     """Retrain the stored models whose source range changed since training; report every model."""
     from . import functions, service
     from .block import decode_block
-    from .workbook import defined_name, model_names, open_book, read_model, read_range
+    from .workbook import check_can_save, defined_name, model_names, open_book, read_model, read_range
     from .workbook_models import results_sheet, store_model
 
     book = open_book(args.book)
+    if not args.dry_run:
+        check_can_save(book)  # refused before any retraining
     names = model_names(book)
     if args.model:
         found = defined_name(book, args.model)

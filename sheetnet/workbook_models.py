@@ -13,7 +13,7 @@ from typing import Any
 from openpyxl.utils.cell import get_column_letter, quote_sheetname, range_boundaries
 
 from . import service
-from .block import decode_block
+from .block import MAGIC, decode_block
 from .errors import InputError
 from .formulas import formula_constants
 from .workbook import Book, _sheet, defined_name, model_names, read_model, read_range, split_reference
@@ -28,6 +28,9 @@ def check_storable(book: Book, name: str, replace: bool = False) -> None:
     if existing is not None and not replace:
         raise InputError(f"the workbook already has a model '{existing}'; choose another model name, or ask to replace it (--replace)")
     sheet = service.model_sheet_name(name)
+    current = next((s for s in book.formulas.worksheets if service.same_title(s.title, sheet)), None)
+    if current is not None and current["A1"].value != MAGIC:
+        raise InputError(f"the workbook has a sheet '{current.title}' that sheetnet did not write; rename that sheet or choose another model name")
     for other in model_names(book):
         destinations = list(book.formulas.defined_names[other].destinations)
         if not service.same_title(other, name) and destinations and service.same_title(destinations[0][0], sheet):

@@ -117,3 +117,16 @@ def test_check_and_formulas_evaluate_the_native_formulas_they_write(tmp_path, ca
     before = path.read_bytes()
     assert cli.main(["formulas", str(path), "--model", "grades", "--table", table]) == 1
     assert "nothing was written" in capsys.readouterr().err and path.read_bytes() == before
+
+
+def test_a_users_own_sheet_with_a_model_sheets_name_is_never_replaced(tmp_path, capsys):
+    path = tmp_path / "lots.xlsx"
+    table = _write_book(path)
+    book = openpyxl.load_workbook(path)
+    book.create_sheet("sheetnet_grades")["A1"] = "my notes"
+    book.save(path)
+    before = path.read_bytes()
+    capsys.readouterr()
+    assert _train(path, table) == 1
+    assert "sheet 'sheetnet_grades' that sheetnet did not write" in capsys.readouterr().err
+    assert path.read_bytes() == before
