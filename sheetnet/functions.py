@@ -530,6 +530,18 @@ def explain(model: Any, table: Any) -> Cells:
     return [["input", f"{loss} increase when shuffled", "spread"]] + [[name, mean, spread] for name, mean, spread in found]
 
 
+def data_unchanged(model: Any, table: Any) -> bool:
+    """Whether the columns and rows a model was trained on read the same in this table (its fingerprint).
+    Raises `SheetnetError` (a missing column, a damaged block)."""
+    decoded, info, options = _decode(model)
+    sheet = read_sheet_table(table)
+    columns = [*decoded.input_names, info.target]
+    for name in columns:
+        sheet.column(name)
+    used = _rows_used(sheet, columns, options["skip_blanks"])
+    return bool(_fingerprint(sheet, columns, used) == info.fingerprint)
+
+
 @cell_function
 def about(model: Any, table: Any = None) -> Cells:
     """A two-column summary of the model; given the table, whether its data changed since training."""
@@ -555,10 +567,7 @@ def about(model: Any, table: Any = None) -> Cells:
         rows.append(["classes", labels_in_words(decoded.classes, most=len(decoded.classes))])
     rows += [[f"holdout {name}", value] for name, value in info.holdout_metrics.items()]
     if table is not None and not is_blank(table):
-        sheet = read_sheet_table(table)
-        columns = [*decoded.input_names, info.target]
-        used = _rows_used(sheet, columns, options["skip_blanks"])
-        same = _fingerprint(sheet, columns, used) == info.fingerprint
+        same = data_unchanged(model, table)
         rows.append(["data since training", "unchanged" if same else "changed: retrain to use the new rows"])
     rows.append(["caution", CAUTION])
     return [["about", "value"]] + rows

@@ -279,15 +279,6 @@ def retrain_request(block: list[list[Any]], table: list[list[Any]]) -> TrainRequ
     return TrainRequest(table, info.target, hidden, settings, holdout, mode if mode in HOLDOUT_MODES else "auto", seed, address)
 
 
-def data_changed(block: list[list[Any]], table: list[list[Any]]) -> bool:
-    """Whether the columns and rows a stored model was trained on differ now (its fingerprint)."""
-    from . import functions
-
-    about = functions.raising(functions.about)(block, table)
-    found = [row[1] for row in about if row[0] == "data since training"]
-    return not found or found[0] != "unchanged"
-
-
 @dataclass(frozen=True)
 class RefreshOutcome:
     name: str
@@ -298,12 +289,14 @@ class RefreshOutcome:
 
 def refresh_model(name: str, block: list[list[Any]], read_table: Callable[[str], list[list[Any]]], dry_run: bool = False) -> RefreshOutcome:
     """Retrain a stored model when its source range changed since training; the door stores the new block."""
+    from . import functions
+
     try:
         _, info = decode_block(block)
         if info.source is None:
             return RefreshOutcome(name, "no-source", "it does not record the range it was trained from")
         table = read_table(info.source[0])
-        if not data_changed(block, table):
+        if functions.data_unchanged(block, table):
             return RefreshOutcome(name, "unchanged")
         if dry_run:
             return RefreshOutcome(name, "stale", f"its data in {info.source[0]} changed since training")
