@@ -265,11 +265,11 @@ def retrain_request(block: list[list[Any]], table: list[list[Any]]) -> TrainRequ
     if info.source is None:
         raise InputError("this model does not record the range it was trained from, so it cannot be refreshed; train it from a workbook range")
     address, holdout, mode, seed = info.source
-    given = dict(getattr(info, "given", {}) or {})
+    given = dict(info.given)
     if given:
         hidden = given.pop("hidden", DEFAULT_HIDDEN)
         settings = [[k, v] for k, v in given.items() if k != "seed"]
-    else:  # a format-1 block: rebuild the request from the settings as used
+    else:  # a format-1 block: rebuild the request from the settings as used (its mode was recorded resolved)
         hidden = ",".join(map(str, model.hidden)) or "0"
         settings = [[k, v] for k, v in model.settings.items() if v is not None]
         settings += [["inputs", ", ".join(model.input_names)], ["blank_rows", info.blank_rows]]
@@ -282,7 +282,7 @@ def retrain_request(block: list[list[Any]], table: list[list[Any]]) -> TrainRequ
 @dataclass(frozen=True)
 class RefreshOutcome:
     name: str
-    state: str  # retrained, unchanged, no-source, failed
+    state: str  # retrained, stale (a dry run), unchanged, no-source, failed
     message: str = ""
     trained: Trained | None = None
 
