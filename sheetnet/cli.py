@@ -352,11 +352,10 @@ def run_refresh(args: argparse.Namespace, out: TextIO) -> int:
         names = [found]
     outcomes = [service.refresh_model(name, read_model(book, name), lambda address: read_range(book, address), args.dry_run) for name in names]
     for outcome in outcomes:
-        if outcome.trained is not None:
-            block = outcome.trained.block
+        if outcome.trained is not None and outcome.table is not None:
+            block, table = outcome.trained.block, outcome.table
             store_model(book, outcome.name, block, replace=True)
             address = decode_block(block)[1].source[0]  # type: ignore[index]
-            table = read_range(book, address)
             answer = functions.raising(functions.predict)(block, table, "value")
             about = functions.raising(functions.about)(block)
             results = service.training_results(outcome.name, address, table, outcome.trained, answer, about)

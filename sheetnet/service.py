@@ -285,6 +285,7 @@ class RefreshOutcome:
     state: str  # retrained, stale (a dry run), unchanged, no-source, failed
     message: str = ""
     trained: Trained | None = None
+    table: list[list[Any]] | None = None  # the source range as it was read, when retrained
 
 
 def refresh_model(name: str, block: list[list[Any]], read_table: Callable[[str], list[list[Any]]], dry_run: bool = False) -> RefreshOutcome:
@@ -300,7 +301,7 @@ def refresh_model(name: str, block: list[list[Any]], read_table: Callable[[str],
             return RefreshOutcome(name, "unchanged")
         if dry_run:
             return RefreshOutcome(name, "stale", f"its data in {info.source[0]} changed since training")
-        return RefreshOutcome(name, "retrained", f"from {info.source[0]}", train_model(retrain_request(block, table)))
+        return RefreshOutcome(name, "retrained", f"from {info.source[0]}", train_model(retrain_request(block, table)), table)
     except SheetnetError as error:
         return RefreshOutcome(name, "failed", str(error))
 

@@ -51,6 +51,7 @@ class ServerProblem(Exception):
 
 
 # --- the server ----------------------------------------------------------------------------------
+# The server file's reading mirrors sheetnet/server_file.py: this component cannot import sheetnet.
 
 def server_file():
     return os.path.join(os.path.expanduser("~"), ".sheetnet", "server.json")
