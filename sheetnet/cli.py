@@ -241,11 +241,16 @@ def run_xl_setup(args: argparse.Namespace, out: TextIO) -> int:
 
 def run_serve(args: argparse.Namespace, out: TextIO) -> int:
     import os
-
-    import uvicorn
+    import socket
 
     from .server import create_app, new_token
 
+    # Listen before announcing: a caller that finds the server file must find the port open (the Calc extension
+    # starts a server and calls it as soon as the file appears).
+    try:
+        listening = socket.create_server(("127.0.0.1", args.port), backlog=128)
+    except OSError:
+        raise InputError(f"port {args.port} on 127.0.0.1 is in use (another sheetnet serve?); stop that program or choose another port with --port") from None
     token = os.environ.get("SHEETNET_TOKEN") or new_token()
     scheme = "https" if args.https else "http"
     base = f"{scheme}://127.0.0.1:{args.port}"
@@ -266,12 +271,20 @@ def run_serve(args: argparse.Namespace, out: TextIO) -> int:
 
     exit_cleanly_on_terminate()
     own_certificate = Path(tls["ssl_certfile"]) if tls else None
-    server_file = write_server_file(args.port, token, scheme, certificate=own_certificate)  # how the Calc extension finds this server
+    server_file = write_server_file(listening.getsockname()[1], token, scheme, certificate=own_certificate)
     try:
-        uvicorn.run(app, host="127.0.0.1", port=args.port, log_level="warning", **tls)  # type: ignore[arg-type]
+        serve_forever(app, listening, host="127.0.0.1", port=args.port, **tls)
     finally:
         remove_server_file(server_file)
+        listening.close()
     return 0
+
+
+def serve_forever(app: Any, listening: Any, **options: Any) -> None:
+    """Run the app on a socket that already listens (``options``: uvicorn's host, port and TLS files)."""
+    import uvicorn
+
+    uvicorn.Server(uvicorn.Config(app, log_level="warning", **options)).run(sockets=[listening])
 
 
 TRUST_STEPS = """To let Excel load the add-in over https, trust this certificate once:
@@ -460,7 +473,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         sys.stdout.flush()  # inside the try: a reader that stopped early shows here, not at exit
         return code
     except SheetnetError as error:
-        print(f"{type(error).__name__}: {error}", file=sys.stderr)
+        print(f"sheetnet: {error}", file=sys.stderr)
         return 1
     except BrokenPipeError:  # the reader (head, less) stopped early: nothing more to say, and no traceback at exit
         import os

@@ -12,7 +12,6 @@ import httpx
 import numpy as np
 import pytest
 import sheetnet_demo
-import uvicorn
 from local_server import serving
 
 from sheetnet import cli, functions, server, service
@@ -309,10 +308,11 @@ def test_the_schema_is_published(client):
 
 def test_serve_listens_on_loopback_only(monkeypatch, capsys):
     seen = {}
-    monkeypatch.setattr(uvicorn, "run", lambda app, **kwargs: seen.update(kwargs))
+    monkeypatch.setattr(cli, "serve_forever", lambda app, listening, **kwargs: seen.update(kwargs, bound=listening.getsockname()))
     monkeypatch.setenv("SHEETNET_TOKEN", TOKEN)
     assert cli.main(["serve", "--port", "8799"]) == 0
     assert seen["host"] == "127.0.0.1" and seen["port"] == 8799
+    assert seen["bound"] == ("127.0.0.1", 8799)  # the socket is bound (and listening) before the server file is written
     out = capsys.readouterr().out
     assert out.count(TOKEN) == 2  # printed once as the token, once inside the task pane address
     assert "http://127.0.0.1:8799/addin/manifest.xml" in out
@@ -322,7 +322,7 @@ def test_https_uses_a_local_certificate(monkeypatch, capsys, tmp_path):
     from cryptography import x509
 
     seen = {}
-    monkeypatch.setattr(uvicorn, "run", lambda app, **kwargs: seen.update(kwargs))
+    monkeypatch.setattr(cli, "serve_forever", lambda app, listening, **kwargs: seen.update(kwargs, bound=listening.getsockname()))
     assert cli.main(["serve", "--https", "--cert-dir", str(tmp_path)]) == 0
     from pathlib import Path
 
