@@ -57,7 +57,7 @@ def test_sheetnet_errors_become_one_line_and_exit_code_1(monkeypatch, capsys):
 
     monkeypatch.setattr(cli, "run_demo", broken)
     assert cli.main(["demo"]) == 1
-    assert capsys.readouterr().err.strip() == "NotEnoughRowsError: training needs at least 4 rows; got 3. Add rows"
+    assert capsys.readouterr().err.strip() == "sheetnet: training needs at least 4 rows; got 3. Add rows"
 
 
 def test_console_script_is_installed():
