@@ -17,7 +17,7 @@ from . import network
 from .errors import ModelError
 from .preparation import Preparation, TargetPreparation
 
-FORMAT_VERSION = 2  # of the model block (sheetnet.block) this model is written as, or was read from
+FORMAT_VERSION = 3  # of the model block (sheetnet.block) this model is written as, or was read from
 
 
 @dataclass(frozen=True, eq=False)  # arrays inside: compare members by identity
