@@ -35,6 +35,7 @@ from .model import FORMAT_VERSION, Member, Model
 from .network import ACTIVATIONS, parameter_count
 from .preparation import CategoryInput, NumericInput, Preparation, TargetPreparation
 from .settings import SETTINGS_BY_NAME
+from .uncertainty import SCORES, Conformal
 
 MAGIC = "sheetnet model block"
 WIDTH = 9  # a key and eight values per row
@@ -63,6 +64,11 @@ class BlockInfo:
     # the arguments given to TRAIN exactly as given: "hidden" (the raw hidden-layers argument) and every
     # setting the user wrote, lower-cased name -> raw value (str, int, float, bool or None); format 2 on
     given: Mapping[str, Any] = field(default_factory=dict)
+    # format 3 on: the split-conformal calibration on the holdout rows (prediction intervals or class sets)
+    conformal: Conformal | None = None
+    # format 3 on: bootstrap error bars of the holdout metrics, name -> (low, high), and how they were drawn
+    metric_intervals: Mapping[str, tuple[float, float]] = field(default_factory=dict)
+    error_bars: tuple[float, int, int] | None = None  # (level, resamples, seed) of `metric_intervals`
 
 
 @dataclass(frozen=True)
@@ -166,6 +172,14 @@ def model_records(model: Model, info: BlockInfo) -> list[Record]:
         records.append(Record("class", (index, *_typed_fields(label, f"class label {index + 1}"))))
     for name, value in info.holdout_metrics.items():
         records.append(Record("holdout_metric", (name, _round15(value))))
+    if info.error_bars is not None:
+        level, resamples, bar_seed = info.error_bars
+        records.append(Record("error_bars", (_round15(level), int(resamples), int(bar_seed))))
+        for name, (low, high) in info.metric_intervals.items():
+            records.append(Record("holdout_interval", (name, _round15(low), _round15(high))))
+    if info.conformal is not None:
+        c = info.conformal
+        records.append(Record("conformal", (c.score, _round15(c.level), int(c.rows), _round15(c.quantile))))
     for index, member in enumerate(model.members):
         records.append(Record("member", (index, member.stopped_by, member.epochs, member.best_epoch)))
         records.append(Record("curve", (index, "training"), _numbers_of(_sampled_curve(member.training_epochs, member.training_curve))))
@@ -233,6 +247,8 @@ def _what_is_stored(record: Record) -> tuple[str, str]:
         "curve": (f"the loss curve of {network}", _STEADIER),
         "weights": (f"the weights of {network}", _STEADIER),
         "member": (f"the training record of {network}", "train again"),
+        "conformal": ("the prediction interval's half-width", _SCALE_DOWN.replace("that column", "the target column")),
+        "holdout_interval": (f"the error bar of holdout metric '{first}'", _SCALE_DOWN.replace("that column", "the target column")),
     }.get(record.key, (f"the block's '{record.key}' row", "train again"))
 
 
@@ -468,8 +484,47 @@ def _model_of(records: list[Record], version: int) -> tuple[Model, BlockInfo]:
         blank_rows=_text(blank_rows, "'blank_rows' row"),
         source=_source_of(by_key.get("source", [])),
         given=MappingProxyType(given),
+        conformal=_conformal_of(by_key.get("conformal", [])),
+        metric_intervals=MappingProxyType(_metric_intervals_of(by_key.get("holdout_interval", []))),
+        error_bars=_error_bars_of(by_key.get("error_bars", [])),
     )
     return model, info
+
+
+def _conformal_of(found: list[Record]) -> Conformal | None:
+    if not found:  # optional: format 1 and 2 blocks, and models trained without holdout rows, have none
+        return None
+    if len(found) > 1:
+        raise _damaged("'conformal' row is repeated")
+    score, level, rows, quantile = _fields(found[0], 4)
+    if score not in SCORES:
+        raise _damaged(f"conformal score {_shown(score)} is not known")
+    level = _number(level, "conformal level")
+    quantile = _number(quantile, "conformal quantile")
+    if not 0.5 <= level < 1 or quantile < 0:
+        raise _damaged(f"conformal level {level} or quantile {quantile} is out of range")
+    return Conformal(level, _whole(rows, "conformal rows", 1), quantile, str(score))
+
+
+def _metric_intervals_of(found: list[Record]) -> dict[str, tuple[float, float]]:
+    intervals: dict[str, tuple[float, float]] = {}
+    for r in found:
+        name, low, high = _fields(r, 3)
+        what = f"holdout interval {_shown(name)}"
+        intervals[_text(name, "name of a holdout interval")] = (_number(low, what), _number(high, what))
+    return intervals
+
+
+def _error_bars_of(found: list[Record]) -> tuple[float, int, int] | None:
+    if not found:
+        return None
+    if len(found) > 1:
+        raise _damaged("'error_bars' row is repeated")
+    level, resamples, bar_seed = _fields(found[0], 3)
+    level = _number(level, "error-bar level")
+    if not 0.5 <= level < 1:
+        raise _damaged(f"error-bar level {level} is out of range")
+    return (level, _whole(resamples, "error-bar resamples", 1), _whole(bar_seed, "error-bar seed"))
 
 
 def _exactly(by_key: dict[str, list[Record]], key: str, count: int) -> tuple[float, ...]:

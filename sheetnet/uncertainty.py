@@ -1,0 +1,167 @@
+"""How far to trust a number: conformal prediction intervals and sets, bootstrap error bars, reliability.
+
+Pure NumPy, no I/O.
+
+- Split-conformal prediction (Vovk, Gammerman & Shafer 2005, "Algorithmic
+  Learning in a Random World"; Lei, G'Sell, Rinaldo, Tibshirani & Wasserman
+  2018, "Distribution-free predictive inference for regression"): on ``n``
+  rows the network did not train on, take each row's nonconformity score
+  and keep the ``ceil((n + 1) * level)``-th smallest as the quantile ``q``.
+  For a new row exchangeable with those rows, the truth lies in the
+  interval (regression) or set (classes) with probability at least
+  ``level`` (and below ``level + 1 / (n + 1)`` when scores do not tie).
+  Regression scores are absolute residuals, so the interval is the
+  prediction plus or minus ``q``. Class scores are one minus the
+  probability of the true class (Sadinle, Lei & Wasserman 2019), so the set
+  holds every class whose probability is at least ``1 - q``.
+- Percentile bootstrap (Efron & Tibshirani 1993, "An Introduction to the
+  Bootstrap", ch. 13): resample the scored rows with replacement, compute
+  the metric on each resample, and take the ``(1 - level) / 2`` and
+  ``(1 + level) / 2`` quantiles of the resampled metrics.
+- Reliability table: predicted probabilities cut into equal-width bins,
+  each with its rows, mean predicted probability and observed share.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any, Callable, Mapping
+
+import numpy as np
+
+from .errors import InputError, SettingError
+
+DEFAULT_LEVEL = 0.9
+BOOTSTRAP_RESAMPLES = 1000
+BOOTSTRAP_SEED = 0
+BOOTSTRAP_METHOD = "percentile bootstrap over the scored rows"
+SCORES = ("absolute residual", "one minus probability of the true class")
+
+
+@dataclass(frozen=True)
+class Conformal:
+    """A split-conformal calibration: ``quantile`` of the nonconformity ``score`` over ``rows`` held-out rows.
+
+    Regression: the interval is prediction +- quantile (in the target's units).
+    Classes: the set holds each class with probability >= 1 - quantile.
+    """
+
+    level: float  # nominal coverage, 0.9 for 90 %
+    rows: int  # calibration rows (rows the network did not train on)
+    quantile: float
+    score: str  # one of SCORES
+
+
+def read_level(value: Any, what: str = "interval level") -> float:
+    """A coverage level from a cell: 0.9, 90, '90%' or blank (the default, 90 %)."""
+    if value is None or (isinstance(value, str) and not value.strip()) or (isinstance(value, float) and math.isnan(value)):
+        return DEFAULT_LEVEL
+    text = str(value).strip()
+    percent = text.endswith("%")
+    try:
+        number = float(text.rstrip("%").strip()) if isinstance(value, str) else float(value)
+    except (TypeError, ValueError):
+        raise SettingError(f"the {what} is '{text}'; give a share like 0.9 or a percentage like 90%") from None
+    if isinstance(value, bool) or not math.isfinite(number):
+        raise SettingError(f"the {what} is '{text}'; give a share like 0.9 or a percentage like 90%")
+    if percent or number > 1:
+        number /= 100
+    if not 0.5 <= number < 1:
+        raise SettingError(f"the {what} is '{text}'; give a level from 50% up to (not including) 100%, like 90%")
+    return number
+
+
+def rows_needed(level: float) -> int:
+    """The fewest calibration rows that give a finite quantile at ``level``: (n + 1) * level <= n."""
+    return math.ceil(level / (1 - level) - 1e-9)
+
+
+def conformal_quantile(scores: Any, level: float) -> float:
+    """The ``ceil((n + 1) * level)``-th smallest score (Lei et al. 2018, section 2.2).
+
+    >>> conformal_quantile([0.1, 0.4, 0.2, 0.3, 0.5, 0.9, 0.7, 0.6, 0.8], 0.9)
+    0.9
+    """
+    values = np.sort(np.asarray(scores, dtype=np.float64).ravel())
+    n = len(values)
+    k = math.ceil((n + 1) * level - 1e-9)
+    if k > n:
+        raise InputError(
+            f"an interval at {level:.0%} needs at least {rows_needed(level)} rows the network did not train on, and there are {n}; "
+            "hold out more rows (a larger holdout share) or choose a lower level"
+        )
+    return float(values[k - 1])
+
+
+def calibrate_values(actual: Any, predicted: Any, level: float = DEFAULT_LEVEL) -> Conformal:
+    """Regression calibration from held-out actual values and predictions, shape (rows,)."""
+    residuals = np.abs(np.asarray(actual, dtype=np.float64) - np.asarray(predicted, dtype=np.float64))
+    return Conformal(level, len(residuals), conformal_quantile(residuals, level), SCORES[0])
+
+
+def calibrate_classes(actual_index: Any, probabilities: Any, level: float = DEFAULT_LEVEL) -> Conformal:
+    """Class calibration from held-out class indices (rows,) and probabilities (rows, classes)."""
+    p = np.asarray(probabilities, dtype=np.float64)
+    index = np.asarray(actual_index, dtype=np.int64)
+    scores = 1.0 - p[np.arange(len(index)), index]
+    return Conformal(level, len(index), conformal_quantile(scores, level), SCORES[1])
+
+
+def interval(predicted: Any, conformal: Conformal) -> tuple[np.ndarray, np.ndarray]:
+    """Lower and upper ends, shape (rows,) each: prediction -+ the conformal quantile."""
+    values = np.asarray(predicted, dtype=np.float64)
+    return values - conformal.quantile, values + conformal.quantile
+
+
+def prediction_sets(probabilities: Any, conformal: Conformal) -> np.ndarray:
+    """Boolean (rows, classes): True where the class belongs to the row's conformal set."""
+    return np.asarray(probabilities, dtype=np.float64) >= 1.0 - conformal.quantile - 1e-12
+
+
+def bootstrap_intervals(
+    metric: Callable[[np.ndarray], Mapping[str, Any]],
+    rows: int,
+    level: float = DEFAULT_LEVEL,
+    resamples: int = BOOTSTRAP_RESAMPLES,
+    seed: int = BOOTSTRAP_SEED,
+) -> dict[str, tuple[float, float]]:
+    """Percentile bootstrap intervals of every number ``metric`` returns.
+
+    ``metric(indices)`` computes the metrics on the rows at ``indices`` (a
+    resample with replacement of ``range(rows)``); metrics that are None or
+    not a float on a resample (MAPE near zero, AUC with one class) use the
+    resamples where they are defined, and are left out when fewer than half are.
+    """
+    if rows < 2:
+        raise InputError("an error bar needs at least 2 scored rows; score more rows")
+    rng = np.random.default_rng(seed)
+    draws: dict[str, list[float]] = {}
+    for _ in range(resamples):
+        found = metric(rng.integers(0, rows, rows))
+        for name, value in found.items():
+            if isinstance(value, float) and math.isfinite(value):
+                draws.setdefault(name, []).append(value)
+    low, high = (1 - level) / 2, (1 + level) / 2
+    return {
+        name: (float(np.quantile(values, low)), float(np.quantile(values, high)))
+        for name, values in draws.items()
+        if len(values) * 2 >= resamples
+    }
+
+
+def reliability_table(actual_positive: Any, probability: Any, bins: int = 10) -> list[tuple[float, float, int, float, float]]:
+    """Per equal-width bin of predicted probability: (from, to, rows, mean predicted, observed share).
+
+    Empty bins are left out. A well-calibrated model has mean predicted near observed share.
+    """
+    p = np.asarray(probability, dtype=np.float64).ravel()
+    hit = np.asarray(actual_positive, dtype=np.float64).ravel()
+    edges = np.linspace(0.0, 1.0, bins + 1)
+    which = np.clip(np.searchsorted(edges, p, side="right") - 1, 0, bins - 1)
+    table = []
+    for b in range(bins):
+        inside = which == b
+        if inside.any():
+            table.append((float(edges[b]), float(edges[b + 1]), int(inside.sum()), float(p[inside].mean()), float(hit[inside].mean())))
+    return table
