@@ -6,6 +6,7 @@ Hierarchy::
     ├── InputError (ValueError)   the data handed in cannot be used as it is
     │   ├── CellError             one cell is the problem: column, row and value held as data
     │   │   ├── BadValueError     NaN, infinity, blank, text or a too large number in one cell
+    │   │   │   └── CellTypeError (TypeError)  a list, dict or array where one value belongs
     │   │   └── UnknownCategoryError  a text category never seen in training
     │   ├── LengthMismatchError   inputs and target have different row counts
     │   ├── NotEnoughRowsError    too few rows for the requested work
@@ -73,6 +74,13 @@ class BadValueError(CellError):
 
     def seen_at(self, range_row: int, column: str | None = None) -> "BadValueError":
         return BadValueError(column or self.column, self.row, self.value, self.problem, self.fix, range_row)
+
+
+class CellTypeError(BadValueError, TypeError):
+    """A cell holds something that is not one value (a list, a dict, an array): a TypeError as well, as Python code expects."""
+
+    def seen_at(self, range_row: int, column: str | None = None) -> "CellTypeError":
+        return CellTypeError(column or self.column, self.row, self.value, self.problem, self.fix, range_row)
 
 
 class LengthMismatchError(InputError):
