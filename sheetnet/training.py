@@ -8,7 +8,6 @@ and seed give identical weights.
 
 from __future__ import annotations
 
-import os
 from dataclasses import dataclass
 from types import MappingProxyType
 from typing import Any, Sequence
@@ -30,6 +29,7 @@ from .defaults import (
 from .errors import LengthMismatchError, NotEnoughRowsError, SettingError, TrainingError
 from .limits import check_network_size
 from .model import Member, Model
+from .parallel import run_jobs
 from .preparation import fit_preparation, fit_target, read_table, read_target
 from .settings import resolve_settings
 from .splits import holdout_mask
@@ -198,13 +198,10 @@ def fit(
 
     seeds = np.random.SeedSequence(int(seed)).spawn(resolved["repeats"])
     args = (inputs, outputs, labels, sizes, resolved["activation"], target.head, resolved, plan)
-    workers = min(resolved["workers"] or os.cpu_count() or 1, len(seeds))
-    if workers > 1:
-        from joblib import Parallel, delayed
-
-        members = tuple(Parallel(n_jobs=workers)(delayed(train_member)(*args, s) for s in seeds))
-    else:
-        members = tuple(train_member(*args, s, progress=progress) for s in seeds)
+    if len(seeds) == 1:  # one network: here, with its progress per epoch
+        members: tuple[Member, ...] = (train_member(*args, seeds[0], progress=progress),)
+    else:  # where sheetnet.parallel finds them fastest; each repeat has its own seed, so the weights are the same anywhere
+        members = tuple(run_jobs(train_member, [(*args, s) for s in seeds], resolved["workers"], "repeats"))
 
     used = dict(resolved)
     used.update(algorithm=plan.algorithm, precision=plan.dtype, validation_share=plan.validation_share, rate=plan.rate, batch=plan.batch_rows)
