@@ -111,3 +111,48 @@ def k_folds(
             offset += len(rows)
     everything = np.arange(n_rows)
     return [(everything[fold_of != f], everything[fold_of == f]) for f in range(k)]
+
+
+def ordered_folds(n_rows: int, k: int = 5) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Expanding-window folds for time series: the rows, in order, cut into ``k + 1`` blocks;
+    fold f trains on blocks 0 to f and tests on block f + 1, so no fold trains on a row after the rows it tests.
+
+    >>> [(tr.tolist(), te.tolist()) for tr, te in ordered_folds(6, 2)]
+    [([0, 1], [2, 3]), ([0, 1, 2, 3], [4, 5])]
+    """
+    if k < 2:
+        raise SplitError(f"cross-validation needs at least 2 folds; got {k}")
+    if n_rows < 2 * (k + 1):
+        raise NotEnoughRowsError(
+            f"{k} ordered folds cut the rows into {k + 1} blocks of 2 rows or more, so they need at least {2 * (k + 1)} rows; "
+            f"the table has {n_rows}. Use fewer folds"
+        )
+    bounds = np.linspace(0, n_rows, k + 2).round().astype(np.int64)
+    return [(np.arange(bounds[f + 1]), np.arange(bounds[f + 1], bounds[f + 2])) for f in range(k)]
+
+
+def grouped_folds(groups: Sequence[Any] | np.ndarray, k: int = 5, seed: int = 0) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Folds that keep every group whole (all rows of a customer, a store, a patient in one fold),
+    so a fold is never tested on a group it trained on. Groups are dealt largest first, each to the fold
+    with the fewest rows so far; the seed breaks ties between groups of equal size.
+
+    >>> [te.tolist() for _, te in grouped_folds(["a", "a", "b", "c", "c", "c"], 2)]
+    [[3, 4, 5], [0, 1, 2]]
+    """
+    if k < 2:
+        raise SplitError(f"cross-validation needs at least 2 folds; got {k}")
+    for i, value in enumerate(groups):
+        if value is None or (isinstance(value, (float, np.floating)) and np.isnan(value)) or (isinstance(value, str) and not value.strip()):
+            raise SplitError(f"the group column is blank in data row {i + 1}; give every row its group, or leave such rows out")
+    by_group = list(_groups(groups).values())
+    if len(by_group) < k:
+        raise SplitError(f"{k} grouped folds need at least {k} different groups; the group column has {len(by_group)}. Use fewer folds")
+    tie_break = np.random.default_rng(seed).permutation(len(by_group))
+    fold_of = np.empty(len(groups), dtype=np.int64)
+    filled = np.zeros(k, dtype=np.int64)
+    for g in sorted(range(len(by_group)), key=lambda g: (-len(by_group[g]), tie_break[g])):
+        fold = int(np.argmin(filled))
+        fold_of[by_group[g]] = fold
+        filled[fold] += len(by_group[g])
+    everything = np.arange(len(groups))
+    return [(everything[fold_of != f], everything[fold_of == f]) for f in range(k)]
