@@ -288,12 +288,12 @@ def create_app(token: str, origin: str = "http://127.0.0.1", max_body: int = MAX
 
     @app.get("/addin/{file_name}", include_in_schema=False)
     def addin_file(file_name: str, request: Request) -> Response:
-        from .addin import ADDIN_TYPES, addin_file_bytes
+        from .addin import ADDIN_TYPES, addin_file_bytes, addin_headers, served_base
 
         if file_name not in ADDIN_TYPES:
             raise HTTPException(404, f"the add-in has no file '{file_name}'")
-        base = f"{request.url.scheme}://{request.url.netloc}"
-        return Response(addin_file_bytes(file_name, base), media_type=ADDIN_TYPES[file_name])
+        base = served_base(request.scope, origin)  # the server's own address, never the request's Host header
+        return Response(addin_file_bytes(file_name, base), media_type=ADDIN_TYPES[file_name], headers=addin_headers(file_name))
 
     app.add_middleware(BodyLimit, limit=max_body)
     app.add_middleware(TokenGate, token=token, origin=origin)  # outermost: nothing runs before the token is checked

@@ -4,6 +4,16 @@ The metadata and the script are generated from `sheetnet.registry.REGISTRY`
 (namespace SHEETNET, so the cells read ``=SHEETNET.TRAIN(...)``); the manifest
 and the pages point at the server that serves them (one origin for the add-in
 and the API). Static texts live beside this file.
+
+What the generated files hold to (Microsoft's custom-functions documentation,
+learn.microsoft.com/office/dev/add-ins/excel/custom-functions-json and the
+``custom-functions-runtime`` typings): every parameter is ``any`` (ranges as
+matrices) so that, with ``allowErrorForDataTypeAny``, error cells reach
+sheetnet, which names them; TRAIN is ``cancelable`` and asks for its cell's
+address (a training is a server job the cell can stop); the two arguments with
+a fixed list of words offer them as a custom enum (AutoComplete suggestions);
+the script drops the invocation object Excel passes last. Proven in CI against
+a stand-in of the runtime only (tests/node/), never inside Excel.
 """
 
 from __future__ import annotations
@@ -13,8 +23,10 @@ import struct
 import zlib
 from functools import lru_cache
 from pathlib import Path
+from typing import Any, Mapping
 
-from ..registry import REGISTRY
+from ..functions import PREDICT_OUTPUTS
+from ..registry import REGISTRY, CellFunction
 
 HERE = Path(__file__).parent
 ADDIN_ID = "45530864-e72b-4b05-b522-d12954b04ef8"
@@ -29,39 +41,80 @@ ADDIN_TYPES = {
     "icon-32.png": "image/png",
     "icon-80.png": "image/png",
 }
+# TRAIN runs as a server job (progress, cancelling); every other function is one request
+JOB_FUNCTIONS = frozenset({"SHEETNET.TRAIN"})
+# the arguments that take one of a few words: (function, argument) -> (enum id, [(word, tooltip)])
+CHOICES: dict[tuple[str, str], tuple[str, tuple[tuple[str, str], ...]]] = {
+    ("SHEETNET.SPLIT", "mode"): (
+        "SPLITMODES",
+        (
+            ("random", "rows held out at random (the default)"),
+            ("ordered", "the last rows held out, for time series"),
+            ("stratified", "write the column after it, like 'stratified grade': each class held out in proportion"),
+        ),
+    ),
+    ("SHEETNET.PREDICT", "output"): (
+        "PREDICTOUTPUTS",
+        tuple((word, "several may be combined, like 'value, flag'") for word in PREDICT_OUTPUTS),
+    ),
+}
+# The task pane page may run only its own files and Office's script (the pane loads office.js from
+# Microsoft's address); data shown in it is text, never markup (see taskpane.js), and this keeps it so.
+PANE_POLICY = (
+    "default-src 'self'; script-src 'self' https://appsforoffice.microsoft.com; style-src 'self'; "
+    "img-src 'self' data:; connect-src 'self'; object-src 'none'; base-uri 'none'; form-action 'none'"
+)
 
 
-def functions_metadata() -> dict:
-    """The custom-functions metadata JSON: every registry entry, ranges as matrices, answers spilled."""
-    return {
-        "functions": [
-            {
-                "id": entry.name.split(".", 1)[1],
-                "name": entry.name.split(".", 1)[1],
-                "description": entry.help,
-                "parameters": [
-                    {
-                        "name": argument.name,
-                        "description": argument.help,
-                        "type": "any",
-                        "dimensionality": "matrix" if argument.kind == "range" else "scalar",
-                        "optional": argument.optional,
-                    }
-                    for argument in entry.arguments
-                ],
-                "result": {"type": "any", "dimensionality": "matrix"},
-            }
-            for entry in REGISTRY
-        ]
+def function_id(entry: CellFunction) -> str:
+    """The id and name Excel registers, without the namespace: SHEETNET.TRAIN -> TRAIN."""
+    return entry.name.split(".", 1)[1]
+
+
+def _parameter(entry: CellFunction, index: int) -> dict[str, Any]:
+    argument = entry.arguments[index]
+    described: dict[str, Any] = {
+        "name": argument.name,
+        "description": argument.help,
+        "type": "any",
+        "dimensionality": "matrix" if argument.kind == "range" else "scalar",
+        "optional": argument.optional,
     }
+    choice = CHOICES.get((entry.name, argument.name))
+    if choice is not None:  # the documented enum pattern takes a string parameter
+        described["type"], described["customEnumId"] = "string", choice[0]
+    return described
+
+
+def functions_metadata() -> dict[str, Any]:
+    """The custom-functions metadata JSON: every registry entry, ranges as matrices, answers spilled."""
+    functions = []
+    for entry in REGISTRY:
+        described: dict[str, Any] = {
+            "id": function_id(entry),
+            "name": function_id(entry),
+            "description": entry.help,
+            "parameters": [_parameter(entry, i) for i in range(len(entry.arguments))],
+            "result": {"type": "any", "dimensionality": "matrix"},
+        }
+        if entry.name in JOB_FUNCTIONS:
+            described["options"] = {"cancelable": True, "requiresAddress": True}
+        functions.append(described)
+    enums = [
+        {"id": enum_id, "type": "string", "values": [{"name": word, "stringValue": word, "tooltip": tip} for word, tip in words]}
+        for enum_id, words in CHOICES.values()
+    ]
+    return {"allowErrorForDataTypeAny": True, "functions": functions, "enums": enums}
 
 
 def functions_script() -> str:
     """The custom-functions script: each function forwards its arguments to the server."""
+    table = {e.name: {"arguments": len(e.arguments), "job": e.name in JOB_FUNCTIONS} for e in REGISTRY}
     associations = "\n".join(
-        f'CustomFunctions.associate("{e.name.split(".", 1)[1]}", (...args) => callSheetnet("{e.name}", args));' for e in REGISTRY
+        f'  CustomFunctions.associate("{function_id(e)}", (...args) => callSheetnet("{e.name}", args));' for e in REGISTRY
     )
-    return (HERE / "functions.js").read_text() + "\n" + associations + "\n"
+    script = (HERE / "functions.js").read_text().replace("%SHEETNET_FUNCTIONS%", json.dumps(table, sort_keys=True))
+    return script + '\nif (typeof CustomFunctions !== "undefined") {\n' + associations + "\n}\n"
 
 
 def _png(size: int) -> bytes:
@@ -80,6 +133,26 @@ def _png(size: int) -> bytes:
 
     header = struct.pack(">IIBBBBB", size, size, 8, 2, 0, 0, 0)
     return b"\x89PNG\r\n\x1a\n" + chunk(b"IHDR", header) + chunk(b"IDAT", raw) + chunk(b"IEND", b"")
+
+
+def served_base(scope: Mapping[str, Any], origin: str) -> str:
+    """The address the add-in's files name: the one the server listens on (the ASGI ``server`` entry,
+    which uvicorn takes from its socket), else ``origin``. Never the request's Host header, which a
+    caller (or a page rebinding a name to 127.0.0.1) writes as it likes."""
+    listening = scope.get("server")
+    if not listening or listening[1] is None:
+        return origin
+    host, port = listening[0], int(listening[1])
+    host = f"[{host}]" if ":" in host else host
+    return f"{scope.get('scheme', 'http')}://{host}:{port}"
+
+
+def addin_headers(name: str) -> dict[str, str]:
+    """Headers for one served add-in file: no type sniffing; the pane page under its content policy."""
+    headers = {"X-Content-Type-Options": "nosniff"}
+    if name == "taskpane.html":
+        headers["Content-Security-Policy"] = PANE_POLICY
+    return headers
 
 
 @lru_cache(maxsize=64)

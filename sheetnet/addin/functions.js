@@ -1,32 +1,160 @@
 // sheetnet custom functions: each forwards its arguments to the local sheetnet server.
 // The token is the one the task pane stored (the server prints it at start).
+//
+// The contract, from Microsoft's custom-functions documentation (custom-functions-parameter-options,
+// custom-functions-errors, custom-functions-web-reqs, custom-functions-formula-value-preview and the
+// custom-functions-runtime typings):
+// - Excel passes every declared parameter (null for an omitted optional one), then an invocation
+//   object, always last; it is never sent to the server.
+// - A failure is thrown as CustomFunctions.Error: #VALUE! (invalidValue) with sheetnet's message when
+//   sheetnet refuses the input, #N/A (notAvailable) when the server cannot answer. Both codes carry a
+//   message, shown in the cell's error indicator; IFERROR and ISERROR see a real error.
+// - With allowErrorForDataTypeAny, an error cell reaches the function as an error object; it is sent
+//   as its code ("#N/A"), which sheetnet names in its messages.
+// - TRAIN is cancelable: Excel calls invocation.onCanceled when the cell is edited, its inputs change
+//   or the user recalculates; the request is aborted and the server's training job cancelled.
+//   In formula value preview (invocation.isInValuePreview) no training starts.
 const SHEETNET_BASE = "%SHEETNET_BASE%";
+const SHEETNET_FUNCTIONS = %SHEETNET_FUNCTIONS%;
+const SHEETNET_MARKER = "#SHEETNET!";
+const SHEETNET_POLL_MS = 250;
+// the data-type spelling of error cells (Excel.ErrorCellValue's errorType) and the codes a cell shows
+const SHEETNET_ERROR_TYPES = {
+  Blocked: "#BLOCKED!", Busy: "#BUSY!", Calc: "#CALC!", Connect: "#CONNECT!", Div0: "#DIV/0!", Field: "#FIELD!",
+  GettingData: "#GETTING_DATA", NotAvailable: "#N/A", Name: "#NAME?", Null: "#NULL!", Num: "#NUM!", Ref: "#REF!",
+  Spill: "#SPILL!", Value: "#VALUE!",
+};
+
+class SheetnetRefusal extends Error {}  // a value sheetnet cannot send; becomes #VALUE! with this message
 
 function sheetnetToken() {
   try {
-    return window.localStorage.getItem("sheetnet-token") || "";
+    return globalThis.localStorage.getItem("sheetnet-token") || "";
   } catch (error) {
     return "";
   }
 }
 
+function sheetnetCellError(code, message) {
+  const codes = CustomFunctions.ErrorCode;
+  return new CustomFunctions.Error(code === "value" ? codes.invalidValue : codes.notAvailable, message);
+}
+
+function sheetnetErrorCode(value) {
+  if (typeof CustomFunctions !== "undefined" && value instanceof CustomFunctions.Error) return String(value.code);
+  if (typeof value.code === "string" && value.code.startsWith("#")) return value.code;
+  if (value.type === "Error" && value.errorType) return SHEETNET_ERROR_TYPES[value.errorType] || "#VALUE!";
+  return null;
+}
+
+// A cell value as JSON: numbers, texts, TRUE/FALSE and blanks as they are; an error as its code
+function sheetnetCell(value) {
+  if (value === undefined || value === null) return null;
+  if (typeof value === "number") return Number.isFinite(value) ? value : null;
+  if (typeof value === "string" || typeof value === "boolean") return value;
+  if (Array.isArray(value)) return value.map(sheetnetCell);
+  if (typeof value === "object") {
+    const code = sheetnetErrorCode(value);
+    if (code !== null) return code;
+  }
+  throw new SheetnetRefusal("a cell holds a value sheetnet cannot read (a picture or a linked data type, say); give numbers, text or TRUE/FALSE");
+}
+
+function sheetnetArguments(name, args) {
+  const values = args.slice(0, -1).slice(0, SHEETNET_FUNCTIONS[name].arguments);  // the invocation is last
+  while (values.length && (values[values.length - 1] === null || values[values.length - 1] === undefined)) values.pop();
+  return values.map(sheetnetCell);
+}
+
+async function sheetnetRequest(path, options, token) {
+  let response;
+  try {
+    response = await fetch(`${SHEETNET_BASE}${path}`, {
+      ...options,
+      headers: { "Authorization": `Bearer ${token}`, "Content-Type": "application/json" },
+    });
+  } catch (error) {
+    if (error && error.name === "AbortError") throw sheetnetCellError("n/a", "the calculation was cancelled");
+    throw sheetnetCellError("n/a", `the sheetnet server at ${SHEETNET_BASE} did not answer; start it with sheetnet serve`);
+  }
+  let body = null;
+  try {
+    body = await response.json();
+  } catch (error) {
+    body = null;
+  }
+  if (!response.ok) {
+    const detail = body && typeof body.detail === "string" ? body.detail : `the sheetnet server answered ${response.status}`;
+    // the caller's own arguments are wrong: #VALUE!; the server cannot serve now (token, busy, bug): #N/A
+    throw sheetnetCellError(response.status === 400 || response.status === 422 ? "value" : "n/a", detail);
+  }
+  return body;
+}
+
+function sheetnetMessage(text) {
+  return String(text).startsWith(SHEETNET_MARKER) ? String(text).slice(SHEETNET_MARKER.length).trim() : String(text);
+}
+
+function sheetnetResult(rows) {
+  const first = rows.length && rows[0].length ? rows[0][0] : null;
+  if (typeof first === "string" && first.startsWith(SHEETNET_MARKER)) throw sheetnetCellError("value", sheetnetMessage(first));
+  return rows.map((row) => row.map((value) => (value === null ? "" : value)));
+}
+
+function sheetnetPause(ms, signal) {
+  return new Promise((resolve) => {
+    const timer = setTimeout(resolve, ms);
+    signal.addEventListener("abort", () => { clearTimeout(timer); resolve(); }, { once: true });
+  });
+}
+
+function sheetnetJobName(invocation) {
+  // a cell's training is listed by the server (and the task pane) under its cell, like cell_Sheet1_B2
+  const where = invocation && typeof invocation.address === "string" ? invocation.address.replace(/[^A-Za-z0-9_.]/g, "_") : "training";
+  return `cell_${where}`.slice(0, 200);
+}
+
+async function sheetnetTrain(values, invocation, token) {
+  if (invocation && invocation.isInValuePreview) {
+    throw sheetnetCellError("n/a", "a training starts when the formula is entered, not in the formula preview");
+  }
+  const stop = new AbortController();
+  let jobId = null;
+  const cancelJob = () => {
+    stop.abort();
+    if (jobId !== null) {
+      fetch(`${SHEETNET_BASE}/v1/jobs/${jobId}`, { method: "DELETE", headers: { "Authorization": `Bearer ${token}` }, keepalive: true })
+        .catch(() => undefined);  // the server may be gone already; nothing is left to stop then
+    }
+  };
+  if (invocation) invocation.onCanceled = cancelJob;
+  const job = await sheetnetRequest("/v1/jobs", { method: "POST", body: JSON.stringify({ name: sheetnetJobName(invocation), args: values }), signal: stop.signal }, token);
+  jobId = job.id;
+  if (stop.signal.aborted) cancelJob();  // cancelled while the job was being created
+  for (;;) {
+    if (stop.signal.aborted) throw sheetnetCellError("n/a", "the training was cancelled");
+    const status = await sheetnetRequest(`/v1/jobs/${jobId}`, { signal: stop.signal }, token);
+    if (status.state === "done") return sheetnetResult(status.result);
+    if (status.state === "failed") throw sheetnetCellError("value", sheetnetMessage(status.message));
+    if (status.state === "cancelled") throw sheetnetCellError("n/a", "the training was cancelled");
+    await sheetnetPause(SHEETNET_POLL_MS, stop.signal);
+  }
+}
+
 async function callSheetnet(name, args) {
+  const invocation = args.length ? args[args.length - 1] : undefined;
+  let values;
+  try {
+    values = sheetnetArguments(name, args);
+  } catch (error) {
+    if (error instanceof SheetnetRefusal) throw sheetnetCellError("value", error.message);
+    throw error;
+  }
   const token = sheetnetToken();
   if (!token) {
-    return [["#SHEETNET! no access token yet: open the sheetnet task pane and paste the token sheetnet serve printed"]];
+    throw sheetnetCellError("n/a", "no access token yet: open the sheetnet task pane and paste the token sheetnet serve printed");
   }
-  try {
-    const response = await fetch(`${SHEETNET_BASE}/v1/functions/${encodeURIComponent(name)}`, {
-      method: "POST",
-      headers: { "Authorization": `Bearer ${token}`, "Content-Type": "application/json" },
-      body: JSON.stringify({ args: args.map((value) => (value === undefined ? null : value)) }),
-    });
-    const body = await response.json();
-    if (!response.ok) {
-      return [[`#SHEETNET! ${body.detail}`]];
-    }
-    return body.result.map((row) => row.map((value) => (value === null ? "" : value)));
-  } catch (error) {
-    return [[`#SHEETNET! the sheetnet server at ${SHEETNET_BASE} did not answer; start it with sheetnet serve`]];
-  }
+  if (SHEETNET_FUNCTIONS[name].job) return sheetnetTrain(values, invocation, token);
+  const body = await sheetnetRequest(`/v1/functions/${encodeURIComponent(name)}`, { method: "POST", body: JSON.stringify({ args: values }) }, token);
+  return sheetnetResult(body.result);
 }

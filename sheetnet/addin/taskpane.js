@@ -2,10 +2,14 @@
 // metrics, and (inside Excel) stores the model by applying the placements the server computes
 // (POST /v1/placements): the block and its native-formula constants, their sheet and defined names.
 // In a plain browser it is a dashboard of the server's models, training from a pasted table.
+// Everything shown that comes from data (model, target and column names, messages) is set as text
+// (textContent, text nodes): the pane never parses data as markup, so a name like <img onerror=...>
+// shows as those characters and runs nothing. The page's content policy (sheetnet/addin) backs this.
 "use strict";
 
-const inExcel = () => typeof Office !== "undefined" && !window.sheetnetNoOffice && Office.context && Office.context.host;
+const inExcel = () => typeof Office !== "undefined" && Office.context && Office.context.host;
 const $ = (id) => document.getElementById(id);
+const SVG = "http://www.w3.org/2000/svg";
 let currentJob = null;
 
 function storedToken() {
@@ -134,8 +138,16 @@ async function storeInWorkbook(name, block) {
   return placements;
 }
 
+function element(tag, attributes = {}, text = null, namespace = null) {
+  const made = namespace ? document.createElementNS(namespace, tag) : document.createElement(tag);
+  for (const [name, value] of Object.entries(attributes)) made.setAttribute(name, String(value));
+  if (text !== null) made.textContent = String(text);
+  return made;
+}
+
 function drawCurve(curve) {
   const svg = $("curve");
+  svg.replaceChildren();
   if (!curve.length) { svg.hidden = true; return; }
   svg.hidden = false;
   const values = curve.flatMap((point) => [point[1], point[2]]).filter((v) => v !== null && v > 0);
@@ -143,23 +155,41 @@ function drawCurve(curve) {
   const last = curve[curve.length - 1][0] || 1;
   const x = (epoch) => 30 + (280 * (epoch - 1)) / Math.max(last - 1, 1);
   const y = (loss) => 10 + 130 * (1 - (Math.log(loss) - low) / Math.max(high - low, 1e-9));
-  const line = (column, colour) => {
+  const shapes = [
+    element("line", { x1: 30, y1: 140, x2: 310, y2: 140, stroke: "#90a4ae" }, null, SVG),
+    element("line", { x1: 30, y1: 10, x2: 30, y2: 140, stroke: "#90a4ae" }, null, SVG),
+  ];
+  for (const [column, colour] of [[1, "#1565c0"], [2, "#ef6c00"]]) {
     const points = curve.filter((p) => p[column] !== null && p[column] > 0).map((p) => `${x(p[0]).toFixed(1)},${y(p[column]).toFixed(1)}`);
-    return points.length ? `<polyline fill="none" stroke="${colour}" stroke-width="1.6" points="${points.join(" ")}"/>` : "";
-  };
-  svg.innerHTML = `<line x1="30" y1="140" x2="310" y2="140" stroke="#90a4ae"/><line x1="30" y1="10" x2="30" y2="140" stroke="#90a4ae"/>`
-    + line(1, "#1565c0") + line(2, "#ef6c00")
-    + `<text x="34" y="155" font-size="9">epoch 1</text><text x="270" y="155" font-size="9">epoch ${last}</text>`
-    + `<text x="200" y="20" font-size="9" fill="#1565c0">training</text><text x="250" y="20" font-size="9" fill="#ef6c00">validation</text>`;
+    if (points.length) shapes.push(element("polyline", { fill: "none", stroke: colour, "stroke-width": 1.6, points: points.join(" ") }, null, SVG));
+  }
+  shapes.push(
+    element("text", { x: 34, y: 155, "font-size": 9 }, "epoch 1", SVG),
+    element("text", { x: 270, y: 155, "font-size": 9 }, `epoch ${last}`, SVG),
+    element("text", { x: 200, y: 20, "font-size": 9, fill: "#1565c0" }, "training", SVG),
+    element("text", { x: 250, y: 20, "font-size": 9, fill: "#ef6c00" }, "validation", SVG),
+  );
+  svg.append(...shapes);
 }
 
 function showMetrics(about) {
   const rows = about.slice(1).filter((row) => String(row[0]).startsWith("holdout ") || ["stopped by", "epochs", "layers"].includes(row[0]));
-  $("metrics").querySelector("tbody").innerHTML = rows.map((row) => {
+  $("metrics").querySelector("tbody").replaceChildren(...rows.map((row) => {
     const value = typeof row[1] === "number" && !Number.isInteger(row[1]) ? row[1].toFixed(4) : row[1];
-    return `<tr><td>${String(row[0]).replace("holdout ", "")}</td><td>${value}</td></tr>`;
-  }).join("");
+    const line = element("tr");
+    line.append(element("td", {}, String(row[0]).replace("holdout ", "")), element("td", {}, value === null ? "" : value));
+    return line;
+  }));
   $("metrics").hidden = rows.length === 0;
+}
+
+function modelLine(model) {
+  const about = Object.fromEntries(model.about.slice(1));
+  const metric = Object.keys(about).find((k) => k.startsWith("holdout ") && typeof about[k] === "number" && k !== "holdout rows");
+  const line = element("li");
+  line.append(element("strong", {}, model.name));
+  line.append(document.createTextNode(`: ${about.target}, ${about.layers}${metric ? `, ${metric.replace("holdout ", "")} ${about[metric].toFixed(3)}` : ""}`));
+  return line;
 }
 
 async function refreshModels() {
@@ -167,13 +197,7 @@ async function refreshModels() {
     const { models } = await api("/v1/models");
     $("connection").textContent = "connected";
     $("token-section").hidden = true;
-    $("models").innerHTML = models.length
-      ? models.map((m) => {
-          const about = Object.fromEntries(m.about.slice(1));
-          const metric = Object.keys(about).find((k) => k.startsWith("holdout ") && typeof about[k] === "number" && k !== "holdout rows");
-          return `<li><strong>${m.name}</strong>: ${about.target}, ${about.layers}${metric ? `, ${metric.replace("holdout ", "")} ${about[metric].toFixed(3)}` : ""}</li>`;
-        }).join("")
-      : `<li class="muted">none yet</li>`;
+    $("models").replaceChildren(...(models.length ? models.map(modelLine) : [element("li", { class: "muted" }, "none yet")]));
   } catch (error) {
     $("connection").textContent = "not connected";
     $("token-section").hidden = false;
@@ -245,7 +269,7 @@ function start() {
   refreshModels();
 }
 
-if (typeof Office !== "undefined" && !window.sheetnetNoOffice && Office.onReady) {
+if (typeof Office !== "undefined" && Office.onReady) {
   Office.onReady(start);
 } else {
   start();
