@@ -43,6 +43,7 @@ from .cells import (
 from .errors import BadValueError, CellError, InputError, ModelError, SettingError, SheetnetError
 from .evaluation import permutation_importance
 from .evaluation import score as score_model
+from .labels import metric_label, percent_in_words, value_in_words
 from .limits import MAX_NUMBER, check_network_size
 from .metrics import ROC_AUC_LEFT_OUT, mape_left_out_reason
 from .model import Model
@@ -51,9 +52,21 @@ from .settings import resolve_settings
 from .splits import holdout_mask
 from .stopping import ProgressCallback
 from .training import fit
+from .uncertainty import (
+    BOOTSTRAP_METHOD,
+    BOOTSTRAP_RESAMPLES,
+    BOOTSTRAP_SEED,
+    Conformal,
+    calibrate,
+    metric_error_bars,
+    prediction_sets,
+    read_level,
+    rows_needed,
+)
 
 CAUTION = "a decision aid, not a decision: check it for bias and follow local law and licensed practice"
-CELL_OPTIONS = ("seed", "ignore", "inputs", "categories", "blank_rows", "numbers_in_text")  # settings the cell layer reads itself
+# settings the cell layer reads itself (interval_level: of the conformal interval and the error bars; intended_use: for the model card)
+CELL_OPTIONS = ("seed", "ignore", "inputs", "categories", "blank_rows", "numbers_in_text", "interval_level", "intended_use")
 TRAIN_NUMBER_TEXT_FIX = (
     "convert the column to numbers in the sheet, or add the setting numbers_in_text=point (reads 1,234.5 and 12% as numbers) "
     "or numbers_in_text=comma (reads 1.234,5 as numbers)"
@@ -63,6 +76,7 @@ PREDICT_NUMBER_TEXT_FIX = (
     "or retrain the model with the setting numbers_in_text=point or numbers_in_text=comma"
 )
 TRAIN_CACHE_SIZE = 32
+MAX_GROUPS = 50  # more groups than this is a numeric column or an identifier, not groups to compare
 _train_cache: OrderedDict[str, Cells] = OrderedDict()
 _decoded_cache: OrderedDict[str, tuple[Model, BlockInfo]] = OrderedDict()
 
@@ -333,11 +347,18 @@ def train_block(
     model = _in_sheet_rows(sheet.data_rows[training], target_name, checked_fit)
 
     metrics: dict[str, float] = {}
+    intervals: dict[str, tuple[float, float]] = {}
+    conformal: Conformal | None = None
+    level = read_level(options.get("interval_level"))
     holdout = used & held
     if holdout.any():
         actual = numeric_frame(readable.frame.loc[holdout, [target_name]])[target_name].to_numpy()
         holdout_frame = _inputs_frame(readable, inputs, holdout)
         metrics = _scalar_metrics(_in_sheet_rows(sheet.data_rows[holdout], target_name, lambda: score_model(model, holdout_frame, actual)))
+        if holdout.sum() >= 2:
+            intervals = metric_error_bars(model, holdout_frame, actual, level)
+        if holdout.sum() >= rows_needed(level):  # the holdout rows are rows the network did not train on: they calibrate
+            conformal = calibrate(model, holdout_frame, actual, level)
     info = BlockInfo(
         target=target_name,
         trained_at=datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
@@ -349,6 +370,9 @@ def train_block(
         blank_rows=options["blank_rows"],
         source=source,
         given=_given_arguments(hidden, settings),
+        conformal=conformal,
+        metric_intervals={k: v for k, v in intervals.items() if k in metrics},
+        error_bars=(level, BOOTSTRAP_RESAMPLES, BOOTSTRAP_SEED) if intervals else None,
     )
     return encode_block(model, info)
 
@@ -380,7 +404,13 @@ def _check_sizes(frame: pd.DataFrame, y: np.ndarray, layers: tuple[int, ...], ca
     check_network_size(len(frame), planned_width(read_table(frame), categories), layers, target.outputs)
 
 
-PREDICT_OUTPUTS = ("value", "probabilities", "interval", "flag")
+# interval: the split-conformal prediction interval (numbers); set: the conformal prediction set (classes);
+# spread: the lowest and highest of the repeated networks, which shows their disagreement and is no coverage interval
+PREDICT_OUTPUTS = ("value", "probabilities", "interval", "set", "spread", "flag")
+NO_CALIBRATION = (
+    "this model has no {what}: it was trained without enough holdout rows to calibrate one ({needed} or more at {level}); "
+    "train it with a split (SHEETNET.SPLIT) that holds out rows"
+)
 
 
 def _parse_output(value: Any) -> list[str]:
@@ -418,8 +448,9 @@ def _predictions(decoded: Model, info: BlockInfo, frame: Any, wanted: list[str])
     columns: list[list[Any]] = []
     if "probabilities" in wanted and decoded.task == "regression":
         raise SettingError("this model predicts numbers, so it has no class probabilities; use output value or interval")
-    wants_value = "value" in wanted or ("probabilities" not in wanted and "interval" not in wanted)
-    probabilities = decoded.predict_proba(frame) if decoded.task != "regression" and (wants_value or "probabilities" in wanted) else None
+    wants_value = "value" in wanted or not {"probabilities", "interval", "set", "spread"} & set(wanted)
+    needs_probabilities = wants_value or "probabilities" in wanted or "set" in wanted
+    probabilities = decoded.predict_proba(frame) if decoded.task != "regression" and needs_probabilities else None
     if probabilities is not None:
         _check_finite(decoded, frame, probabilities)
     if wants_value:
@@ -435,10 +466,26 @@ def _predictions(decoded: Model, info: BlockInfo, frame: Any, wanted: list[str])
             header.append(f"P({label})")
             columns.append(as_cells(probabilities[:, j]))
     if "interval" in wanted:
-        if len(decoded.members) < 2:
-            raise SettingError("an interval needs several networks; train with the setting repeats=5 (or more)")
         if decoded.task != "regression":
-            raise SettingError("an interval is for models that predict numbers; for classes use output probabilities")
+            raise SettingError("an interval is for models that predict numbers; for classes use output set (the classes the row may be)")
+        conformal = _calibration(info, "prediction interval")
+        values = decoded.predict(frame)
+        _check_finite(decoded, frame, values)
+        shown = percent_in_words(conformal.level)
+        header += [f"{info.target} low ({shown} interval)", f"{info.target} high ({shown} interval)"]
+        columns += [as_cells(values - conformal.quantile), as_cells(values + conformal.quantile)]
+    if "set" in wanted:
+        if probabilities is None:
+            raise SettingError("a prediction set is for models that predict classes; for numbers use output interval")
+        conformal = _calibration(info, "prediction set")
+        members = prediction_sets(probabilities, conformal)
+        header.append(f"{info.target} may be ({percent_in_words(conformal.level)} set)")
+        columns.append([", ".join(label_in_words(c) for c, inside in zip(decoded.classes, row) if inside) or "none" for row in members])
+    if "spread" in wanted:
+        if len(decoded.members) < 2:
+            raise SettingError("the networks' spread needs several networks; train with the setting repeats=5 (or more)")
+        if decoded.task != "regression":
+            raise SettingError("the networks' spread is for models that predict numbers; for classes use output probabilities or set")
         spread = decoded.predict_spread(frame)
         _check_finite(decoded, frame, np.column_stack([spread["low"], spread["high"]]))
         header += [f"{info.target} lowest network", f"{info.target} highest network"]
@@ -447,6 +494,14 @@ def _predictions(decoded: Model, info: BlockInfo, frame: Any, wanted: list[str])
         header.append("outside training range")
         columns.append([bool(v) for v in decoded.out_of_range(frame)])
     return header, columns
+
+
+def _calibration(info: BlockInfo, what: str) -> Conformal:
+    conformal = getattr(info, "conformal", None)
+    if conformal is None:
+        level = read_level(dict(info.given).get("interval_level"))
+        raise SettingError(NO_CALIBRATION.format(what=what, needed=rows_needed(level), level=percent_in_words(level)))
+    return conformal
 
 
 def _check_finite(decoded: Model, frame: Any, answers: np.ndarray) -> None:
@@ -481,9 +536,16 @@ def _scored_rows(decoded: Model, info: BlockInfo, sheet: SheetTable, split: Any,
 
 
 @cell_function
-def score(model: Any, table: Any, split: Any = None) -> Cells:
-    """A two-column table of metrics, on the split's holdout rows when a split is given."""
+def score(model: Any, table: Any, split: Any = None, error_bars: Any = None) -> Cells:
+    """A two-column table of metrics, on the split's holdout rows when a split is given.
+
+    With ``error_bars`` (a level like 90%, or TRUE for 90 %) each metric also gets a
+    percentile-bootstrap interval over the scored rows and a label in words, and the
+    last rows state the method, resamples and seed.
+    """
     decoded, info, options = _decode(model)
+    error_bars = one_value(error_bars, "error bars")
+    level = None if is_blank(error_bars) or error_bars is False else read_level(None if error_bars is True else error_bars, "error-bar level")
     raw = read_sheet_table(table)
     sheet = _numbers_for_model(raw, decoded, info, options, with_target=True)
     split_given = split is not None and not is_blank(split)
@@ -499,6 +561,70 @@ def score(model: Any, table: Any, split: Any = None) -> Cells:
         answer.append(["roc_auc left out", ROC_AUC_LEFT_OUT])
     for label, per in metrics.get("per_class", {}).items():
         answer += [[f"{kind} {label_in_words(label)}", per[kind]] for kind in ("precision", "recall", "f1")]
+    if level is None:
+        return answer
+    bars = _in_sheet_rows(sheet.data_rows[rows], info.target, lambda: metric_error_bars(decoded, frame, actual, level))
+    return _with_error_bars(answer, bars, level)
+
+
+def _with_error_bars(answer: Cells, bars: dict[str, tuple[float, float]], level: float) -> Cells:
+    """SCORE's rows with a low, a high and a label in words; the method stated below."""
+    shown = percent_in_words(level)
+    wide: Cells = [["metric", "value", f"low ({shown})", f"high ({shown})", "in words"]]
+    for name, value, *_ in answer[1:]:
+        low, high = bars.get(str(name), ("", ""))
+        words = f"{metric_label(str(name))} {value_in_words(str(name), value)}" if isinstance(value, float) else ""
+        if words and str(name) in bars:
+            words += f" ({value_in_words(str(name), low)} to {value_in_words(str(name), high)})"
+        wide.append([name, value, low, high, words])
+    wide.append(["error bars", f"{BOOTSTRAP_METHOD}, {shown} level, {BOOTSTRAP_RESAMPLES} resamples, seed {BOOTSTRAP_SEED}", "", "", ""])
+    return wide
+
+
+@cell_function
+def groups(model: Any, table: Any, group: Any, split: Any = None) -> Cells:
+    """Metrics by group: one row per value of the group column, then the largest gap of each metric."""
+    from .groups import GAP_CAUTION, group_metrics
+
+    decoded, info, options = _decode(model)
+    group = one_value(group, "group column")
+    if is_blank(group):
+        raise InputError("no group column given; name the column whose groups to compare, such as region")
+    raw = read_sheet_table(table)
+    sheet = _numbers_for_model(raw, decoded, info, options, with_target=True)
+    group_name = str(group).strip()
+    sheet.column(group_name)
+    rows = _scored_rows(decoded, info, sheet, split, options["skip_blanks"]) & _rows_used(sheet, [group_name], True)
+    if not rows.any():
+        raise InputError(f"no rows with a group in column '{group_name}'; fill the column or name another")
+    labels = [label_in_words(v) for v in sheet.frame.loc[rows, group_name]]
+    if len(set(labels)) > MAX_GROUPS:
+        raise InputError(
+            f"column '{group_name}' holds {len(set(labels)):,} different values; metrics by group compare up to {MAX_GROUPS} groups: "
+            "name a column of categories (such as region), or make one that bands the values"
+        )
+    actual = numeric_frame(sheet.frame.loc[rows, [info.target]])[info.target].to_numpy()
+    frame = _inputs_frame(sheet, decoded.input_names, rows)
+
+    def measured() -> Any:
+        if decoded.task == "regression":
+            return group_metrics("regression", labels, numbers_of("target", actual), decoded.predict(frame))
+        index = decoded.target.class_indices(actual)
+        probabilities = decoded.predict_proba(frame)
+        decided = (probabilities[:, 1] >= decoded.threshold).astype(np.int64) if decoded.task == "binary" else probabilities.argmax(axis=1)
+        return group_metrics(decoded.task, labels, index, decided)
+
+    report = _in_sheet_rows(sheet.data_rows[rows], info.target, measured)
+    header: list[Any] = [group_name, "rows", *(metric_label(m) for m in report.metrics)]
+    answer: Cells = [header]
+    for label, count, values in zip(report.groups, report.rows, report.values):
+        answer.append([label, count, *("" if values[m] is None else values[m] for m in report.metrics)])
+    gaps = {gap.metric: gap for gap in report.gaps}
+    answer.append(["largest gap", "", *(gaps[m].size if m in gaps else "" for m in report.metrics)])
+    answer.append(["between", "", *(f"{gaps[m].highest} and {gaps[m].lowest}" if m in gaps else "" for m in report.metrics)])
+    if decoded.task == "binary":
+        answer.append(["positive class", label_in_words(decoded.classes[1]), *[""] * len(report.metrics)])
+    answer.append(["caution", GAP_CAUTION, *[""] * len(report.metrics)])
     return answer
 
 
@@ -565,12 +691,33 @@ def about(model: Any, table: Any = None) -> Cells:
     ]
     if decoded.classes:
         rows.append(["classes", labels_in_words(decoded.classes, most=len(decoded.classes))])
-    rows += [[f"holdout {name}", value] for name, value in info.holdout_metrics.items()]
+    intervals = getattr(info, "metric_intervals", None) or {}
+    bars = getattr(info, "error_bars", None)
+    for name, value in info.holdout_metrics.items():
+        rows.append([f"holdout {name}", value])
+        if name in intervals and bars is not None:
+            low, high = intervals[name]
+            rows.append([f"holdout {name} {percent_in_words(bars[0])} interval", f"{value_in_words(name, low)} to {value_in_words(name, high)}"])
+    if bars is not None:
+        rows.append(["holdout error bars", f"{BOOTSTRAP_METHOD}, {bars[1]} resamples, seed {bars[2]}"])
+    conformal = getattr(info, "conformal", None)
+    if conformal is not None:
+        rows.append(["prediction interval" if decoded.task == "regression" else "prediction set", _conformal_in_words(decoded, conformal)])
     if table is not None and not is_blank(table):
         same = data_unchanged(model, table)
         rows.append(["data since training", "unchanged" if same else "changed: retrain to use the new rows"])
     rows.append(["caution", CAUTION])
     return [["about", "value"]] + rows
+
+
+def _conformal_in_words(decoded: Model, conformal: Conformal) -> str:
+    level, rows = percent_in_words(conformal.level), conformal.rows
+    if decoded.task == "regression":
+        return f"predicted value ± {conformal.quantile:.4g}, covering {level} of new rows (split-conformal on {rows} holdout rows)"
+    return (
+        f"every class with probability {1 - conformal.quantile:.3g} or more, holding the true class for {level} of new rows "
+        f"(split-conformal on {rows} holdout rows)"
+    )
 
 
 @cell_function

@@ -72,7 +72,13 @@ REGISTRY: tuple[CellFunction, ...] = (
         (
             Argument("model", "the model block (or its defined name)"),
             Argument("table", "rows to predict, with the model's input columns by name"),
-            Argument("output", "value (blank), probabilities, interval, flag; several may be combined", True, "value"),
+            Argument(
+                "output",
+                "value (blank), probabilities, interval (conformal, for numbers), set (conformal, for classes), "
+                "spread (lowest and highest network), flag; several may be combined",
+                True,
+                "value",
+            ),
         ),
         "as tall as the table: a header, then the prediction per row",
     ),
@@ -84,8 +90,9 @@ REGISTRY: tuple[CellFunction, ...] = (
             Argument("model", "the model block (or its defined name)"),
             Argument("table", "rows with the model's inputs and its target column"),
             Argument("split", "score the holdout rows of this split only", True),
+            Argument("error_bars", "a level such as 90% (or TRUE): adds a bootstrap interval and words to each metric", True, "value"),
         ),
-        "a two-column table: metric, value",
+        "a two-column table: metric, value (five columns with error bars: metric, value, low, high, in words)",
     ),
     CellFunction(
         "SHEETNET.EXPLAIN",
@@ -116,6 +123,18 @@ REGISTRY: tuple[CellFunction, ...] = (
             Argument("lags", "a count k (lags 1 to k) or a list such as 1,2,52", True, "value"),
         ),
         "as tall as the series: one column per lag",
+    ),
+    CellFunction(
+        "SHEETNET.GROUPS",
+        functions.groups,
+        "Metrics by group: counts, error or accuracy, positive rates, TPR and FPR per group, and the largest gap.",
+        (
+            Argument("model", "the model block (or its defined name)"),
+            Argument("table", "rows with the model's inputs, its target column and the group column"),
+            Argument("group", "the name of the column whose groups to compare", kind="value"),
+            Argument("split", "compare on the holdout rows of this split only", True),
+        ),
+        "one row per group, then the largest gap of each metric and a caution",
     ),
 )
 

@@ -165,3 +165,56 @@ def reliability_table(actual_positive: Any, probability: Any, bins: int = 10) ->
         if inside.any():
             table.append((float(edges[b]), float(edges[b + 1]), int(inside.sum()), float(p[inside].mean()), float(hit[inside].mean())))
     return table
+
+
+# --- on a model ---------------------------------------------------------------------------
+
+def calibrate(model: Any, X: Any, y: Any, level: float = DEFAULT_LEVEL) -> Conformal:
+    """Split-conformal calibration of ``model`` on rows ``X``, ``y`` it did not train on.
+
+    >>> conformal = calibrate(model, X_holdout, y_holdout, 0.9)      # doctest: +SKIP
+    >>> low, high = predict_interval(model, conformal, X_new)        # doctest: +SKIP
+    """
+    from .preparation import numbers_of, read_target
+
+    actual = read_target(y)
+    if model.task == "regression":
+        return calibrate_values(numbers_of("target", actual), model.predict(X), level)
+    return calibrate_classes(model.target.class_indices(actual), model.predict_proba(X), level)
+
+
+def predict_interval(model: Any, conformal: Conformal, X: Any) -> tuple[np.ndarray, np.ndarray]:
+    """Conformal prediction interval of a regression model: (low, high), shape (rows,) each."""
+    if model.task != "regression":
+        raise SettingError("an interval is for models that predict numbers; for classes use the prediction set (output set)")
+    return interval(model.predict(X), conformal)
+
+
+def predict_sets(model: Any, conformal: Conformal, X: Any) -> np.ndarray:
+    """Conformal prediction sets of a classifier: boolean (rows, classes) in the order of ``model.classes``."""
+    if model.task == "regression":
+        raise SettingError("a prediction set is for models that predict classes; for numbers use the interval (output interval)")
+    return prediction_sets(model.predict_proba(X), conformal)
+
+
+def metric_error_bars(
+    model: Any, X: Any, y: Any, level: float = DEFAULT_LEVEL, resamples: int = BOOTSTRAP_RESAMPLES, seed: int = BOOTSTRAP_SEED
+) -> dict[str, tuple[float, float]]:
+    """Percentile-bootstrap intervals of the scalar metrics `sheetnet.score` gives, over the rows ``X``, ``y``.
+
+    The network runs once; each resample recomputes the metrics from the kept predictions.
+    """
+    from .metrics import classification_metrics, regression_metrics
+    from .preparation import numbers_of, read_target
+
+    actual = read_target(y)
+    if model.task == "regression":
+        a, p = numbers_of("target", actual), model.predict(X)
+        return bootstrap_intervals(lambda rows: regression_metrics(a[rows], p[rows]), len(a), level, resamples, seed)
+    index = model.target.class_indices(actual)
+    probabilities = model.predict_proba(X)
+    decided = (probabilities[:, 1] >= model.threshold).astype(np.int64) if model.task == "binary" else probabilities.argmax(axis=1)
+    classes = model.classes
+    return bootstrap_intervals(
+        lambda rows: classification_metrics(index[rows], probabilities[rows], classes, decided[rows]), len(index), level, resamples, seed
+    )
