@@ -210,10 +210,17 @@ def _trimmed(fields: tuple[Any, ...]) -> tuple[Any, ...]:
     return fields[:end]
 
 
-def checksum(records: Sequence[Record]) -> str:
-    """SHA-256 over every key, field and number, in order."""
+def canonical_content(records: Sequence[Record]) -> bytes:
+    """The records as the bytes the checksum and a signature cover: a compact JSON list of
+    ``[key, [fields], [numbers]]``, each value as `_canonical` writes it (numbers to 15 digits)."""
     canonical = [[r.key, [_canonical(f) for f in _trimmed(r.fields)], [_canonical(n) for n in r.numbers]] for r in records]
-    return hashlib.sha256(json.dumps(canonical, separators=(",", ":")).encode("utf-8")).hexdigest()
+    return json.dumps(canonical, separators=(",", ":")).encode("utf-8")
+
+
+def checksum(records: Sequence[Record]) -> str:
+    """SHA-256 over every key, field and number, in order. It catches accidental damage, not forgery:
+    anyone can recompute it after an edit (a signature, `sheetnet.signing`, tells who wrote a block)."""
+    return hashlib.sha256(canonical_content(records)).hexdigest()
 
 
 def _rows_of(record: Record) -> list[list[Any]]:
@@ -386,7 +393,20 @@ def _fields(record: Record, count: int) -> tuple[Any, ...]:
 
 
 def decode_block(cells: Any) -> tuple[Model, BlockInfo]:
-    """Read a block back into a model; every failure is a `BlockError` that says what to do."""
+    """Read a block back into a model; every failure is a `BlockError` that says what to do.
+
+    A signature row is checked for its shape only (`sheetnet.signing` verifies it), so a block
+    with a damaged one is refused at every door rather than read as unsigned."""
+    records, version = _checked_records(cells)
+    _signature_of(records, version)
+    try:
+        return _model_of(records, version)
+    except (KeyError, IndexError, TypeError, ValueError, ArithmeticError) as error:  # a safety net: the checks above name the usual faults
+        raise BlockError(f"the model block is damaged (its rows do not fit together: {type(error).__name__}); train the model again") from None
+
+
+def _checked_records(cells: Any) -> tuple[list[Record], int]:
+    """The records of a block and its format version, after the first cell, the version and the checksum."""
     if isinstance(cells, np.ndarray):
         cells = cells.tolist()
     if not isinstance(cells, (list, tuple)) or not cells or not all(isinstance(row, (list, tuple)) for row in cells) or not cells[0]:
@@ -409,10 +429,95 @@ def decode_block(cells: Any) -> tuple[Model, BlockInfo]:
         raise BlockError("the model block is incomplete (its checksum row is missing); select the whole block, down to the row that starts with 'checksum'")
     if stored != checksum(records):
         raise BlockError("the model block was changed after training (its checksum does not match); undo the change, or train the model again")
+    return records, int(version)
+
+
+# --- the signature row (format 3) -----------------------------------------------------------
+
+SIGNATURE_KEY = "signature"
+SIGNATURE_SCHEME = "ed25519"
+SIGNATURE_FROM_FORMAT = 3
+SIGNED_PREFIX = b"sheetnet signed model block\n"  # keeps a block signature from meaning anything else
+
+
+@dataclass(frozen=True)
+class BlockSignature:
+    """What a signature row holds: the key's id (first 16 hex digits of the SHA-256 of the public key),
+    the 32-byte Ed25519 public key and the 64-byte signature over `signed_message`."""
+
+    key_id: str
+    public_key: bytes
+    signature: bytes
+
+
+def key_id_of(public_key: bytes) -> str:
+    """The short name of a public key: the first 16 hex digits of its SHA-256."""
+    return hashlib.sha256(public_key).hexdigest()[:16]
+
+
+def _hex_bytes(value: Any, size: int) -> bytes | None:
+    if not isinstance(value, str) or len(value) != 2 * size or value != value.lower():
+        return None
     try:
-        return _model_of(records, int(version))
-    except (KeyError, IndexError, TypeError, ValueError, ArithmeticError) as error:  # a safety net: the checks above name the usual faults
-        raise BlockError(f"the model block is damaged (its rows do not fit together: {type(error).__name__}); train the model again") from None
+        return bytes.fromhex(value)
+    except ValueError:
+        return None
+
+
+_RESIGN = "sign the model again (sheetnet sign), or ask whoever sent the workbook for an intact copy"
+
+
+def _signature_of(records: list[Record], version: int) -> BlockSignature | None:
+    """The block's signature, checked for shape: one row at most, the last before the checksum, in format 3 on."""
+    found = [i for i, r in enumerate(records) if r.key == SIGNATURE_KEY]
+    if not found:
+        return None
+    if version < SIGNATURE_FROM_FORMAT:
+        raise BlockError(f"the model block is of format {version}, which holds no signature, yet it has a signature row; it was edited: {_RESIGN}")
+    if found != [len(records) - 1]:
+        raise BlockError(f"the model block's signature row is repeated or not the last row before the checksum; it was edited: {_RESIGN}")
+    record = records[-1]
+    scheme, key_id, public_text, signature_text = _fields(record, 4)
+    if scheme != SIGNATURE_SCHEME:
+        raise BlockError(f"the model block is signed by a method this sheetnet does not know ({_shown(scheme)}); upgrade sheetnet, or {_RESIGN}")
+    public_key, signature = _hex_bytes(public_text, 32), _hex_bytes(signature_text, 64)
+    if public_key is None or signature is None or record.numbers:
+        raise BlockError(
+            "the model block's signature row is damaged (the public key must be 64 hex digits and the signature 128, in lower case); " + _RESIGN
+        )
+    if key_id != key_id_of(public_key):
+        raise BlockError(f"the model block's signature row names the key {_shown(key_id)}, which is not the id of the key it holds; it was edited: {_RESIGN}")
+    return BlockSignature(key_id, public_key, signature)
+
+
+def signed_message(records: Sequence[Record]) -> bytes:
+    """The bytes a signature covers: a fixed prefix, then the canonical content of every record but the signature."""
+    return SIGNED_PREFIX + canonical_content([r for r in records if r.key != SIGNATURE_KEY])
+
+
+def block_signature(cells: Any) -> tuple[bytes, BlockSignature | None]:
+    """The message a block's signature covers and its signature (None: unsigned), after the checks
+    `decode_block` makes first (first cell, version, checksum, the signature row's shape)."""
+    records, version = _checked_records(cells)
+    return signed_message(records), _signature_of(records, version)
+
+
+def with_signature(cells: Any, signature: BlockSignature) -> list[list[Any]]:
+    """The block with ``signature`` as its last row before a new checksum (an older signature row is replaced).
+    The signature must cover `block_signature(cells)[0]`; the rows above are kept as they are."""
+    records, version = _checked_records(cells)
+    if version < SIGNATURE_FROM_FORMAT:
+        raise BlockError(
+            f"this model was stored by an older sheetnet (block format {version}), which holds no signature; train it again and sign it then"
+        )
+    _signature_of(records, version)
+    unsigned = [r for r in records if r.key != SIGNATURE_KEY]
+    if any(len(r.fields) > WIDTH - 1 for r in unsigned):
+        raise BlockError(f"the model block is wider than {WIDTH} columns; select the block sheetnet stored (or its name) and sign that")
+    signature_record = Record(SIGNATURE_KEY, (SIGNATURE_SCHEME, signature.key_id, signature.public_key.hex(), signature.signature.hex()))
+    # laid out as encode_block lays them; a middle field read back from a file as an empty cell stays empty
+    rows = [["" if v is None else v for v in row] for record in (*unsigned, signature_record) for row in _rows_of(record)]
+    return rows + [["checksum", checksum([*unsigned, signature_record])] + [""] * (WIDTH - 2)]
 
 
 def _model_of(records: list[Record], version: int) -> tuple[Model, BlockInfo]:

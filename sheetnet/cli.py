@@ -309,12 +309,22 @@ def run_models(args: argparse.Namespace, out: TextIO) -> int:
     return 0
 
 
+CHECKSUM_NOTE = (
+    "note: a checksum catches accidental damage only; anyone who edits a block can compute it again. "
+    "Only a signature by a key you trust shows who wrote a model (sheetnet check --trusted-only refuses the others)."
+)
+
+
 def run_check(args: argparse.Namespace, out: TextIO) -> int:
+    """Verify every model: intact (checksum, structure, native-formula constants and formulas) and who signed it."""
     from .block import BlockError, decode_block
+    from .keyring import trusted_keys
     from .service import MODEL_SHEET_PREFIX, constant_owner
+    from .signing import check_signature
     from .workbook import model_names, open_book, read_model
     from .workbook_models import changed_constants, native_formula_problems
 
+    trusted = trusted_keys(args.keys)  # a damaged trust folder is refused before any model is read
     book = open_book(args.book)
     names = set(model_names(book))
     sheets: dict[str, list[str]] = {}
@@ -326,10 +336,11 @@ def run_check(args: argparse.Namespace, out: TextIO) -> int:
         if len(destinations) == 1 and destinations[0][0].lower().startswith(MODEL_SHEET_PREFIX) and constant_owner(name) is None:
             names.add(name)
             sheets.setdefault(destinations[0][0].casefold(), []).append(name)
-    failed = 0
+    failed = signed = 0
     for name in sorted(names):
         try:
-            decode_block(read_model(book, name))
+            block = read_model(book, name)
+            decode_block(block)
             sharing = [other for group in sheets.values() if name in group for other in group if other != name]
             if sharing:
                 raise BlockError(f"this model shares its hidden sheet with {', '.join(sharing)}, so one overwrote the other; train it again under its name")
@@ -339,12 +350,94 @@ def run_check(args: argparse.Namespace, out: TextIO) -> int:
             problems = native_formula_problems(book, name)
             if problems:
                 raise BlockError(f"its native formulas do not give the model's answers ({'; '.join(problems[:3])}); run sheetnet formulas again or retrain")
-            out.write(f"ok      {name}\n")
+            signature = check_signature(block, trusted)
         except SheetnetError as error:
             failed += 1
             out.write(f"FAILED  {name}: {error}\n")
-    out.write(f"{len(names) - failed} of {len(names)} models verified\n")
+            continue
+        signed += signature.state == "trusted"
+        if signature.state == "wrong" or (args.trusted_only and signature.state != "trusted"):
+            failed += 1
+            out.write(f"{'FAILED ' if signature.state == 'wrong' else 'REFUSED'} {name}: {signature.in_words()}\n")
+        else:
+            out.write(f"ok      {name}: intact; {signature.in_words()}\n")
+    out.write(f"{len(names) - failed} of {len(names)} models verified (intact{', signed by a trusted key' if args.trusted_only else ''}); ")
+    out.write(f"{signed} signed by a trusted key\n")
+    if names and signed < len(names) and not args.trusted_only:
+        out.write(CHECKSUM_NOTE + "\n")
     return 1 if failed else 0
+
+
+def run_sign(args: argparse.Namespace, out: TextIO) -> int:
+    """Sign the workbook's models (or one) with a signing key; only the models' own sheets change."""
+    from .keyring import signing_key
+    from .signing import sign_block
+    from .workbook import check_can_save, defined_name, model_names, open_book, read_model
+    from .workbook_models import store_model
+
+    key = signing_key(args.key, args.keys)
+    book = open_book(args.book)
+    check_can_save(book)
+    names = model_names(book)
+    if args.model:
+        found = defined_name(book, args.model)
+        if found is None or found not in names:
+            raise InputError(f"the workbook has no model named '{args.model}'" + (f"; its models are: {', '.join(names)}" if names else ""))
+        names = [found]
+    if not names:
+        raise InputError(f"{args.book} holds no sheetnet models to sign; train one first (sheetnet train)")
+    problems, changed = [], []
+    for name in names:
+        block = read_model(book, name)
+        try:
+            signed = sign_block(block, key)
+        except SheetnetError as error:
+            problems.append(f"{name}: {error}")
+            continue
+        if signed != [["" if v is None else v for v in row] for row in block]:
+            store_model(book, name, signed, replace=True)
+            changed.append(name)
+    if problems:
+        raise InputError("nothing was signed: " + "; ".join(problems) + " (sign the other models one by one with --model)")
+    if changed:
+        _saved(book, out)
+    for name in names:
+        out.write(f"{'signed ' if name in changed else 'already'} {name}: by the key '{key.name}' ({key.key_id})\n")
+    return 0
+
+
+def run_keys(args: argparse.Namespace, out: TextIO) -> int:
+    """Make a signing key, list the keys, trust a public key or forget one."""
+    from . import keyring
+    from .signing import SigningKey, make_key
+
+    if args.keys_command == "make":
+        key = make_key(args.name)
+        private, public = keyring.save_signing_key(key, args.keys, trust=not args.no_trust)
+        out.write(f"signing key '{key.name}' ({key.key_id}) made\n  private: {private} (readable by you only: keep it so, and keep a copy safe)\n")
+        out.write(f"  public:  {public} (give this file to whoever should trust models you sign)\n")
+        out.write("  trusted on this computer as well\n" if not args.no_trust else "")
+    elif args.keys_command == "trust":
+        found = keyring.read_key_file(args.file)
+        if isinstance(found, SigningKey):
+            raise InputError(f"{args.file} is a private signing key; trust its public half (the .pub file) instead, and keep the .key file private")
+        trusted, path = keyring.trust_key(found, args.keys, args.name)
+        done = f"now trusted ({path})" if path else "was trusted already"
+        out.write(f"the key '{trusted.name}' ({trusted.key_id}) {done}\n")
+    elif args.keys_command == "forget":
+        out.write(f"no longer trusted: {args.name} (removed {keyring.forget_key(args.name, args.keys)})\n")
+    else:
+        folder = keyring.key_folder(args.keys)
+        own = sorted(folder.glob("*.key")) if folder.is_dir() else []
+        out.write(f"key folder: {folder}\nsigning keys:\n" + ("" if own else "  (none: sheetnet keys make NAME)\n"))
+        for path in own:
+            mine = keyring.read_key_file(path)
+            out.write(f"  {mine.name:<24} {mine.key_id}  {path}\n")
+        known = keyring.trusted_keys(args.keys)
+        out.write("trusted keys:\n" + ("" if known else "  (none: sheetnet keys trust FILE.pub)\n"))
+        for entry in known:
+            out.write(f"  {entry.name:<24} {entry.key_id}\n")
+    return 0
 
 
 def run_refresh(args: argparse.Namespace, out: TextIO) -> int:
@@ -458,8 +551,29 @@ def build_parser() -> argparse.ArgumentParser:
     refresh.add_argument("--dry-run", action="store_true", help="only report which models are stale; change nothing")
     models = commands.add_parser("models", help="list the models stored in a workbook file")
     models.add_argument("book", type=Path)
-    check = commands.add_parser("check", help="verify every model block in a workbook file (exit code 1 if one fails)")
+    keys_folder = argparse.ArgumentParser(add_help=False)
+    keys_folder.add_argument("--keys", type=Path, metavar="FOLDER", help="the key folder (default: $SHEETNET_KEYS, else ~/.sheetnet/keys)")
+    check = commands.add_parser(
+        "check", parents=[keys_folder],
+        help="verify every model block in a workbook file and say who signed it (exit code 1 if one fails)",
+    )
     check.add_argument("book", type=Path)
+    check.add_argument("--trusted-only", action="store_true", help="also fail (exit code 1) every model not signed by a trusted key")
+    sign = commands.add_parser("sign", parents=[keys_folder], help="sign the models in a workbook file with your signing key")
+    sign.add_argument("book", type=Path)
+    sign.add_argument("--key", help="the signing key: a name in the key folder or a .key file (default: the folder's only key)")
+    sign.add_argument("--model", help="only this model (default: every stored model)")
+    keys = commands.add_parser("keys", help="make signing keys; list, trust and forget public keys")
+    keys_commands = keys.add_subparsers(dest="keys_command", required=True)
+    make = keys_commands.add_parser("make", parents=[keys_folder], help="make a signing key NAME.key (private) and NAME.pub (to share)")
+    make.add_argument("name", help="the key's name: letters, digits, _ . -")
+    make.add_argument("--no-trust", action="store_true", help="do not add the new key to this computer's trusted keys")
+    keys_commands.add_parser("list", parents=[keys_folder], help="list your signing keys and the trusted keys")
+    trust = keys_commands.add_parser("trust", parents=[keys_folder], help="trust the public key in a .pub file")
+    trust.add_argument("file", type=Path, help="the .pub file its owner gave you")
+    trust.add_argument("--name", help="the name to trust it under (default: the name in the file)")
+    forget = keys_commands.add_parser("forget", parents=[keys_folder], help="stop trusting a key")
+    forget.add_argument("name", help="the name it is trusted under (see: sheetnet keys list)")
     return parser
 
 
@@ -501,7 +615,10 @@ def _dispatch(args: argparse.Namespace) -> int:
         from .calc.commands import run_calc
 
         return run_calc(args, sys.stdout)
-    runners = {"train": run_train, "predict": run_predict, "formulas": run_formulas, "models": run_models, "check": run_check, "refresh": run_refresh}
+    runners = {
+        "train": run_train, "predict": run_predict, "formulas": run_formulas, "models": run_models, "check": run_check, "refresh": run_refresh,
+        "sign": run_sign, "keys": run_keys,
+    }
     return runners[args.command](args, sys.stdout)
 
 

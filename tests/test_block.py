@@ -285,7 +285,7 @@ def _tampered(cells, key, position, value, occurrence=0):
         ("rows", 2, 1e300, "row count is 1e[+]300"),
         ("member", 3, float("inf"), "number of epochs of network 1 is inf"),
         ("member", 3, 0, "number of epochs of network 1 is 0"),
-        ("member", 4, 10**6, "kept epoch of network 1 is 1000000, not a whole number from 1 to 60"),
+        ("member", 4, 10**6, r"kept epoch of network 1 is 1000000, not a whole number from 1 to \d+"),  # to its epochs
         ("member", 1, 7, "networks are not numbered"),
         ("weights", 2, float("inf"), "weights of network 1 are missing or cut short"),
         ("weights", 1, 2.5, "network index of a weights row is 2.5"),
