@@ -1,18 +1,20 @@
-"""Honest evaluation: scoring on rows the model never saw, cross-validation, permutation importance."""
+"""Honest evaluation: scoring on rows the model never saw, cross-validation (random, stratified, ordered or
+grouped folds), permutation importance."""
 
 from __future__ import annotations
 
-import os
 from dataclasses import dataclass
 from typing import Any, Sequence
 
 import numpy as np
 
-from .errors import LengthMismatchError
+from .cell_text import cell_in_words
+from .errors import LengthMismatchError, SplitError
 from .metrics import classification_metrics, regression_metrics
 from .model import Model
+from .parallel import run_jobs
 from .preparation import fit_target, numbers_of, read_table, read_target
-from .splits import holdout_mask, k_folds
+from .splits import grouped_folds, holdout_mask, k_folds, ordered_folds
 from .training import fit
 
 
@@ -92,9 +94,62 @@ def holdout_evaluation(
     return HoldoutResult(model, held, score(model, take_rows(X, held), take_rows(y, held)))
 
 
-def _fit_and_score_fold(X: Any, y: Any, train_rows: np.ndarray, test_rows: np.ndarray, hidden: Any, seed: int, settings: dict[str, Any]) -> dict[str, Any]:
+FOLD_MODES = ("auto", "random", "stratified", "ordered", "grouped")
+
+
+def make_folds(
+    y: Any,
+    k: int = 5,
+    seed: int = 0,
+    mode: str = "auto",
+    groups: Sequence[Any] | np.ndarray | None = None,
+    task: str = "auto",
+) -> tuple[str, list[tuple[np.ndarray, np.ndarray]]]:
+    """The folds cross-validation uses, and the mode they were made by.
+
+    Modes: ``random``; ``stratified`` (each fold keeps the class mix);
+    ``ordered`` for time series (expanding window: each fold trains only on
+    rows before the rows it tests); ``grouped`` (``groups``: one label per row;
+    a group is never split between training and test rows); ``auto``:
+    grouped when ``groups`` are given, else stratified when the target is
+    learned as classes, else random.
+    """
+    if mode not in FOLD_MODES:
+        raise SplitError(f"fold mode {cell_in_words(mode)} is not known; choose one of: {', '.join(FOLD_MODES)}")
+    n = len(read_target(y))
+    if groups is not None:
+        if mode not in ("auto", "grouped"):
+            raise SplitError(f"groups were given with fold mode {mode}; use mode grouped (or auto) with groups, or leave the groups out")
+        if len(groups) != n:
+            raise LengthMismatchError(f"{len(groups)} group labels but {n} rows; give one group label per row")
+        return "grouped", grouped_folds(groups, k, seed)
+    if mode == "grouped":
+        raise SplitError("grouped folds need the groups: one label per row (like a customer or store column), given as groups=")
+    if mode == "ordered":
+        return "ordered", ordered_folds(n, k)
+    labels = _class_labels(y, task) if mode in ("auto", "stratified") else None
+    if mode == "stratified" and labels is None:
+        raise SplitError("stratified folds are for targets learned as classes; this target is learned as numbers, so use mode random")
+    return ("random" if labels is None else "stratified"), k_folds(n, k, seed, labels)
+
+
+def fit_and_score_fold(
+    X: Any, y: Any, train_rows: np.ndarray, test_rows: np.ndarray, hidden: Any, seed: int, settings: dict[str, Any]
+) -> dict[str, Any]:
+    """Train on ``train_rows``, score on ``test_rows``: one fold, a job `sheetnet.parallel` can run anywhere."""
     model = fit(take_rows(X, train_rows), take_rows(y, train_rows), hidden, seed, **settings)
     return score(model, take_rows(X, test_rows), take_rows(y, test_rows))
+
+
+def summarise_folds(scores: Sequence[dict[str, Any]]) -> tuple[dict[str, float], dict[str, float]]:
+    """Mean and standard deviation (n - 1) over folds of each scalar metric, folds where it is undefined left out."""
+    scalar = [name for name, value in scores[0].items() if isinstance(value, float)]
+    mean, spread = {}, {}
+    for name in scalar:
+        values = [f[name] for f in scores if f[name] is not None]
+        mean[name] = float(np.mean(values))
+        spread[name] = float(np.std(values, ddof=1)) if len(values) > 1 else 0.0
+    return mean, spread
 
 
 def cross_validate(
@@ -104,34 +159,46 @@ def cross_validate(
     seed: int = 0,
     hidden: int | Sequence[int] = (4,),
     workers: int | None = None,
+    *,
+    mode: str = "auto",
+    groups: Sequence[Any] | np.ndarray | None = None,
     **settings: Any,
 ) -> dict[str, Any]:
-    """k-fold cross-validation (stratified for classes): metrics per fold and their mean.
+    """k-fold cross-validation: metrics per fold, their mean and their spread.
 
-    Folds train in parallel processes, ``workers`` of them (default: one per
-    core; 1 runs them here, one after another). Returns
-    ``{"folds": [metrics, ...], "mean": {name: mean over folds}}`` with the
-    mean taken over the scalar metrics only.
+    ``mode``: see `make_folds` (``ordered`` for time series, ``groups=`` for
+    grouped rows). Every fold trains with the same ``seed``. Folds run where
+    `sheetnet.parallel` finds them fastest (``workers``: None decides, 1 runs
+    them here, N in N processes; a cluster when one is set), with the same
+    results to the last bit anywhere. Returns ``{"folds": [metrics, ...],
+    "mean": {name: mean}, "spread": {name: standard deviation}, "mode": mode,
+    "rows": [(training rows, test rows), ...]}`` over the scalar metrics.
+
+    >>> result = cross_validate(X, y, k=5, mode="ordered")   # doctest: +SKIP
+    >>> result["mean"]["rmse"], result["spread"]["rmse"]      # doctest: +SKIP
     """
-    n = len(read_target(y))
-    labels = _class_labels(y, settings.get("task", "auto"))
-    folds = k_folds(n, k, seed, labels)
+    used, folds = make_folds(y, k, seed, mode, groups, settings.get("task", "auto"))
     inner = dict(settings, workers=1)  # the cores go to the folds, not to repeats inside them
-    workers = min(workers or os.cpu_count() or 1, k)
-    if workers > 1:
-        from joblib import Parallel, delayed
-
-        scores = list(Parallel(n_jobs=workers)(delayed(_fit_and_score_fold)(X, y, tr, te, hidden, seed, inner) for tr, te in folds))
-    else:
-        scores = [_fit_and_score_fold(X, y, tr, te, hidden, seed, inner) for tr, te in folds]
-    scalar = [name for name, value in scores[0].items() if isinstance(value, float)]
-    mean = {name: float(np.mean([f[name] for f in scores if f[name] is not None])) for name in scalar}
-    return {"folds": scores, "mean": mean}
+    jobs = [(X, y, train_rows, test_rows, hidden, seed, inner) for train_rows, test_rows in folds]
+    scores = run_jobs(fit_and_score_fold, jobs, workers, "folds")
+    mean, spread = summarise_folds(scores)
+    return {"folds": scores, "mean": mean, "spread": spread, "mode": used, "rows": [(len(tr), len(te)) for tr, te in folds]}
 
 
 def _loss_for_importance(model: Model, X: Any, actual: np.ndarray) -> float:
     result = score(model, X, actual)
     return result["rmse"] if model.task == "regression" else result["log_loss"]
+
+
+def _column_rises(model: Model, columns: list[np.ndarray], j: int, actual: np.ndarray, baseline: float, repeats: int, seed: Any) -> list[float]:
+    """The loss increases of ``repeats`` shuffles of column ``j``: one job per column."""
+    rng = np.random.default_rng(seed)
+    rises = []
+    for _ in range(repeats):
+        shuffled = list(columns)
+        shuffled[j] = columns[j][rng.permutation(len(actual))]
+        rises.append(_loss_for_importance(model, _as_named(shuffled, model), actual) - baseline)
+    return rises
 
 
 def permutation_importance(
@@ -140,26 +207,26 @@ def permutation_importance(
     y: Any,
     repeats: int = 5,
     seed: int = 0,
+    workers: int | None = None,
 ) -> list[tuple[str, float, float]]:
     """How much worse the model gets when one input column is shuffled (Breiman 2001).
 
-    The loss is RMSE for regression and log-loss for classes. Returns
-    ``(column, mean increase, standard deviation over repeats)`` for each
-    input column, largest increase first.
+    The loss is RMSE for regression and log-loss for classes. Each column's
+    shuffles have a seed of their own (spawned from ``seed``), so the columns
+    run where `sheetnet.parallel` finds them fastest with the same answer.
+    Returns ``(column, mean increase, standard deviation over repeats)`` for
+    each input column, largest increase first.
     """
     actual = read_target(y)
     table = read_table(X)
-    columns = model.preparation.columns_in_order(X)
+    if len(actual) != table.n_rows:
+        raise LengthMismatchError(f"{table.n_rows} input rows but {len(actual)} target values; give one target value per row")
+    columns = list(model.preparation.columns_in_order(X))
     baseline = _loss_for_importance(model, _as_named(columns, model), actual)
-    rng = np.random.default_rng(seed)
-    results = []
-    for j, name in enumerate(model.input_names):
-        rises = []
-        for _ in range(repeats):
-            shuffled = list(columns)
-            shuffled[j] = columns[j][rng.permutation(table.n_rows)]
-            rises.append(_loss_for_importance(model, _as_named(shuffled, model), actual) - baseline)
-        results.append((name, float(np.mean(rises)), float(np.std(rises))))
+    seeds = np.random.SeedSequence(int(seed)).spawn(len(model.input_names))
+    jobs = [(model, columns, j, actual, baseline, repeats, seeds[j]) for j in range(len(model.input_names))]
+    rises = run_jobs(_column_rises, jobs, workers, "importance")
+    results = [(name, float(np.mean(r)), float(np.std(r))) for name, r in zip(model.input_names, rises)]
     return sorted(results, key=lambda item: -item[1])
 
 
