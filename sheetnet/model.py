@@ -9,6 +9,7 @@ used and the record of how each member's training ended.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from types import MappingProxyType
 from typing import Any, Mapping, Sequence
 
 import numpy as np
@@ -40,11 +41,17 @@ class Member:
     validation_epochs: Sequence[int] = ()  # epoch of each validation_curve point; empty: every epoch from 1
 
     def __post_init__(self) -> None:
+        object.__setattr__(self, "theta", _read_only(self.theta))
         for epochs, curve in (("training_epochs", self.training_curve), ("validation_epochs", self.validation_curve)):
             if not getattr(self, epochs):
                 object.__setattr__(self, epochs, range(1, len(curve) + 1))
             if len(getattr(self, epochs)) != len(curve):
                 raise ValueError(f"{epochs} has {len(getattr(self, epochs))} points but its curve {len(curve)}")  # internal invariant
+
+    def __reduce__(self) -> tuple[Any, ...]:
+        """Pickled as its fields, so `__post_init__` makes the unpickled parameters read-only again."""
+        return (Member, (self.theta, self.stopped_by, self.epochs, self.training_curve, self.validation_curve,
+                         self.best_epoch, self.training_epochs, self.validation_epochs))
 
 
 @dataclass(frozen=True, eq=False)  # arrays inside: compare models by identity
@@ -110,6 +117,7 @@ class Model:
 
     # --- prediction ------------------------------------------------------------------
     def __post_init__(self) -> None:
+        object.__setattr__(self, "settings", MappingProxyType(dict(self.settings)))  # read-only, whatever mapping was given
         layers = [network.unpack(m.theta, self.sizes) for m in self.members]
         folded = None
         if self.preparation.all_numeric:
@@ -117,6 +125,12 @@ class Model:
             folded = [network.fold_input_scaling(p, mean, scale) for p in layers]
         object.__setattr__(self, "_layers", layers)
         object.__setattr__(self, "_folded_layers", folded)  # raw numeric rows skip the scaling pass
+
+    # --- travelling: pickle, joblib and deepcopy rebuild the model from its fields ----------
+    def __reduce__(self) -> tuple[Any, ...]:
+        """Pickled as its fields (settings as a plain dict); unpickling runs `__post_init__` again, so the copy is as read-only as the original."""
+        return (_rebuilt_model, (self.preparation, self.target, self.sizes, self.activation, self.members,
+                                 self.algorithm, dict(self.settings), self.seed, self.format_version))
 
     def _member_outputs(self, X: Any) -> np.ndarray:
         """Network outputs of every member: shape (members, rows, outputs)."""
@@ -180,6 +194,19 @@ class Model:
     def out_of_range(self, X: Any) -> np.ndarray:
         """Per row, True when any numeric input lies outside the range seen in training."""
         return self.preparation.out_of_range(X)
+
+
+def _rebuilt_model(*fields: Any) -> Model:
+    return Model(*fields)
+
+
+def _read_only(theta: Any) -> np.ndarray:
+    """The parameters as a float64 vector nobody can write to (an unpickled array comes back writable)."""
+    array = np.asarray(theta, dtype=np.float64)
+    if array.flags.writeable:
+        array = array.copy()  # never freeze the caller's own array
+        array.setflags(write=False)
+    return array
 
 
 def _all_numbers(values: tuple[Any, ...]) -> bool:

@@ -23,6 +23,7 @@ import numpy as np
 from .cell_text import ERROR_VALUES, cell_in_words, label_in_words, labels_in_words, number_in_words
 from .errors import (
     BadValueError,
+    CellTypeError,
     ConstantColumnError,
     InputError,
     LengthMismatchError,
@@ -43,38 +44,76 @@ class RawTable:
     names: tuple[str, ...]
     columns: tuple[np.ndarray, ...]  # one 1-D array per column, numeric dtype or object
     named: bool  # True when the names came with the data (a DataFrame)
+    rows: int | None = None  # the row count, kept apart from the columns so a table of no columns still has its rows
+    marked_categories: tuple[str, ...] = ()  # columns the data itself marks as categories (a pandas or polars category dtype)
 
     @property
     def n_rows(self) -> int:
+        if self.rows is not None:
+            return self.rows
         return len(self.columns[0]) if self.columns else 0
 
 
+MAX_SPARSE_NOTE = "turn it into a full table first (for example with X.toarray()) when it fits in memory"
+
+
 def read_table(X: Any) -> RawTable:
-    """Split a table into named columns without interpreting the cells yet."""
+    """Split a table into named columns without interpreting the cells yet.
+
+    Takes a NumPy array, a pandas or polars DataFrame (names kept), a pandas or
+    polars Series (one column), a list of rows, a plain list (one column), or
+    any object that converts itself with ``__array__``. A SciPy sparse matrix,
+    complex numbers and ``None`` are refused with a message saying what to pass.
+    """
+    if isinstance(X, RawTable):
+        return X
+    if X is None:
+        raise InputError("no inputs were given (the table is None); pass a table of rows and columns")
+    if _is_sparse(X):
+        shape = " by ".join(str(n) for n in X.shape)
+        raise InputError(
+            f"the inputs are a sparse matrix ({shape}); sheetnet works on full tables of cells, not sparse data: {MAX_SPARSE_NOTE}"
+        )
     try:
         import pandas as pd
     except ImportError:  # pragma: no cover - pandas is a dependency
         pd = None
     if pd is not None and isinstance(X, pd.DataFrame):
         names = tuple(str(c) for c in X.columns)
-        if len(set(names)) != len(names):
-            duplicate = next(n for n in names if names.count(n) > 1)
-            raise InputError(f"the table has two columns named '{duplicate}'; give each column its own name")
-        columns = tuple(_column_array(X.iloc[:, j].to_numpy()) for j in range(X.shape[1]))
-        return RawTable(names, columns, True)
+        _check_unique(names)
+        columns = tuple(_column_array(X.iloc[:, j].to_numpy(), names[j]) for j in range(X.shape[1]))
+        marked = tuple(n for j, n in enumerate(names) if isinstance(X.iloc[:, j].dtype, pd.CategoricalDtype))
+        return RawTable(names, columns, True, int(X.shape[0]), marked)
     if pd is not None and isinstance(X, pd.Series):
-        return RawTable((str(X.name or "x1"),), (_column_array(X.to_numpy()),), X.name is not None)
+        name = str(X.name if X.name is not None else "x1")
+        marked = (name,) if isinstance(X.dtype, pd.CategoricalDtype) else ()
+        return RawTable((name,), (_column_array(X.to_numpy(), name),), X.name is not None, len(X), marked)
+    if _is_polars(X, "DataFrame"):
+        names = tuple(str(c) for c in X.columns)
+        _check_unique(names)
+        columns = tuple(_column_array(X.get_column(n).to_numpy(), n) for n in X.columns)
+        marked = tuple(str(n) for n in X.columns if _polars_category(X.get_column(n).dtype))
+        return RawTable(names, columns, True, int(X.height), marked)
+    if _is_polars(X, "Series"):
+        name = str(X.name or "x1")
+        marked = (name,) if _polars_category(X.dtype) else ()
+        return RawTable((name,), (_column_array(X.to_numpy(), name),), bool(X.name), len(X), marked)
     if isinstance(X, np.ndarray):
         array = X
+    elif not isinstance(X, (list, tuple, str)) and hasattr(X, "__array__"):
+        array = np.asarray(X)  # an array-like that converts itself (a memory map, an array of another library)
+    elif isinstance(X, str) or not hasattr(X, "__iter__"):
+        raise InputError(f"the inputs are {cell_in_words(X)}, not a table; pass a table of rows and columns (a list of rows, an array or a DataFrame)")
     else:
         rows = list(X)
         if rows and not isinstance(rows[0], (list, tuple, np.ndarray)):
             rows = [[value] for value in rows]  # a plain list is one column
-        widths = {len(r) for r in rows}
+        widths = {len(r) if isinstance(r, (list, tuple, np.ndarray)) else -1 for r in rows}
         if len(widths) > 1:
             first = len(rows[0])
-            bad = next(i for i, r in enumerate(rows) if len(r) != first)
-            raise InputError(f"row {bad + 1} has {len(rows[bad])} cells but row 1 has {first}; give every row the same number of cells")
+            bad = next(i for i, r in enumerate(rows) if not isinstance(r, (list, tuple, np.ndarray)) or len(r) != first)
+            cells = len(rows[bad]) if isinstance(rows[bad], (list, tuple, np.ndarray)) else 1
+            raise InputError(f"row {bad + 1} has {cells} cells but row 1 has {first}; give every row the same number of cells")
         array = np.empty((len(rows), widths.pop() if widths else 0), dtype=object)
         for i, r in enumerate(rows):
             array[i, :] = list(r)
@@ -83,13 +122,48 @@ def read_table(X: Any) -> RawTable:
     if array.ndim != 2:
         raise InputError(f"the inputs have {array.ndim} dimensions; pass a table of rows and columns")
     names = tuple(f"x{j + 1}" for j in range(array.shape[1]))
-    columns = tuple(_column_array(array[:, j]) for j in range(array.shape[1]))
-    return RawTable(names, columns, False)
+    columns = tuple(_column_array(array[:, j], names[j]) for j in range(array.shape[1]))
+    return RawTable(names, columns, False, int(array.shape[0]))
 
 
-def _column_array(values: np.ndarray) -> np.ndarray:
+def _check_unique(names: tuple[str, ...]) -> None:
+    if len(set(names)) != len(names):
+        duplicate = next(n for n in names if names.count(n) > 1)
+        raise InputError(f"the table has two columns named '{duplicate}'; give each column its own name")
+
+
+def _is_sparse(X: Any) -> bool:
+    try:
+        from scipy import sparse
+    except ImportError:  # pragma: no cover - SciPy is a dependency
+        return False
+    return bool(sparse.issparse(X))
+
+
+def _is_polars(X: Any, kind: str) -> bool:
+    """A polars DataFrame or Series, recognised without importing polars (an optional package)."""
+    return type(X).__module__.split(".")[0] == "polars" and type(X).__name__ == kind
+
+
+def _polars_category(dtype: Any) -> bool:
+    return str(dtype).split("(")[0] in ("Categorical", "Enum")
+
+
+DAY = np.timedelta64(1, "D")
+
+
+def _column_array(values: np.ndarray, name: str = "") -> np.ndarray:
     if values.dtype.kind in "fiub":
         return values
+    if values.dtype.kind == "c":
+        raise InputError(
+            f"column '{name}' holds complex numbers (Complex data not supported); sheetnet learns from real numbers and texts: "
+            "pass the real part, the size or the angle as columns of their own"
+        )
+    if values.dtype.kind == "m":  # durations are numbers of days, as a spreadsheet keeps them
+        return values / DAY
+    if values.dtype.kind == "M":  # as date objects (nanosecond dates would turn into bare whole numbers)
+        return values.astype("datetime64[us]").astype(object)
     if values.dtype.kind in "US":
         return values.astype(object)
     return np.asarray(values, dtype=object)
@@ -110,12 +184,31 @@ def _cell_kind(value: Any) -> str:
         return "error" if text.upper() in SPREADSHEET_ERRORS else "text"
     if isinstance(value, (datetime.date, datetime.time)):
         return "date"
+    if isinstance(value, datetime.timedelta):
+        return "number"  # a duration counts in days, as a spreadsheet keeps it
+    if isinstance(value, (dict, list, tuple, set, np.ndarray)) or isinstance(value, complex):
+        return "object"
     return "text"
+
+
+def _cell_number(value: Any) -> float:
+    if isinstance(value, datetime.timedelta):
+        return value / datetime.timedelta(days=1)
+    return float(value)
 
 
 def _bad_cell(column: str, row: int, value: Any, kind: str, numeric: bool) -> BadValueError:
     if kind == "blank":
         return BadValueError(column, row, value, "the cell is blank or not a number", "fill it in or remove the row")
+    if kind == "object":
+        if isinstance(value, complex):
+            return BadValueError(
+                column, row, value, "the cell holds a complex number (Complex data not supported)", "put a real number in the cell"
+            )
+        return CellTypeError(
+            column, row, value, f"the cell holds a {type(value).__name__}, not one value (each argument must be a string or a number)",
+            "put one number or one text in the cell",
+        )
     if kind == "error":
         return BadValueError(column, row, value, "the cell holds a spreadsheet error value", "fix the formula that produced it or remove the row")
     if kind == "date" and numeric:
@@ -155,7 +248,7 @@ def numbers_of(column: str, values: np.ndarray) -> np.ndarray:
         kind = _cell_kind(value)
         if kind != "number":
             raise _bad_cell(column, i + 1, value, kind, True)
-        result[i] = float(value)
+        result[i] = _cell_number(value)
         if not math.isfinite(result[i]):
             raise _bad_cell(column, i + 1, value, "infinite", True)
         if abs(result[i]) > MAX_NUMBER:
@@ -177,7 +270,7 @@ def texts_of(column: str, values: np.ndarray) -> np.ndarray:
     result = np.empty(len(values), dtype=object)
     for i, value in enumerate(values):
         kind = _cell_kind(value)
-        if kind in ("blank", "error"):
+        if kind in ("blank", "error", "object"):
             raise _bad_cell(column, i + 1, value, kind, False)
         result[i] = category_text(value)
     return result.astype(str)
@@ -335,7 +428,7 @@ def fit_preparation(table: RawTable, categories: Sequence[str] = ()) -> Preparat
         raise UnknownColumnError(f"'{unknown[0]}' is listed as a category column but the table has no such column ({', '.join(table.names)})")
     specs: list[InputSpec] = []
     for name, values in zip(table.names, table.columns):
-        if name in categories or looks_like_categories(values):
+        if name in categories or name in table.marked_categories or looks_like_categories(values):
             texts = texts_of(name, values)
             found = tuple(sorted(set(texts.tolist())))
             if len(found) < 2:
@@ -358,7 +451,7 @@ def planned_width(table: RawTable, categories: Sequence[str] = ()) -> int:
     """
     width = 0
     for name, values in zip(table.names, table.columns):
-        if name in categories or looks_like_categories(values):
+        if name in categories or name in table.marked_categories or looks_like_categories(values):
             width += len({category_text(v) for v in values if _cell_kind(v) not in ("blank", "error")})
         else:
             width += 1
@@ -379,6 +472,18 @@ def _warn_constant(name: str, value: str) -> None:
 
 def read_target(y: Any) -> np.ndarray:
     """The target as a 1-D array (numeric dtype or object)."""
+    if y is None:
+        raise InputError(
+            "the target is missing: training requires y to be passed, but the target y is None; pass one value or label per input row"
+        )
+    if _is_sparse(y):
+        raise InputError(f"the target is a sparse matrix; pass one column of values as a full array: {MAX_SPARSE_NOTE}")
+    if _is_polars(y, "Series"):
+        y = y.to_numpy()
+    elif _is_polars(y, "DataFrame"):
+        if y.width != 1:
+            raise InputError(f"the target has {y.width} columns; pass one column")
+        y = y.to_series().to_numpy()
     try:
         import pandas as pd
 
@@ -390,12 +495,19 @@ def read_target(y: Any) -> np.ndarray:
             y = y.iloc[:, 0].to_numpy()
     except ImportError:  # pragma: no cover
         pass
-    array = np.asarray(y) if isinstance(y, np.ndarray) else np.asarray(list(y), dtype=object)
+    if isinstance(y, np.ndarray):
+        array = y
+    elif not isinstance(y, (list, tuple, str)) and hasattr(y, "__array__"):
+        array = np.asarray(y)
+    elif isinstance(y, str) or not hasattr(y, "__iter__"):
+        raise InputError(f"the target is {cell_in_words(y)}, not a column; pass one value or label per input row")
+    else:
+        array = np.asarray(list(y), dtype=object)
     if array.ndim == 2 and array.shape[1] == 1:
         array = array[:, 0]
     if array.ndim != 1:
         raise InputError(f"the target has {array.ndim} dimensions ({' by '.join(map(str, array.shape))}); pass one column of values")
-    return _column_array(array)
+    return _column_array(array, "target")
 
 
 def _sorted_labels(values: Sequence[Any]) -> tuple[Any, ...]:
