@@ -8,6 +8,7 @@
 from .errors import SheetnetError
 from .evaluation import cross_validate, holdout_evaluation, permutation_importance, score, take_rows
 from .model import Model
+from .search import search
 from .splits import holdout_mask, k_folds
 from .training import fit
 
@@ -23,6 +24,7 @@ __all__ = [
     "k_folds",
     "permutation_importance",
     "score",
+    "search",
     "take_rows",
     "__version__",
 ]
