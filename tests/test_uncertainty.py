@@ -1,0 +1,132 @@
+"""Conformal intervals and sets cover at their level; bootstrap error bars cover a known metric at theirs."""
+
+import math
+
+import numpy as np
+import pytest
+from scipy.stats import binom
+from sklearn.datasets import make_friedman1
+
+import sheetnet
+from sheetnet import uncertainty as u
+from sheetnet.errors import InputError, SettingError
+
+TRIALS = 2000  # fresh calibration sets, one fresh row checked against each: the hits are independent Bernoulli draws
+
+
+def _binomial_band(trials, low_p, high_p, tail=1e-4):
+    """Hit shares a Binomial(trials, p) falls outside with probability below ``tail`` for any p in [low_p, high_p]."""
+    return binom.ppf(tail, trials, low_p) / trials, binom.isf(tail, trials, high_p) / trials
+
+
+@pytest.fixture(scope="module")
+def friedman_model():
+    # scikit-learn's make_friedman1 (Friedman 1991), noise 1.0: y = 10 sin(pi x1 x2) + 20 (x3 - 0.5)^2 + 10 x4 + 5 x5 + N(0, 1)
+    X, y = make_friedman1(2000, noise=1.0, random_state=12345)
+    return sheetnet.fit(X, y, (16,), seed=0)
+
+
+def test_conformal_quantile_is_the_rank_lei_et_al_give():
+    scores = [0.1, 0.4, 0.2, 0.3, 0.5, 0.9, 0.7, 0.6, 0.8]
+    assert u.conformal_quantile(scores, 0.9) == 0.9  # ceil(10 * 0.9) = 9th of 9
+    assert u.conformal_quantile(scores, 0.8) == 0.8  # ceil(10 * 0.8) = 8th
+    assert u.conformal_quantile(list(range(1, 20)), 0.9) == 18  # ceil(20 * 0.9) = 18th of 19
+    with pytest.raises(InputError, match="at least 9 rows"):
+        u.conformal_quantile(scores[:8], 0.9)
+    assert u.rows_needed(0.9) == 9 and u.rows_needed(0.95) == 19 and u.rows_needed(0.8) == 4
+
+
+def test_levels_read_from_cells():
+    assert u.read_level(None) == 0.9 and u.read_level("") == 0.9
+    assert u.read_level("95%") == pytest.approx(0.95) and u.read_level(80) == pytest.approx(0.8) and u.read_level(0.75) == 0.75
+    for bad in ("most", 100, "40%", True):
+        with pytest.raises(SettingError, match="level"):
+            u.read_level(bad)
+
+
+def test_regression_intervals_cover_friedman1_at_the_level_with_the_width_of_the_noise(friedman_model):
+    level, n = 0.9, 100
+    hits, quantiles = [], []
+    for seed in range(TRIALS):
+        X, y = make_friedman1(n + 1, noise=1.0, random_state=seed)
+        conformal = u.calibrate(friedman_model, X[:n], y[:n], level)
+        low, high = u.predict_interval(friedman_model, conformal, X[n:])
+        hits.append(low[0] <= y[n] <= high[0])
+        quantiles.append(conformal.quantile)
+    # split-conformal coverage lies in [level, level + 1/(n + 1)] (Lei et al. 2018, theorem 2.2)
+    lowest, highest = _binomial_band(TRIALS, level, level + 1 / (n + 1))
+    assert lowest <= np.mean(hits) <= highest, np.mean(hits)
+    # with noise N(0, 1) the best possible 90 % half-width is z(0.95) = 1.645 (normal quantile, from memory); the
+    # network adds its own error (test RMSE about 1.08 here), so the half-width sits a little above
+    median = float(np.median(quantiles))
+    assert 1.645 <= median <= 1.645 * 1.25, median
+
+
+def test_class_sets_cover_at_the_level():
+    rng = np.random.default_rng(7)
+    centres = np.array([[0.0, 0.0], [1.5, 0.0], [0.0, 1.5]])  # three overlapping invented classes
+
+    def draw(rows, generator):
+        labels = generator.integers(0, 3, rows)
+        return centres[labels] + generator.normal(size=(rows, 2)), labels
+
+    X, y = draw(1500, rng)
+    model = sheetnet.fit(X, y, (6,), seed=0)
+    level, n = 0.8, 60
+    hits, sizes = [], []
+    for seed in range(TRIALS):
+        Xs, ys = draw(n + 1, np.random.default_rng(1000 + seed))
+        conformal = u.calibrate(model, Xs[:n], ys[:n], level)
+        member = u.predict_sets(model, conformal, Xs[n:])[0]
+        hits.append(bool(member[list(model.classes).index(ys[n])]))
+        sizes.append(int(member.sum()))
+    lowest, highest = _binomial_band(TRIALS, level, level + 1 / (n + 1))
+    assert lowest <= np.mean(hits) <= highest, np.mean(hits)
+    assert 1.0 < np.mean(sizes) < 2.5  # overlapping classes: sometimes two are possible, rarely all three
+
+
+def test_interval_and_set_refuse_the_other_task(friedman_model):
+    conformal = u.Conformal(0.9, 100, 1.0, u.SCORES[0])
+    with pytest.raises(SettingError, match="output interval"):
+        u.predict_sets(friedman_model, conformal, np.zeros((1, 10)))
+
+
+def test_bootstrap_intervals_cover_a_known_mean_absolute_error_at_the_stated_rate():
+    # errors drawn from N(0, 2): their mean absolute value is 2 * sqrt(2 / pi) (the normal's mean absolute deviation, from memory)
+    truth = 2 * math.sqrt(2 / math.pi)
+    trials, rows, level = 400, 200, 0.9
+    covered = 0
+    for seed in range(trials):
+        errors = np.random.default_rng(seed).normal(0, 2, rows)
+        bars = u.bootstrap_intervals(lambda idx: {"mae": float(np.mean(np.abs(errors[idx])))}, rows, level, resamples=300, seed=seed)
+        low, high = bars["mae"]
+        covered += low <= truth <= high
+    # the percentile bootstrap is close to its level at 200 rows (Efron & Tibshirani 1993, ch. 13); allow the binomial spread
+    lowest, highest = _binomial_band(trials, level - 0.02, level + 0.01)
+    assert lowest <= covered / trials <= highest, covered / trials
+
+
+def test_bootstrap_states_what_it_cannot_measure():
+    with pytest.raises(InputError, match="at least 2"):
+        u.bootstrap_intervals(lambda idx: {"x": 1.0}, 1)
+    bars = u.bootstrap_intervals(lambda idx: {"steady": 1.0, "undefined": None}, 10, resamples=20)
+    assert bars == {"steady": (1.0, 1.0)}
+
+
+def test_reliability_table_by_hand():
+    table = u.reliability_table([0, 1, 1, 1, 0], [0.05, 0.15, 0.95, 0.92, 1.0], bins=10)
+    assert table == [
+        (0.0, 0.1, 1, 0.05, 0.0),
+        (0.1, 0.2, 1, 0.15, 1.0),
+        (pytest.approx(0.9), 1.0, 3, pytest.approx((0.95 + 0.92 + 1.0) / 3), pytest.approx(2 / 3)),
+    ]
+
+
+def test_metric_error_bars_surround_the_holdout_metrics(friedman_model):
+    X, y = make_friedman1(150, noise=1.0, random_state=777)
+    found = sheetnet.score(friedman_model, X, y)
+    bars = u.metric_error_bars(friedman_model, X, y, 0.9, resamples=300, seed=1)
+    for name in ("rmse", "mae", "r2"):
+        low, high = bars[name]
+        assert low < found[name] < high, name
+    assert bars == u.metric_error_bars(friedman_model, X, y, 0.9, resamples=300, seed=1)  # one seed, the same bars
