@@ -2,12 +2,20 @@
 
 A `JobBoard` holds one server's jobs and the models they trained; it knows
 nothing of HTTP, so it is tested directly. `JobBoard.submit` checks the request
-first (the number of TRAIN arguments, the model name, the workbook's names)
-and refuses a bad one with `JobRequestError` before anything is registered:
-a refused request leaves no job behind. At most ``max_running`` jobs train at
-once (`BoardFull` beyond that), and at most ``kept_finished`` finished jobs are
-remembered (the oldest are forgotten first), so memory stays bounded however
-many requests arrive.
+first (the number of TRAIN arguments, the model name by the service's rule, the
+workbook's names) and refuses a bad one with `JobRequestError` before anything
+is registered: a refused request leaves no job behind.
+
+Bounds (the numbers live in `sheetnet.limits`): at most ``max_running`` jobs
+train at once, each in a thread of its own, and at most ``max_waiting`` more
+wait their turn in the order they came (a waiting job reads ``state: running``
+with ``waiting: true``, so callers that poll until the state changes need not
+know about waiting); beyond that `BoardFull` (the server answers 429 with
+``Retry-After``). At most ``kept_finished`` finished jobs holding at most
+``kept_cells`` cells of model blocks are remembered, and ``kept_models`` models
+listed (the oldest are forgotten first), so memory stays bounded however many
+requests arrive. Cancelling wins over finishing: a job whose cancel was
+accepted ends ``cancelled``, its model neither answered nor listed.
 
 A failed job's message is the very text the TRAIN cell would show for the same
 arguments. A done job carries its model block, and the model's `Placements`
@@ -27,20 +35,19 @@ import math
 import threading
 import time
 import uuid
-from collections import OrderedDict
+from collections import OrderedDict, deque
 from dataclasses import dataclass, field
 from typing import Any, Callable, Iterable, Sequence
 
 from . import functions, service
 from .cells import Cells
 from .errors import SheetnetError
+from .limits import KEPT_JOB_CELLS, KEPT_JOBS, KEPT_MODELS, MAX_RUNNING_JOBS, MAX_WAITING_JOBS
 from .registry import BY_NAME
 from .stopping import ProgressCallback
 
-MAX_RUNNING_JOBS = 4  # trainings at the same time; each holds its table and a thread
-KEPT_JOBS = 100  # finished jobs remembered for their callers
-KEPT_MODELS = 100  # trained models listed by GET /v1/models
-CURVE_POINTS_SHOWN = 500  # the latest loss-curve points in a job's view
+CURVE_POINTS_SHOWN = 500  # the latest loss-curve points in a job's view (and all a job keeps)
+RETRY_AFTER_SECONDS = 10  # what a caller refused by a full board is told to wait
 TRAIN = BY_NAME["SHEETNET.TRAIN"]
 log = logging.getLogger(__name__)
 
@@ -52,7 +59,9 @@ class JobRequestError(SheetnetError):
 
 
 class BoardFull(SheetnetError):
-    """As many jobs are training as the board allows."""
+    """As many jobs are training and waiting as the board allows; ``retry_after``: seconds to wait."""
+
+    retry_after = RETRY_AFTER_SECONDS
 
 
 class UnknownJob(SheetnetError):
@@ -86,13 +95,16 @@ def _check_split_request(split: SplitRequest, args: list[Any]) -> None:
 
 @dataclass
 class Job:
-    """One training request and what became of it. ``state``: running, done, failed or cancelled."""
+    """One training request and what became of it. ``state``: running (``waiting`` until a trainer is free),
+    done, failed or cancelled."""
 
     id: str
     name: str
     existing_names: tuple[str, ...] | None = None
     split: SplitRequest | None = None  # the door's holdout request, when the server makes the split
     state: str = "running"
+    waiting: bool = True
+    cells: int = 0  # cells of the model block it holds
     epoch: int = 0
     epochs: int = 0
     training_loss: float | None = None
@@ -107,7 +119,7 @@ class Job:
     def view(self) -> dict[str, Any]:
         """Plain JSON types: what a caller polling the job sees."""
         return {
-            "id": self.id, "name": self.name, "state": self.state, "epoch": self.epoch, "epochs": self.epochs,
+            "id": self.id, "name": self.name, "state": self.state, "waiting": self.waiting, "epoch": self.epoch, "epochs": self.epochs,
             "training_loss": self.training_loss, "validation_loss": self.validation_loss,
             "curve": self.curve[-CURVE_POINTS_SHOWN:], "message": self.message, "result": self.result,
             "placements": self.placements,
@@ -169,17 +181,22 @@ class JobBoard:
         kept_finished: int = KEPT_JOBS,
         kept_models: int = KEPT_MODELS,
         trainer: Trainer = functions.train_block,
+        max_waiting: int = MAX_WAITING_JOBS,
+        kept_cells: int = KEPT_JOB_CELLS,
     ) -> None:
-        if max_running < 1 or kept_finished < 0 or kept_models < 0:
-            raise ValueError("max_running must be at least 1; kept_finished and kept_models at least 0")
-        self.max_running, self.kept_finished, self.kept_models = max_running, kept_finished, kept_models
+        if max_running < 1 or min(kept_finished, kept_models, max_waiting, kept_cells) < 0:
+            raise ValueError("max_running must be at least 1; kept_finished, kept_models, max_waiting and kept_cells at least 0")
+        self.max_running, self.max_waiting = max_running, max_waiting
+        self.kept_finished, self.kept_models, self.kept_cells = kept_finished, kept_models, kept_cells
         self.trainer = trainer
         self._jobs: OrderedDict[str, Job] = OrderedDict()  # in the order submitted
+        self._queue: deque[tuple[Job, list[Any]]] = deque()  # accepted, waiting for a trainer
+        self._trainers = 0  # threads training now (each takes the next waiting job when done)
         self._models: OrderedDict[str, dict[str, Any]] = OrderedDict()  # by folded name, newest last
         self._lock = threading.Lock()
 
     def submit(self, name: str, args: Sequence[Any], existing_names: Iterable[str] | None = None, split: SplitRequest | None = None) -> Job:
-        """Check the request, register a job and start training it in a thread of its own.
+        """Check the request, register a job and train it as soon as a trainer is free (at once, mostly).
 
         With ``split`` (holdout share, mode, seed, address) the server makes the holdout split and seeds
         the training exactly as every other door does (`service.train_model`); TRAIN's own split argument
@@ -192,15 +209,20 @@ class JobBoard:
             _check_split_request(split, padded)
         job = Job(uuid.uuid4().hex, name, names, split=split)
         with self._lock:
-            if self._running() >= self.max_running:
+            if self._trainers + len(self._queue) >= self.max_running + self.max_waiting:
+                waiting = f" and {len(self._queue)} are waiting" if self._queue else ""
                 raise BoardFull(
-                    f"{self.max_running} models are training already, the most this server runs at once; "
-                    "wait for one to finish or cancel one, then start again"
+                    f"{self._trainers} models are training{waiting} already, the most this server takes at once; "
+                    f"wait for one to finish (try again in {RETRY_AFTER_SECONDS} seconds) or cancel one"
                 )
             self._jobs[job.id] = job
+            self._queue.append((job, padded))
             self._forget_old_jobs()
-        thread = threading.Thread(target=self._work, args=(job, padded), daemon=True, name=f"sheetnet-job-{job.id[:8]}")
-        thread.start()
+            start = self._trainers < self.max_running
+            if start:
+                self._trainers += 1
+        if start:
+            threading.Thread(target=self._train_waiting, daemon=True, name=f"sheetnet-jobs-{job.id[:8]}").start()
         return job
 
     def get(self, job_id: str) -> Job:
@@ -211,21 +233,33 @@ class JobBoard:
         return job
 
     def cancel(self, job_id: str) -> str:
-        """Ask a job to stop; the state to report: ``cancelling`` while it still runs, else its final state."""
+        """Stop a job; the state to report: ``cancelling`` while it still trains (it then ends ``cancelled``,
+        never done), else its final state (a waiting job is cancelled at once)."""
         job = self.get(job_id)
-        job.cancel.set()
-        return "cancelling" if job.state == "running" else job.state
+        with self._lock:
+            if job.state != "running":
+                return job.state
+            job.cancel.set()
+            if not job.waiting:
+                return "cancelling"
+            self._queue = deque(entry for entry in self._queue if entry[0] is not job)
+            job.message, job.state = "the training was cancelled", "cancelled"
+            self._forget_old_jobs()
+        job.finished.set()
+        return job.state
 
     def jobs(self) -> list[Job]:
         with self._lock:
             return list(self._jobs.values())
 
     def running_count(self) -> int:
+        """Jobs training now (waiting ones not counted)."""
         with self._lock:
-            return self._running()
+            return self._trainers
 
-    def _running(self) -> int:
-        return sum(job.state == "running" for job in self._jobs.values())
+    def waiting_count(self) -> int:
+        with self._lock:
+            return len(self._queue)
 
     def models(self) -> list[dict[str, Any]]:
         """The models trained here, newest first: name, ABOUT's summary, and when (seconds since 1970)."""
@@ -234,17 +268,20 @@ class JobBoard:
 
     def _forget_old_jobs(self) -> None:
         finished = [j for j in self._jobs.values() if j.state != "running"]
-        for old in finished[: max(0, len(finished) - self.kept_finished)]:
+        held = sum(j.cells for j in finished)
+        for old in finished:
+            if len(finished) <= self.kept_finished and held <= self.kept_cells:
+                break
             del self._jobs[old.id]
+            finished = finished[1:]
+            held -= old.cells
 
-    def _remember_model(self, job: Job, block: Cells) -> None:
-        about = functions.raising(functions.about)(block)
-        with self._lock:
-            key = job.name.casefold()  # one entry per model, as a workbook holds one per name
-            self._models.pop(key, None)
-            self._models[key] = {"name": job.name, "about": finite(about), "trained": time.time()}
-            while len(self._models) > self.kept_models:
-                self._models.popitem(last=False)
+    def _remember_model(self, job: Job, about: Cells) -> None:
+        key = job.name.casefold()  # one entry per model, as a workbook holds one per name
+        self._models.pop(key, None)
+        self._models[key] = {"name": job.name, "about": finite(about), "trained": time.time()}
+        while len(self._models) > self.kept_models:
+            self._models.popitem(last=False)
 
     @staticmethod
     def _placements(job: Job, block: Cells) -> tuple[dict[str, Any] | None, str | None]:
@@ -255,14 +292,28 @@ class JobBoard:
             log.exception("training job %s: the placements could not be made", job.id)
             return None, cell_message(error)
 
+    def _train_waiting(self) -> None:
+        """One trainer: the waiting jobs in turn, until none is left."""
+        while True:
+            with self._lock:
+                if not self._queue:
+                    self._trainers -= 1
+                    return
+                job, args = self._queue.popleft()
+                job.waiting = False
+            self._work(job, args)
+
     def _work(self, job: Job, args: list[Any]) -> None:
         def progress(epoch: int, most: int, training: float, validation: float | None) -> None:
             if job.cancel.is_set():
                 raise Cancelled("the training was cancelled")
             job.epoch, job.epochs, job.training_loss, job.validation_loss = epoch, most, training, validation
             job.curve.append([epoch, finite(training), finite(validation)])
+            if len(job.curve) > 2 * CURVE_POINTS_SHOWN:  # a long training keeps only what its view shows
+                del job.curve[:-CURVE_POINTS_SHOWN]
 
         reporting: ProgressCallback = progress
+        state, message, result, placements, about = "failed", None, None, None, None
         try:
             table, target, hidden, settings, split = args
             if job.split is not None:
@@ -271,18 +322,23 @@ class JobBoard:
             else:
                 block = self.trainer(table, target, hidden, settings, split, progress=reporting)
             if job.existing_names is not None:
-                job.placements, job.message = self._placements(job, block)
-            self._remember_model(job, block)
-            job.result = finite(block)
-            job.state = "done"
+                placements, message = self._placements(job, block)
+            about = functions.raising(functions.about)(block)
+            state, result = "done", finite(block)
         except Cancelled as error:
-            job.message, job.state = str(error), "cancelled"
+            state, message = "cancelled", str(error)
         except SheetnetError as error:
-            job.message, job.state = cell_message(error), "failed"
+            message = cell_message(error)
         except Exception as error:  # a bug: reported in the job and the log, never a job left running
             log.exception("training job %s stopped on an unexpected error", job.id)
-            job.message, job.state = cell_message(error), "failed"
-        finally:
-            with self._lock:
-                self._forget_old_jobs()
-            job.finished.set()
+            message = cell_message(error)
+        with self._lock:  # the job's end and its cancel decide under one lock: a cancel accepted before wins
+            if state == "done" and job.cancel.is_set():
+                state, message, result, placements = "cancelled", "the training was cancelled", None, None
+            if state == "done" and about is not None:
+                self._remember_model(job, about)
+            job.result, job.placements, job.message = result, placements, message
+            job.cells = sum(len(row) for row in result) if result else 0
+            job.state = state
+            self._forget_old_jobs()
+        job.finished.set()

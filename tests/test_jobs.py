@@ -137,20 +137,83 @@ def test_unknown_jobs_are_refused_in_words():
         board.cancel("nope")
 
 
-def test_running_jobs_are_bounded_and_a_full_board_registers_nothing(table):
+def test_running_and_waiting_jobs_are_bounded_and_a_full_board_registers_nothing(table):
     block = functions.train(table, "spoiled", "2", "epochs=5")
     gate = Gate(block)
-    board = JobBoard(max_running=2, trainer=gate)
-    first, second = board.submit("one", [table, "spoiled"]), board.submit("two", [table, "spoiled"])
-    with pytest.raises(BoardFull, match=r"^2 models are training already, the most this server runs at once; wait for one"):
-        board.submit("three", [table, "spoiled"])
-    assert [j.id for j in board.jobs()] == [first.id, second.id] and board.running_count() == 2
+    board = JobBoard(max_running=2, max_waiting=1, trainer=gate)
+    first, second, third = (board.submit(name, [table, "spoiled"]) for name in ("one", "two", "three"))
+    for _ in range(WAIT * 20):  # the two trainers take the first two jobs; the third waits its turn
+        if not first.waiting and not second.waiting:
+            break
+        threading.Event().wait(0.05)
+    assert third.waiting and third.view()["state"] == "running" and third.view()["waiting"] is True
+    assert board.running_count() == 2 and board.waiting_count() == 1
+    with pytest.raises(BoardFull, match=r"^2 models are training and 1 are waiting already, the most this server takes at once; wait for one") as full:
+        board.submit("four", [table, "spoiled"])
+    assert full.value.retry_after == 10
+    assert [j.id for j in board.jobs()] == [first.id, second.id, third.id]
     gate.release.set()
-    assert _finish(first)["state"] == _finish(second)["state"] == "done"
-    third = board.submit("three", [table, "spoiled"])  # room again
-    assert _finish(third)["state"] == "done"
+    assert _finish(first)["state"] == _finish(second)["state"] == _finish(third)["state"] == "done"
+    assert board.running_count() == 0 and board.waiting_count() == 0
+    fourth = board.submit("four", [table, "spoiled"])  # room again
+    assert _finish(fourth)["state"] == "done"
     names = [m["name"] for m in board.models()]
-    assert names[0] == "three" and sorted(names[1:]) == ["one", "two"]  # newest first
+    assert names[0] == "four" and sorted(names[1:]) == ["one", "three", "two"]  # newest first
+
+
+def test_a_waiting_job_is_cancelled_at_once_and_never_trains(table):
+    block = functions.train(table, "spoiled", "2", "epochs=5")
+    gate = Gate(block)
+    board = JobBoard(max_running=1, max_waiting=2, trainer=gate)
+    first, second = board.submit("one", [table, "spoiled"]), board.submit("two", [table, "spoiled"])
+    assert second.waiting
+    assert board.cancel(second.id) == "cancelled" and second.finished.is_set()
+    assert board.waiting_count() == 0
+    gate.release.set()
+    assert _finish(first)["state"] == "done"
+    assert second.view()["state"] == "cancelled" and second.result is None
+    assert [m["name"] for m in board.models()] == ["one"]
+
+
+def test_cancel_wins_over_completion(table):
+    block = functions.train(table, "spoiled", "2", "epochs=5")
+    for _ in range(60):  # the trainer finishes right after the cancel was accepted, never reporting an epoch
+        gate = Gate(block)
+        board = JobBoard(max_running=1, trainer=gate)
+        job = board.submit("raced", [table, "spoiled"])
+        for _ in range(WAIT * 200):
+            if not job.waiting:
+                break
+            threading.Event().wait(0.005)
+        answer = board.cancel(job.id)
+        gate.release.set()
+        view = _finish(job)
+        assert answer == "cancelling"
+        assert view["state"] == "cancelled" and view["result"] is None and view["placements"] is None
+        assert board.models() == []
+
+
+def test_a_cancel_after_the_end_reports_the_end(table):
+    block = functions.train(table, "spoiled", "2", "epochs=5")
+    gate = Gate(block)
+    gate.release.set()
+    board = JobBoard(trainer=gate)
+    job = board.submit("quick", [table, "spoiled"])
+    _finish(job)
+    assert board.cancel(job.id) == "done" and job.view()["state"] == "done"
+
+
+def test_finished_jobs_are_forgotten_beyond_the_cells_they_may_hold(table):
+    block = functions.train(table, "spoiled", "2", "epochs=5")
+    cells = sum(len(row) for row in block)
+    gate = Gate(block)
+    gate.release.set()
+    board = JobBoard(kept_finished=100, kept_cells=3 * cells, trainer=gate)
+    ids = [board.submit(f"m{i}x", [table, "spoiled"]).id for i in range(6)]
+    for job_id in ids:
+        _finish(board.get(job_id)) if job_id in {j.id for j in board.jobs()} else None
+    assert [j.id for j in board.jobs()] == ids[-3:]
+    assert sum(j.cells for j in board.jobs()) == 3 * cells
 
 
 def test_finished_jobs_and_models_kept_are_bounded(table):
