@@ -317,12 +317,9 @@ CHECKSUM_NOTE = (
 
 def run_check(args: argparse.Namespace, out: TextIO) -> int:
     """Verify every model: intact (checksum, structure, native-formula constants and formulas) and who signed it."""
-    from .block import BlockError, decode_block
     from .keyring import trusted_keys
     from .service import MODEL_SHEET_PREFIX, constant_owner
-    from .signing import check_signature
-    from .workbook import model_names, open_book, read_model
-    from .workbook_models import changed_constants, native_formula_problems
+    from .workbook import model_names, open_book
 
     trusted = trusted_keys(args.keys)  # a damaged trust folder is refused before any model is read
     book = open_book(args.book)
@@ -338,27 +335,17 @@ def run_check(args: argparse.Namespace, out: TextIO) -> int:
             sheets.setdefault(destinations[0][0].casefold(), []).append(name)
     failed = signed = 0
     for name in sorted(names):
+        sharing = [other for group in sheets.values() if name in group for other in group if other != name]
         try:
-            block = read_model(book, name)
-            decode_block(block)
-            sharing = [other for group in sheets.values() if name in group for other in group if other != name]
-            if sharing:
-                raise BlockError(f"this model shares its hidden sheet with {', '.join(sharing)}, so one overwrote the other; train it again under its name")
-            changed = changed_constants(book, name)
-            if changed:
-                raise BlockError(f"the native-formula constants {', '.join(changed)} differ from the model block; run sheetnet formulas again or retrain")
-            problems = native_formula_problems(book, name)
-            if problems:
-                raise BlockError(f"its native formulas do not give the model's answers ({'; '.join(problems[:3])}); run sheetnet formulas again or retrain")
-            signature = check_signature(block, trusted)
+            signature = _checked_model(book, name, sharing, trusted)
         except SheetnetError as error:
             failed += 1
             out.write(f"FAILED  {name}: {error}\n")
             continue
         signed += signature.state == "trusted"
-        if signature.state == "wrong" or (args.trusted_only and signature.state != "trusted"):
+        if args.trusted_only and signature.state != "trusted":
             failed += 1
-            out.write(f"{'FAILED ' if signature.state == 'wrong' else 'REFUSED'} {name}: {signature.in_words()}\n")
+            out.write(f"REFUSED {name}: {signature.in_words()}\n")
         else:
             out.write(f"ok      {name}: intact; {signature.in_words()}\n")
     out.write(f"{len(names) - failed} of {len(names)} models verified (intact{', signed by a trusted key' if args.trusted_only else ''}); ")
@@ -366,6 +353,30 @@ def run_check(args: argparse.Namespace, out: TextIO) -> int:
     if names and signed < len(names) and not args.trusted_only:
         out.write(CHECKSUM_NOTE + "\n")
     return 1 if failed else 0
+
+
+def _checked_model(book: Any, name: str, sharing: list[str], trusted: Any) -> Any:
+    """One model's signature finding; a `BlockError` for anything else wrong. The signature is checked before the
+    native-formula constants: a forger who edits the weights can edit the constants to match."""
+    from .block import BlockError, decode_block
+    from .signing import check_signature
+    from .workbook import read_model
+    from .workbook_models import changed_constants, native_formula_problems
+
+    block = read_model(book, name)
+    decode_block(block)
+    if sharing:
+        raise BlockError(f"this model shares its hidden sheet with {', '.join(sharing)}, so one overwrote the other; train it again under its name")
+    signature = check_signature(block, trusted)
+    if signature.state == "wrong":
+        raise BlockError(signature.in_words())
+    changed = changed_constants(book, name)
+    if changed:
+        raise BlockError(f"the native-formula constants {', '.join(changed)} differ from the model block; run sheetnet formulas again or retrain")
+    problems = native_formula_problems(book, name)
+    if problems:
+        raise BlockError(f"its native formulas do not give the model's answers ({'; '.join(problems[:3])}); run sheetnet formulas again or retrain")
+    return signature
 
 
 def run_sign(args: argparse.Namespace, out: TextIO) -> int:

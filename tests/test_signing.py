@@ -1,0 +1,347 @@
+"""Signed model blocks: forgeries found, signatures kept through files and doors, key files, trust, the commands."""
+
+import functools
+import json
+import os
+from pathlib import Path
+
+import numpy as np
+import openpyxl
+import pandas as pd
+import pytest
+import sheetnet_demo
+
+import sheetnet
+from sheetnet import block, cli, functions, keyring, service
+from sheetnet.block import BlockError, BlockInfo, decode_block, encode_block
+from sheetnet.placements import placements_from_json
+from sheetnet.sheet_writer import apply_to_workbook
+from sheetnet.signing import (
+    SigningKeyError,
+    check_signature,
+    key_file_text,
+    make_key,
+    public_key_file_text,
+    read_key_text,
+    sign_block,
+)
+from sheetnet.workbook import open_book, read_model
+
+INFO = BlockInfo("output", "2026-01-01T00:00:00Z", "sheetnet test", "f" * 64, 60, 0, {"rmse": 0.25})
+DATA = Path(__file__).parent / "data"
+
+
+@functools.lru_cache(maxsize=None)
+def _model():
+    rng = np.random.default_rng(3)
+    frame = pd.DataFrame({"size": rng.normal(10, 2, 60), "kind": rng.choice(["red", "blue"], 60)})
+    y = frame["size"] * 0.5 + (frame["kind"] == "red") + rng.normal(0, 0.1, 60)
+    return frame, sheetnet.fit(frame, y, hidden=(3,), seed=1, workers=1, epochs=30)
+
+
+def _block():
+    return encode_block(_model()[1], INFO)
+
+
+ALICE = make_key("alice")
+MALLORY = make_key("mallory")
+
+
+def _resealed(cells):
+    """The checksum computed again after an edit, as the public format describes it (what a forger does)."""
+    records, _ = block._records_of([list(r) for r in cells[:-1]] + [["checksum", ""] + [""] * (block.WIDTH - 2)])
+    return [list(r) for r in cells[:-1]] + [["checksum", block.checksum(records)] + [""] * (block.WIDTH - 2)]
+
+
+def _row_of(cells, key):
+    return next(i for i, r in enumerate(cells) if r[0] == key)
+
+
+# --- signing and verifying ------------------------------------------------------------------
+
+def test_a_signed_block_is_trusted_with_its_key_and_unknown_without():
+    signed = sign_block(_block(), ALICE)
+    assert signed[-2][:3] == ["signature", "ed25519", ALICE.key_id]
+    assert signed[-1][0] == "checksum" and len(signed) == len(_block()) + 1
+    assert check_signature(signed, [MALLORY.public_key(), ALICE.public_key()]).state == "trusted"
+    found = check_signature(signed, [ALICE.public_key()])
+    assert (found.trusted_as, found.key_id) == ("alice", ALICE.key_id)
+    assert found.in_words() == f"signed by the trusted key 'alice' ({ALICE.key_id})"
+    unknown = check_signature(signed, [MALLORY.public_key()])
+    assert unknown.state == "unknown" and ALICE.key_id in unknown.in_words() and "not among your trusted keys" in unknown.in_words()
+    assert check_signature(_block(), [ALICE.public_key()]).state == "unsigned"
+    assert "accidental damage, not deliberate edits" in check_signature(_block(), []).in_words()
+
+
+def test_signing_keeps_the_model_and_signing_again_is_stable():
+    frame, model = _model()
+    signed = sign_block(_block(), ALICE)
+    decoded, info = decode_block(signed)
+    assert info == INFO
+    np.testing.assert_array_equal(decoded.predict(frame), decode_block(_block())[0].predict(frame))
+    assert sign_block(signed, ALICE) == signed  # Ed25519 signatures are deterministic (RFC 8032): nothing changes
+    by_mallory = sign_block(signed, MALLORY)  # a second signature replaces the first, never piles up
+    assert [r[0] for r in by_mallory].count("signature") == 1
+    assert check_signature(by_mallory, [ALICE.public_key()]).state == "unknown"
+
+
+def test_a_forged_block_with_edited_weights_is_wrongly_signed_or_unsigned():
+    frame, _ = _model()
+    signed = sign_block(_block(), ALICE)
+    forged = [list(r) for r in signed]
+    weights = _row_of(forged, "weights")
+    forged[weights + 1][1] = forged[weights + 1][1] + 5.0  # a first-layer weight
+    metric = _row_of(forged, "holdout_metric")
+    forged[metric][2] = 0.0001  # and a flattering holdout RMSE
+    forged = _resealed(forged)
+    decoded, info = decode_block(forged)  # the checksum passes: it detects accidents, not forgery
+    assert info.holdout_metrics["rmse"] == 0.0001
+    assert not np.allclose(decoded.predict(frame), decode_block(_block())[0].predict(frame))
+    wrong = check_signature(forged, [ALICE.public_key()])
+    assert wrong.state == "wrong" and wrong.key_id == ALICE.key_id
+    assert wrong.in_words().startswith("wrongly signed: the block was changed after the key")
+    # dropping the signature row and resealing leaves an unsigned block
+    stripped = _resealed([r for r in forged if r[0] != "signature"])
+    assert check_signature(stripped, [ALICE.public_key()]).state == "unsigned"
+    # signing the forgery with another key makes it signed by a key the reader does not trust
+    assert check_signature(sign_block(stripped, MALLORY), [ALICE.public_key()]).state == "unknown"
+
+
+def test_no_single_cell_edit_of_a_signed_block_stays_trusted_even_resealed():
+    signed = sign_block(_block(), ALICE)
+    trusted = [ALICE.public_key()]
+    seen = {"wrong": 0, "refused": 0}
+    for i, row in enumerate(signed[:-1]):
+        for j, value in enumerate(row):
+            edited = [list(r) for r in signed]
+            edited[i][j] = (value + "x" if value else 0.5) if isinstance(value, str) else value * 1.001 + 1e-9
+            try:
+                state = check_signature(_resealed(edited), trusted).state
+            except BlockError:
+                seen["refused"] += 1
+                continue
+            renamed = (i, j) == (len(signed) - 2, 0)  # 'signature' renamed: a row this sheetnet ignores, so unsigned
+            assert state == ("unsigned" if renamed else "wrong"), (i, j, value)
+            seen["wrong"] += 1
+    assert seen["wrong"] > 300 and seen["refused"] > 0
+
+
+@pytest.mark.parametrize(
+    "position, value, message",
+    [
+        (1, "rsa", "signed by a method this sheetnet does not know \\('rsa'\\)"),
+        (2, "0" * 16, "names the key '0000000000000000', which is not the id of the key it holds"),
+        (3, "zz" * 32, "signature row is damaged \\(the public key must be 64 hex digits"),
+        (4, "AB" * 64, "the signature 128, in lower case"),
+        (4, "__import__('os').system('echo hacked')", "signature row is damaged"),
+        (4, 12345.0, "signature row is damaged"),
+    ],
+)
+def test_a_tampered_signature_row_gets_a_message_at_every_door(position, value, message):
+    signed = [list(r) for r in sign_block(_block(), ALICE)]
+    row = _row_of(signed, "signature")
+    signed[row][position] = value
+    with pytest.raises(BlockError, match="checksum does not match"):  # an accident (or a careless forger): the checksum
+        check_signature(signed, [])
+    resealed = _resealed(signed)
+    for read in (decode_block, lambda cells: check_signature(cells, [ALICE.public_key()])):
+        with pytest.raises(BlockError, match=message):
+            read(resealed)
+    answer = functions.predict(resealed, _model_table())  # the cell functions answer with one message cell
+    assert len(answer) == 1 and answer[0][0].startswith("#SHEETNET! the model block") and "Traceback" not in answer[0][0]
+
+
+def test_a_signature_row_misplaced_or_in_an_older_format_is_refused():
+    signed = [list(r) for r in sign_block(_block(), ALICE)]
+    row = _row_of(signed, "signature")
+    moved = _resealed(signed[:1] + [signed[row]] + signed[1:row] + signed[row + 1:])
+    with pytest.raises(BlockError, match="signature row is repeated or not the last row before the checksum"):
+        decode_block(moved)
+    older = [list(r) for r in signed]
+    older[0][1] = 2
+    with pytest.raises(BlockError, match="format 2, which holds no signature, yet it has a signature row"):
+        decode_block(_resealed(older))
+    format_2 = json.loads((DATA / "block_format_2.json").read_text())["block"]
+    assert check_signature(format_2, []).state == "unsigned"
+    with pytest.raises(BlockError, match="older sheetnet \\(block format 2\\), which holds no signature; train it again"):
+        sign_block(format_2, ALICE)
+
+
+def _model_table():
+    frame, _ = _model()
+    return [list(frame.columns)] + frame.values.tolist()
+
+
+# --- the signature travels with the block ---------------------------------------------------
+
+def test_a_signed_block_survives_a_workbook_file_round_trip(tmp_path):
+    signed = sign_block(_block(), ALICE)
+    book = openpyxl.Workbook()
+    for row in signed:
+        book.active.append([None if v == "" else v for v in row])
+    book.save(tmp_path / "signed.xlsx")
+    again = openpyxl.load_workbook(tmp_path / "signed.xlsx")
+    again.save(tmp_path / "saved-again.xlsx")  # a second program saving it (openpyxl here) keeps it too
+    cells = [list(r) for r in openpyxl.load_workbook(tmp_path / "saved-again.xlsx").active.iter_rows(values_only=True)]
+    assert check_signature(cells, [ALICE.public_key()]).state == "trusted"
+
+
+def test_a_signed_block_survives_the_store_path_every_door_shares(tmp_path):
+    signed = sign_block(_block(), ALICE)
+    # as a spreadsheet hands cells back: whole numbers as floats, empty cells as blanks
+    as_cells = [[float(v) if isinstance(v, int) else (None if v == "" else v) for v in row] for row in signed]
+    assert functions.predict(as_cells, _model_table()) == functions.predict(_block(), _model_table())
+    assert dict(map(tuple, functions.about(as_cells)[1:]))["target"] == "output"
+    # the service's placements, through their JSON form (what the server sends the task pane and Calc), applied to a workbook
+    placements = placements_from_json(json.loads(json.dumps(service.model_placements("grades", as_cells).to_json())))
+    workbook = openpyxl.Workbook()
+    apply_to_workbook(workbook, placements)
+    workbook.save(tmp_path / "stored.xlsx")
+    stored = read_model(open_book(tmp_path / "stored.xlsx"), "grades")
+    assert check_signature(stored, [ALICE.public_key()]).state == "trusted"
+    assert stored[-2][3] == ALICE.public.hex()
+
+
+# --- key files and the key folder -----------------------------------------------------------
+
+def test_key_files_read_back_and_refuse_edits():
+    assert read_key_text(key_file_text(ALICE), "alice.key") == ALICE
+    assert read_key_text(public_key_file_text(ALICE), "alice.pub") == ALICE.public_key()
+    assert ALICE.private.hex() not in repr(ALICE)
+    text = public_key_file_text(ALICE)
+    with pytest.raises(SigningKeyError, match="alice.pub names the key id .* not the id of its public key"):
+        read_key_text(text.replace(ALICE.public.hex(), MALLORY.public.hex()), "alice.pub")
+    with pytest.raises(SigningKeyError, match="private and public keys do not belong together"):
+        read_key_text(key_file_text(ALICE).replace(ALICE.private.hex(), MALLORY.private.hex()), "alice.key")
+    with pytest.raises(SigningKeyError, match="is not a sheetnet key file"):
+        read_key_text("-----BEGIN PUBLIC KEY-----\n", "other.pem")
+    with pytest.raises(SigningKeyError, match="a line 'owner: bob' a key file does not have"):
+        read_key_text(text + "owner: bob\n", "alice.pub")
+    with pytest.raises(SigningKeyError, match="is not a key name"):
+        make_key("../alice")
+
+
+def test_the_key_folder_keeps_private_keys_private(tmp_path):
+    private, public = keyring.save_signing_key(ALICE, tmp_path / "keys")
+    assert private.stat().st_mode & 0o777 == 0o600 and (tmp_path / "keys").stat().st_mode & 0o777 == 0o700
+    assert keyring.signing_key(None, tmp_path / "keys") == ALICE
+    assert keyring.signing_key("alice", tmp_path / "keys") == ALICE
+    assert [k.name for k in keyring.trusted_keys(tmp_path / "keys")] == ["alice"]
+    with pytest.raises(SigningKeyError, match="exists already"):
+        keyring.save_signing_key(ALICE, tmp_path / "keys")
+    private.chmod(0o644)
+    with pytest.raises(SigningKeyError, match="can be read by other users of this computer; run chmod 600"):
+        keyring.signing_key("alice", tmp_path / "keys")
+    with pytest.raises(SigningKeyError, match="is a public key, which cannot sign"):
+        keyring.signing_key(str(public), tmp_path / "keys")
+
+
+def test_trusting_and_forgetting_keys(tmp_path, monkeypatch):
+    monkeypatch.setenv(keyring.KEY_FOLDER_VARIABLE, str(tmp_path / "elsewhere"))
+    assert keyring.key_folder() == tmp_path / "elsewhere"
+    trusted, path = keyring.trust_key(MALLORY.public_key(), name="colleague")
+    assert (trusted.name, path) == ("colleague", tmp_path / "elsewhere" / "trusted" / "colleague.pub")
+    assert keyring.trust_key(MALLORY.public_key())[1] is None  # trusted already, under its first name
+    with pytest.raises(SigningKeyError, match="is trusted as 'colleague' already"):
+        keyring.trust_key(ALICE.public_key(), name="Colleague")
+    assert keyring.forget_key("colleague") == path
+    assert keyring.trusted_keys() == []
+
+
+# --- the commands ---------------------------------------------------------------------------
+
+def _book_with_models(path):
+    table = sheetnet_demo.coffee_lot_grades(rows=80, seed=8)
+    book = openpyxl.Workbook()
+    book.active.title = "Lots"
+    book.active.append(list(table.columns))
+    for row in table.itertuples(index=False):
+        book.active.append(list(row))
+    book.active["J2"] = "my note"
+    book.save(path)
+    for name in ("grades", "second"):
+        assert cli.main(["train", str(path), "--table", "Lots!A1:G81", "--target", "grade", "--name", name,
+                         "--hidden", "3", "--set", "ignore=lot", "--set", "epochs=20"]) == 0
+
+
+@pytest.fixture
+def signed_book(tmp_path, capsys):
+    path = tmp_path / "lots.xlsx"
+    _book_with_models(path)
+    keys = str(tmp_path / "keys")
+    assert cli.main(["keys", "make", "alice", "--keys", keys]) == 0
+    assert cli.main(["sign", str(path), "--keys", keys, "--model", "grades"]) == 0
+    capsys.readouterr()
+    return path, keys
+
+
+def test_make_sign_and_check_from_the_command_line(signed_book, capsys, tmp_path):
+    path, keys = signed_book
+    assert cli.main(["check", str(path), "--keys", keys]) == 0
+    out = capsys.readouterr().out
+    alice = keyring.signing_key("alice", Path(keys))
+    assert f"ok      grades: intact; signed by the trusted key 'alice' ({alice.key_id})" in out
+    assert "ok      second: intact; unsigned" in out
+    assert "2 of 2 models verified (intact); 1 signed by a trusted key" in out and "accidental damage only" in out
+    assert cli.main(["check", str(path), "--keys", keys, "--trusted-only"]) == 1
+    out = capsys.readouterr().out
+    assert "REFUSED second: unsigned" in out and "1 of 2 models verified (intact, signed by a trusted key)" in out
+    assert cli.main(["sign", str(path), "--keys", keys]) == 0
+    assert capsys.readouterr().out.splitlines()[-2:] == [
+        f"already grades: by the key 'alice' ({alice.key_id})", f"signed  second: by the key 'alice' ({alice.key_id})",
+    ]
+    assert cli.main(["check", str(path), "--keys", keys, "--trusted-only"]) == 0
+    assert openpyxl.load_workbook(path)["Lots"]["J2"].value == "my note"  # the user's cells are kept
+    assert cli.main(["check", str(path), "--keys", str(tmp_path / "no-keys"), "--trusted-only"]) == 1  # someone without alice's key
+    assert "REFUSED grades: signed by a key that is not among your trusted keys" in capsys.readouterr().out
+
+
+def _write_block(sheet, cells):
+    for i, row in enumerate(cells, start=1):
+        for j, value in enumerate(row, start=1):
+            sheet.cell(i, j).value = None if value == "" else value
+
+
+def test_a_model_edited_after_signing_fails_check(signed_book, capsys):
+    path, keys = signed_book
+    book = openpyxl.load_workbook(path)
+    hidden = book["sheetnet_grades"]
+    cells = [list(r) for r in hidden.iter_rows(min_col=1, max_col=block.WIDTH, values_only=True)]
+    cells = cells[: next(i for i, r in enumerate(cells) if r[0] == "checksum") + 1]
+    weights = _row_of(cells, "weights")
+    cells[weights + 1][1] += 1.0
+    _write_block(hidden, _resealed([["" if v is None else v for v in r] for r in cells]))
+    book.save(path)
+    assert cli.main(["check", str(path), "--keys", keys]) == 1
+    out = capsys.readouterr().out
+    assert "FAILED  grades: wrongly signed: the block was changed after the key" in out
+
+
+def test_trusting_a_colleague_key_from_the_command_line(tmp_path, capsys):
+    theirs, mine = str(tmp_path / "theirs"), str(tmp_path / "mine")
+    assert cli.main(["keys", "make", "bob", "--keys", theirs, "--no-trust"]) == 0
+    assert keyring.trusted_keys(Path(theirs)) == []
+    assert cli.main(["keys", "trust", os.path.join(theirs, "bob.key"), "--keys", mine]) == 1
+    assert "is a private signing key; trust its public half" in capsys.readouterr().err
+    assert cli.main(["keys", "trust", os.path.join(theirs, "bob.pub"), "--keys", mine, "--name", "bob_at_lab"]) == 0
+    assert cli.main(["keys", "list", "--keys", mine]) == 0
+    out = capsys.readouterr().out
+    assert "now trusted" in out and "signing keys:\n  (none" in out and "bob_at_lab" in out
+    assert cli.main(["keys", "forget", "bob_at_lab", "--keys", mine]) == 0
+    assert cli.main(["sign", str(tmp_path / "none.xlsx"), "--keys", mine]) == 1
+    assert "holds 0 signing keys; name one with --key, or make one" in capsys.readouterr().err
+
+
+def test_a_tampered_signature_row_in_a_workbook_is_named_by_check(signed_book, capsys):
+    path, keys = signed_book
+    book = openpyxl.load_workbook(path)
+    hidden = book["sheetnet_grades"]
+    cells = [["" if v is None else v for v in r] for r in hidden.iter_rows(min_col=1, max_col=block.WIDTH, values_only=True)]
+    cells = cells[: next(i for i, r in enumerate(cells) if r[0] == "checksum") + 1]
+    cells[_row_of(cells, "signature")][4] = "not a signature"
+    _write_block(hidden, _resealed(cells))
+    book.save(path)
+    assert cli.main(["check", str(path), "--keys", keys]) == 1
+    captured = capsys.readouterr()
+    assert "FAILED  grades: the model block's signature row is damaged" in captured.out
+    assert "Traceback" not in captured.out + captured.err
