@@ -263,3 +263,85 @@ def test_dates_in_a_numeric_column_get_advice(shipments):
     bad = [list(r) for r in shipments[:60]]
     bad[7][1] = datetime.datetime(2026, 3, 1)
     _is_message(cellfn.train(bad, "spoiled", 3, "ignore=shipment"), "column 'transit_hours'", "row 8 of the table", "a date or time in a numeric column")
+
+
+@pytest.fixture(scope="module")
+def weeks():
+    table = sheetnet_demo.parcel_table(sheetnet_demo.depot_parcel_weeks(weeks=200, seed=5)).drop(columns="week starting")
+    return _cells(table)  # the target, next change, is the last column
+
+
+def test_predict_interval_is_the_prediction_plus_minus_the_holdout_quantile(weeks):
+    target = weeks[0][-1]
+    split = cellfn.split(weeks, 0.3, 2)
+    block = cellfn.train(weeks, target, "4", "epochs=200; interval_level=80%; repeats=2; workers=1", split)
+    answer = cellfn.predict(block, weeks, "value, interval, spread")
+    assert answer[0] == [f"predicted {target}", f"{target} low (80 % interval)", f"{target} high (80 % interval)",
+                         f"{target} lowest network", f"{target} highest network"]
+    # the stored quantile is the ceil((n + 1) * 0.8)-th smallest absolute residual over the holdout rows (Lei et al. 2018)
+    held = [i for i, mark in enumerate(split[1:], start=1) if mark[0] == "holdout"]
+    residuals = sorted(abs(weeks[i][-1] - answer[i][0]) for i in held)
+    quantile = residuals[int(np.ceil((len(held) + 1) * 0.8)) - 1]
+    for row in answer[1:]:
+        assert row[1] == pytest.approx(row[0] - quantile, abs=1e-9) and row[2] == pytest.approx(row[0] + quantile, abs=1e-9)
+        assert row[3] <= row[4]
+    inside = [answer[i][1] <= weeks[i][-1] <= answer[i][2] for i in held]
+    assert sum(inside) == int(np.ceil((len(held) + 1) * 0.8))  # the holdout rows themselves, by construction
+    about = dict(map(tuple, cellfn.about(block)[1:]))
+    assert "80 %" in about["prediction interval"] and f"{len(held)} holdout rows" in about["prediction interval"]
+    assert about["holdout rmse 80 % interval"].count(" to ") == 1
+
+
+def test_interval_without_holdout_rows_says_what_to_do(weeks):
+    block = cellfn.train(weeks[:80], weeks[0][-1], "3", "epochs=50")
+    _is_message(cellfn.predict(block, weeks[:5], "interval"), "no prediction interval", "split")
+    _is_message(cellfn.predict(block, weeks[:5], "spread"), "repeats=5")
+
+
+def test_predict_set_lists_the_classes_the_row_may_be(shipments, trained):
+    split, model = trained
+    answer = [[row[2], row[0], row[1]] for row in cellfn.predict(model, shipments, "set, probabilities")]
+    assert answer[0] == ["spoiled may be (90 % set)", "P(no)", "P(yes)"]
+    about = dict(map(tuple, cellfn.about(model)[1:]))
+    floor = float(about["prediction set"].split("probability ")[1].split(" or more")[0])
+    for row in answer[1:]:
+        expected = [label for label, p in (("no", row[1]), ("yes", row[2])) if p >= floor - 5e-4] or ["none"]
+        if abs(row[1] - floor) > 5e-4 and abs(row[2] - floor) > 5e-4:  # the floor is shown to 3 digits
+            assert row[0] == ", ".join(expected)
+    _is_message(cellfn.predict(model, shipments, "interval"), "output set")
+
+
+def test_score_with_error_bars_states_method_and_words(shipments, trained):
+    split, model = trained
+    plain = cellfn.score(model, shipments, split)
+    wide = cellfn.score(model, shipments, split, "90%")
+    assert wide[0] == ["metric", "value", "low (90 %)", "high (90 %)", "in words"]
+    by_name = {row[0]: row for row in wide[1:]}
+    for name, value in plain[1:]:
+        assert by_name[name][1] == value
+    low, high = by_name["accuracy"][2:4]
+    assert low <= by_name["accuracy"][1] <= high
+    assert by_name["balanced_accuracy"][4].startswith("Balanced accuracy ") and "%" in by_name["balanced_accuracy"][4]
+    assert "1000 resamples, seed 0" in by_name["error bars"][1] and "percentile bootstrap" in by_name["error bars"][1]
+    _is_message(cellfn.score(model, shipments, split, "120%"), "level")
+
+
+def test_groups_by_a_column_match_a_count_over_the_rows(shipments, trained):
+    split, model = trained
+    answer = cellfn.groups(model, shipments, "packaging", split)
+    header = answer[0]
+    assert header[:3] == ["packaging", "rows", "Accuracy"] and "False-positive rate" in header
+    predicted = [row[0] for row in cellfn.predict(model, shipments)[1:]]
+    column = shipments[0].index("packaging")
+    held = [i for i, mark in enumerate(split[1:]) if mark[0] == "holdout"]
+    for row in answer[1:]:
+        if row[0] in ("largest gap", "between", "positive class", "caution"):
+            continue
+        mine = [i for i in held if shipments[i + 1][column] == row[0]]
+        assert row[1] == len(mine)
+        assert row[2] == pytest.approx(np.mean([predicted[i] == shipments[i + 1][-1] for i in mine]))
+        assert row[header.index("Predicted positive rate")] == pytest.approx(np.mean([predicted[i] == "yes" for i in mine]))
+    labels = [row[0] for row in answer]
+    assert labels[-4:] == ["largest gap", "between", "positive class", "caution"] and "local law" in answer[-1][1]
+    _is_message(cellfn.groups(model, shipments, "transit_hours", split), "different values")
+    _is_message(cellfn.groups(model, shipments, "", split), "no group column")

@@ -98,7 +98,7 @@ def test_bootstrap_intervals_cover_a_known_mean_absolute_error_at_the_stated_rat
     covered = 0
     for seed in range(trials):
         errors = np.random.default_rng(seed).normal(0, 2, rows)
-        bars = u.bootstrap_intervals(lambda idx: {"mae": float(np.mean(np.abs(errors[idx])))}, rows, level, resamples=300, seed=seed)
+        bars = u.bootstrap_intervals(lambda idx, errors=errors: {"mae": float(np.mean(np.abs(errors[idx])))}, rows, level, resamples=300, seed=seed)
         low, high = bars["mae"]
         covered += low <= truth <= high
     # the percentile bootstrap is close to its level at 200 rows (Efron & Tibshirani 1993, ch. 13); allow the binomial spread
