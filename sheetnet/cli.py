@@ -243,7 +243,7 @@ def run_serve(args: argparse.Namespace, out: TextIO) -> int:
     import os
     import socket
 
-    from .server import create_app, new_token
+    from .server import create_app, new_token, server_options
 
     # Listen before announcing: a caller that finds the server file must find the port open (the Calc extension
     # starts a server and calls it as soon as the file appears).
@@ -273,7 +273,7 @@ def run_serve(args: argparse.Namespace, out: TextIO) -> int:
     own_certificate = Path(tls["ssl_certfile"]) if tls else None
     server_file = write_server_file(listening.getsockname()[1], token, scheme, certificate=own_certificate)
     try:
-        serve_forever(app, listening, host="127.0.0.1", port=args.port, **tls)
+        serve_forever(app, listening, host="127.0.0.1", port=args.port, **server_options(), **tls)  # slow sockets closed
     finally:
         remove_server_file(server_file)
         listening.close()
@@ -532,14 +532,15 @@ def build_parser() -> argparse.ArgumentParser:
     predict.add_argument("--model", required=True, help="the stored model's name")
     predict.add_argument("--table", required=True, help="the rows to predict, with a header row, like 'New!A1:E90'")
     predict.add_argument("--to", help="an empty range to write into, like 'New!H1'; default: a sheet of sheetnet's")
-    predict.add_argument("--output", default="value", help="value, probabilities, interval, flag (may be combined)")
+    predict.add_argument("--output", default="value", help="value, probabilities, interval, set, spread, flag (may be combined)")
 
     native = commands.add_parser("formulas", help="write native spreadsheet formulas that predict with no Python")
     native.add_argument("book", type=Path)
     native.add_argument("--model", required=True, help="the stored model's name")
     native.add_argument("--table", required=True, help="the rows to predict, with a header row, like 'Data!A1:E500'")
     native.add_argument("--to", help="an empty range to write into, like 'Data!H1'; default: a sheet of sheetnet's")
-    native.add_argument("--output", default="value", choices=["value", "class", "probabilities"], help="what each formula gives (default value)")
+    native.add_argument("--output", default="value", choices=["value", "class", "probabilities", "interval"],
+                        help="what each formula gives (default value; interval: the conformal low and high ends, for numbers)")
 
     xl = commands.add_parser("xl", help="prepare a workbook for desktop Excel through xlwings")
     xl_commands = xl.add_subparsers(dest="xl_command", required=True)
