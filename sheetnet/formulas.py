@@ -72,9 +72,10 @@ from .errors import ModelError
 from .model import Model
 from .network import unpack
 from .preparation import CategoryInput, NumericInput, category_text
+from .uncertainty import Conformal
 
 FORMULA_LIMIT = 8192  # characters, Excel's limit for one formula
-OUTPUTS = ("value", "class", "probabilities")
+OUTPUTS = ("value", "class", "probabilities", "interval")  # interval: column 0 the low end, 1 the high end
 ALLOWED_FUNCTIONS = frozenset(
     {"MMULT", "INDEX", "TANH", "EXP", "ABS", "SUM", "MAX", "MATCH", "IF", "NA", "ISLOGICAL", "ISNUMBER", "TRIM", "COUNT", "IFERROR"}
 )
@@ -146,8 +147,9 @@ def _rows(array: np.ndarray) -> tuple[tuple[float, ...], ...]:
     return tuple(tuple(float(v) for v in row) for row in matrix)
 
 
-def formula_constants(model: Model, model_name: str) -> list[Constant]:
-    """Every named range the native formulas of this model read."""
+def formula_constants(model: Model, model_name: str, conformal: Conformal | None = None) -> list[Constant]:
+    """Every named range the native formulas of this model read; with a regression model's
+    conformal calibration also ``interval`` (level, half-width), which the interval formulas read."""
     prefix = name_prefix(model_name)
     specs = model.preparation.inputs
     constants: list[Constant] = []
@@ -182,6 +184,8 @@ def formula_constants(model: Model, model_name: str) -> list[Constant]:
             constants.append(Constant(f"{prefix}m{m}_b{layer}", _rows(b)))
     if model.task == "regression":
         constants.append(Constant(f"{prefix}target", ((float(model.target.mean), float(model.target.scale)),)))
+        if conformal is not None:
+            constants.append(Constant(f"{prefix}interval", ((float(conformal.level), float(conformal.quantile)),)))
     else:
         constants.append(Constant(f"{prefix}classes", (tuple(_label_cell(c) for c in model.classes),)))
         constants.append(Constant(f"{prefix}threshold", ((float(model.threshold),),)))
@@ -245,19 +249,27 @@ def native_formula(model: Model, model_name: str, cells: dict[str, str], output:
     """One output cell's formula (with its leading '='); ``cells`` maps each input name to its cell.
 
     ``output``: ``value`` (the number, or the class label for classifiers),
-    ``class`` (the label) or ``probabilities`` (``column`` picks the class, from 0).
+    ``class`` (the label), ``probabilities`` (``column`` picks the class, from 0) or, for
+    numbers, ``interval`` (column 0 the low end, 1 the high end: the value minus or plus the
+    half-width in the ``interval`` constant, which needs the model's conformal calibration).
     """
     if output not in OUTPUTS:
-        raise FormulaError(f"output {cell_in_words(output)} is not known; choose value, class or probabilities")
+        raise FormulaError(f"output {cell_in_words(output)} is not known; choose value, class, probabilities or interval")
     missing = [name for name in model.input_names if name not in cells]
     if missing:
         raise FormulaError(f"no cell given for the inputs {', '.join(missing)}")
     prefix = name_prefix(model_name)
     outputs = [_member_output(model, prefix, m, cells) for m in range(1, len(model.members) + 1)]
     if model.task == "regression":
-        if output != "value":
-            raise FormulaError("this model predicts numbers; its only native output is value")
+        if output not in ("value", "interval"):
+            raise FormulaError("this model predicts numbers; its native outputs are value and interval")
         text = f"INDEX({prefix}target,1,1)+INDEX({prefix}target,1,2)*({_mean(outputs)})"
+        if output == "interval":
+            if column not in (0, 1):
+                raise FormulaError(f"an interval has 2 ends; column {column} does not exist")
+            text = f"{text}{'-' if column == 0 else '+'}INDEX({prefix}interval,1,2)"
+    elif output == "interval":
+        raise FormulaError("an interval is for models that predict numbers; for classes write the probabilities")
     elif model.task == "binary":
         positive = _mean([f"1/(1+EXP(-({o})))" for o in outputs])
         if output == "probabilities":

@@ -40,7 +40,7 @@ OWNED_MARK = "sheetnet results"  # first cell of every visible sheet sheetnet wr
 NAME_PATTERN = re.compile(r"^[A-Za-z_][A-Za-z0-9_.]{0,200}$")
 ADDRESS_LIKE = re.compile(r"^([A-Za-z]{1,3}[0-9]+|[Rr][0-9]*[Cc]?[0-9]*|[Cc][0-9]*)$")
 # what follows a model's prefix in its constants' names (see `formulas.formula_constants`)
-CONSTANT_SUFFIX = re.compile(r"_(m\d+_(W\d+n|W\d+c\d+|W\d+|b\d+)|cats\d+|target|classes|threshold)$", re.IGNORECASE)
+CONSTANT_SUFFIX = re.compile(r"_(m\d+_(W\d+n|W\d+c\d+|W\d+|b\d+)|cats\d+|target|interval|classes|threshold)$", re.IGNORECASE)
 
 
 def check_model_name(name: str) -> str:
@@ -96,12 +96,12 @@ def model_placements(name: str, block: list[list[Any]], existing_names: Iterable
     native-formula constants from column K, the defined name of the block, one name per constant.
     ``existing_names`` are the workbook's defined names now (the model's old ones are dropped)."""
     check_model_name(name)
-    model, _ = decode_block(block)
+    model, info = decode_block(block)
     sheet = model_sheet_name(name)
     cells: list[CellBlock] = [cell_block(sheet, 1, 1, block)]
     names = [NamePlacement(name, sheet, 1, 1, len(block), WIDTH)]
     row = 1
-    for constant in formula_constants(model, name):
+    for constant in formula_constants(model, name, info.conformal):
         height, width = constant.shape
         cells.append(cell_block(sheet, row, CONSTANTS_COLUMN, constant.values))
         names.append(NamePlacement(constant.name, sheet, row, CONSTANTS_COLUMN, row + height - 1, CONSTANTS_COLUMN + width - 1))
@@ -154,6 +154,11 @@ def native_formula_placements(
         raise InputError(f"the table has no column named {', '.join(repr(m) for m in missing)}; the model needs {', '.join(model.input_names)}")
     if output == "probabilities" and model.task != "regression":
         titles = [f"native P({c})" for c in model.classes]
+    elif output == "interval":
+        if info.conformal is None or model.task != "regression":
+            raise InputError("this model has no prediction interval (it needs a regression model trained with holdout rows); write output value")
+        shown = f"{info.conformal.level * 100:.3g} %"
+        titles = [f"native {info.target} low ({shown} interval)", f"native {info.target} high ({shown} interval)"]
     else:
         titles = [f"native {'class' if output == 'class' else 'predicted'} {info.target}"]
     sheet, first_column, header_row = source

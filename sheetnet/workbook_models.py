@@ -83,6 +83,8 @@ def write_native_formulas(book: Book, name: str, table_reference: str, to: str |
     model, _ = decode_block(block)
     if output == "probabilities" and model.task != "regression":
         width = len(model.classes)
+    elif output == "interval":
+        width = 2  # the low and the high end
     if to:
         target_sheet, top, left = check_empty(book, to, len(grid), width)
     else:
@@ -100,8 +102,8 @@ def write_native_formulas(book: Book, name: str, table_reference: str, to: str |
 def changed_constants(book: Book, name: str) -> list[str]:
     """Names of the model's native-formula constants whose cells differ from what its block implies."""
     stored_name = defined_name(book, name) or name
-    model, _ = decode_block(read_model(book, name))
-    expected = {c.name.casefold(): c for c in formula_constants(model, stored_name)}
+    model, info = decode_block(read_model(book, name))
+    expected = {c.name.casefold(): c for c in formula_constants(model, stored_name, info.conformal)}
     stored = {n.casefold(): n for n in service.names_of_model(stored_name, book.formulas.defined_names) if not service.same_title(n, stored_name)}
     changed = sorted(stored[k] for k in set(stored) - set(expected)) + sorted(expected[k].name for k in set(expected) - set(stored)) if stored else []
     for key in sorted(set(stored) & set(expected)):

@@ -299,3 +299,43 @@ def test_the_demo_native_column_equals_the_live_predictions(tmp_path):
             np.testing.assert_allclose(np.array(native_values, dtype=float), np.array(live_values, dtype=float), rtol=1e-9)
         else:
             assert native_values == live_values
+
+
+@needs_office
+def test_native_interval_equals_predict_interval_in_libreoffice(tmp_path):
+    """The interval's ends as native formulas (prediction minus and plus the stored conformal half-width)
+    equal PREDICT's interval output, through the service's placements as every door applies them."""
+    from sheetnet import functions, service
+    from sheetnet.sheet_writer import apply_to_workbook
+
+    frame = sheetnet_demo.parcel_table(sheetnet_demo.depot_parcel_weeks(weeks=150, seed=4)).drop(columns="week starting")
+    table = [list(frame.columns)] + frame.astype(object).values.tolist()
+    target = table[0][-1]
+    split = functions.raising(functions.split)(table, 0.3, 1)
+    block = functions.train_block(table, target, "3", "epochs=60; interval_level=85%", split)
+    book = openpyxl.Workbook()
+    data = book.active
+    data.title = "Data"
+    for row in table:
+        data.append(row)
+    apply_to_workbook(book, service.model_placements("parcels", block))
+    placements, rows = service.native_formula_placements(
+        "parcels", block, table[0], list(range(1, len(table))), ("Data", 1, 1), ("Data", 1, len(table[0]) + 2), "interval"
+    )
+    apply_to_workbook(book, placements)
+    path = tmp_path / "interval.xlsx"
+    book.save(path)
+    (converted,) = recalculate([path], tmp_path / "recalculated")
+    shown = openpyxl.load_workbook(converted, data_only=True)["Data"]
+    live = functions.predict(block, table, "interval")
+    assert [shown.cell(1, len(table[0]) + 2 + j).value for j in (0, 1)] == [f"native {target} low (85 % interval)", f"native {target} high (85 % interval)"]
+    for r in range(2, len(table) + 1):
+        got = [shown.cell(r, len(table[0]) + 2 + j).value for j in (0, 1)]
+        np.testing.assert_allclose(got, live[r - 1], rtol=1e-9)
+
+
+def test_interval_formulas_refuse_classes():
+    frame = sheetnet_demo.coffee_lot_grades(rows=60, seed=2).drop(columns="lot")
+    model = sheetnet.fit(frame.drop(columns="grade"), frame["grade"], hidden=(2,), epochs=5)
+    with pytest.raises(FormulaError, match="for models that predict numbers"):
+        native_formula(model, "net", {name: "Data!$A2" for name in model.input_names}, "interval")
