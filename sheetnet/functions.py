@@ -706,6 +706,9 @@ def about(model: Any, table: Any = None) -> Cells:
     if table is not None and not is_blank(table):
         same = data_unchanged(model, table)
         rows.append(["data since training", "unchanged" if same else "changed: retrain to use the new rows"])
+    from .signing import signature_in_words  # who signed it; whom you trust is sheetnet check's to say
+
+    rows.append(["signature", signature_in_words(as_grid(model, "model"))])
     rows.append(["caution", CAUTION])
     return [["about", "value"]] + rows
 

@@ -140,6 +140,17 @@ def check_signature(cells: Any, trusted: Sequence[PublicKey]) -> SignatureCheck:
     return SignatureCheck("unknown", found.key_id) if name is None else SignatureCheck("trusted", found.key_id, name)
 
 
+def signature_in_words(cells: Any) -> str:
+    """The signature as ABOUT shows it, without the trusted keys (a cell cannot know whom you trust:
+    `sheetnet check` does). Raises `BlockError` for a damaged block."""
+    found = check_signature(cells, ())
+    if found.state == "unsigned":
+        return "none: nothing shows who wrote this model (its checksum catches accidental damage, not deliberate edits)"
+    if found.state == "wrong":
+        return f"WRONG: the block was changed after the key {found.key_id} signed it; do not use it"
+    return f"signed by the key {found.key_id}; sheetnet check tells whether it is a key you trust"
+
+
 # --- key files --------------------------------------------------------------------------------
 
 def public_key_file_text(key: PublicKey | SigningKey) -> str:
