@@ -176,3 +176,102 @@ def test_numbers_too_large_to_scale_are_named():
         numbers_of("load", np.array([1.0, 2.0, 1e200]))
     with pytest.raises(errors.BadValueError, match=r"row 2: the number is too large"):
         numbers_of("load", np.array([1.0, -1e101], dtype=object))
+
+
+# --- input containers: each is read by rows, or refused in words ---------------------------------
+
+def _numbers(rows: int = 40) -> tuple[np.ndarray, np.ndarray]:
+    rng = np.random.default_rng(7)
+    X = rng.normal(size=(rows, 3))
+    return X, X[:, 0] - 2 * X[:, 1] + rng.normal(0, 0.1, rows)
+
+
+def test_a_polars_frame_is_read_by_rows_with_its_names():
+    pl = pytest.importorskip("polars", reason="polars is a test-only extra (pip install '.[dev]')")
+    X, y = _numbers()
+    columns = {"a": X[:, 0], "b": X[:, 1], "c": X[:, 2], "site": np.where(X[:, 2] > 0, "hill", "vale").tolist()}
+    model = sheetnet.fit(pl.DataFrame(columns), pl.Series("y", y), hidden=(3,), **FAST)
+    assert model.input_names == ("a", "b", "c", "site") and model.preparation.named
+    frame = pd.DataFrame(columns)
+    np.testing.assert_array_equal(model.predict(pl.DataFrame(columns)), sheetnet.fit(frame, y, hidden=(3,), **FAST).predict(frame))
+
+
+def test_a_polars_category_column_is_a_category_input():
+    pl = pytest.importorskip("polars", reason="polars is a test-only extra (pip install '.[dev]')")
+    frame = pl.DataFrame({"size": [1.0, 2.0, 3.0, 4.0] * 5, "kind": pl.Series(["a", "b"] * 10, dtype=pl.Categorical)})
+    prep = fit_preparation(read_table(frame))
+    assert [type(spec).__name__ for spec in prep.inputs] == ["NumericInput", "CategoryInput"]
+
+
+def test_a_sparse_matrix_is_refused_with_what_to_do():
+    from scipy import sparse
+
+    X, y = _numbers()
+    with pytest.raises(errors.InputError, match=r"the inputs are a sparse matrix \(40 by 3\); .*X\.toarray\(\)"):
+        sheetnet.fit(sparse.csr_matrix(X), y)
+    with pytest.raises(errors.InputError, match="the target is a sparse matrix"):
+        sheetnet.fit(X, sparse.csr_matrix(y.reshape(-1, 1)))
+
+
+class _OnlyArray:
+    """An array-like offering nothing but __array__ (as some other libraries' arrays do)."""
+
+    def __init__(self, values: np.ndarray) -> None:
+        self.values = values
+
+    def __array__(self, dtype=None, copy=None):
+        return self.values
+
+
+def test_an_object_offering_only_array_is_read():
+    X, y = _numbers()
+    model = sheetnet.fit(_OnlyArray(X), _OnlyArray(y), hidden=(2,), **FAST)
+    np.testing.assert_allclose(model.predict(_OnlyArray(X)), model.predict(X), rtol=1e-12)  # arrays take the folded fast path
+
+
+def test_durations_are_numbers_of_days():
+    frame = pd.DataFrame({"wait": pd.to_timedelta([12, 36, 60, 84], unit="h")})
+    (column,) = read_table(frame).columns
+    assert column.tolist() == [0.5, 1.5, 2.5, 3.5]
+    import datetime
+
+    assert numbers_of("wait", np.array([datetime.timedelta(hours=6)], dtype=object)).tolist() == [0.25]
+    with pytest.raises(errors.BadValueError, match="column 'wait', row 2: the cell is blank"):
+        numbers_of("wait", read_table(pd.DataFrame({"wait": pd.to_timedelta([1, None], unit="D")})).columns[0])
+
+
+def test_an_integer_category_dtype_is_a_category_input():
+    frame = pd.DataFrame({"grade": pd.Categorical([1, 2, 3, 1] * 5), "size": np.arange(20.0)})
+    prep = fit_preparation(read_table(frame))
+    assert prep.inputs[0].categories == ("1", "2", "3")  # type: ignore[union-attr]
+    assert planned_width(read_table(frame)) == 4
+
+
+def test_dates_of_any_resolution_stay_dates():
+    frame = pd.DataFrame({"day": pd.to_datetime(["2026-01-01", "2026-02-01", "2026-03-01", "2026-04-01"]), "n": [1.0, 2, 3, 4]})
+    with pytest.raises(errors.BadValueError, match="column 'day', row 1: a date or time in a numeric column"):
+        sheetnet.fit(frame, [1.0, 2.0, 3.5, 4.0], **FAST)
+
+
+def test_a_table_without_columns_is_reported_as_such():
+    with pytest.raises(errors.NotEnoughRowsError, match="the table has no input columns"):
+        sheetnet.fit(np.empty((12, 0)), np.arange(12.0))
+    assert read_table(pd.DataFrame(index=range(5))).n_rows == 5
+
+
+def test_a_missing_target_says_so():
+    X, _ = _numbers()
+    with pytest.raises(errors.InputError, match="the target is missing: .* the target y is None; pass one value or label per input row"):
+        sheetnet.fit(X, None)
+    with pytest.raises(errors.InputError, match="no inputs were given"):
+        sheetnet.fit(None, [1, 2, 3, 4])
+
+
+def test_complex_numbers_and_cells_holding_several_values_are_refused():
+    with pytest.raises(errors.InputError, match=r"column 'x1' holds complex numbers \(Complex data not supported\)"):
+        read_table(np.array([[1 + 2j], [3 + 0j]]))
+    X = np.arange(20.0).reshape(10, 2).astype(object)
+    X[3, 1] = {"a": 1}
+    with pytest.raises(errors.CellTypeError, match="column 'x2', row 4: the cell holds a dict, not one value") as raised:
+        sheetnet.fit(X, np.arange(10.0), **FAST)
+    assert isinstance(raised.value, TypeError)
