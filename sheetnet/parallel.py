@@ -49,6 +49,7 @@ POOL_IDLE_SECONDS = 250.0  # a little under loky's 300 s idle timeout, after whi
 # Two busy processes on two cores run each other slower (memory bandwidth, a shared cache): measured
 # 1.1-1.3x per job; the larger figure keeps the choice on the side of one process.
 CONTENTION = 1.3
+CONNECT_SECONDS = 10  # how long to wait for a cluster's scheduler to answer
 
 
 class ClusterError(SettingError):
@@ -121,7 +122,7 @@ def _client(address: str) -> Any:
             "(pip install '.[cluster]' in sheetnet's folder), or leave the cluster address out to run on this machine"
         ) from None
     try:
-        client = Client(address, timeout="10s", set_as_default=False)
+        client = Client(address, timeout=f"{CONNECT_SECONDS}s", set_as_default=False)
     except (OSError, TimeoutError, ValueError) as error:
         raise ClusterError(
             f"no Dask scheduler answered at {address} ({error}); start the scheduler (dask scheduler) and its workers, "
