@@ -345,3 +345,14 @@ def test_a_tampered_signature_row_in_a_workbook_is_named_by_check(signed_book, c
     captured = capsys.readouterr()
     assert "FAILED  grades: the model block's signature row is damaged" in captured.out
     assert "Traceback" not in captured.out + captured.err
+
+
+def test_about_shows_the_signature_in_a_cell():
+    signed = sign_block(_block(), ALICE)
+    assert dict(map(tuple, functions.about(signed)[1:]))["signature"] == (
+        f"signed by the key {ALICE.key_id}; sheetnet check tells whether it is a key you trust"
+    )
+    forged = [list(r) for r in signed]
+    forged[_row_of(forged, "holdout_metric")][2] = 0.0001
+    assert dict(map(tuple, functions.about(_resealed(forged))[1:]))["signature"].startswith("WRONG: the block was changed after the key")
+    assert "not deliberate edits" in dict(map(tuple, functions.about(_block())[1:]))["signature"]
