@@ -69,6 +69,10 @@ class BlockInfo:
     # format 3 on: bootstrap error bars of the holdout metrics, name -> (low, high), and how they were drawn
     metric_intervals: Mapping[str, tuple[float, float]] = field(default_factory=dict)
     error_bars: tuple[float, int, int] | None = None  # (level, resamples, seed) of `metric_intervals`
+    # format 3 on: metrics by group on the holdout rows, when TRAIN was given the setting group=COLUMN:
+    # the column's name, and group label -> metric name -> value (a metric undefined for a group is absent; "rows" its count)
+    group_column: str | None = None
+    group_metrics: Mapping[str, Mapping[str, float]] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -180,6 +184,10 @@ def model_records(model: Model, info: BlockInfo) -> list[Record]:
     if info.conformal is not None:
         c = info.conformal
         records.append(Record("conformal", (c.score, _round15(c.level), int(c.rows), _round15(c.quantile))))
+    if info.group_column is not None:
+        records.append(Record("group_column", (info.group_column,)))
+        for label, values in info.group_metrics.items():
+            records.extend(Record("group_metric", (label, name, _round15(value))) for name, value in values.items())
     for index, member in enumerate(model.members):
         records.append(Record("member", (index, member.stopped_by, member.epochs, member.best_epoch)))
         records.append(Record("curve", (index, "training"), _numbers_of(_sampled_curve(member.training_epochs, member.training_curve))))
@@ -255,6 +263,7 @@ def _what_is_stored(record: Record) -> tuple[str, str]:
         "weights": (f"the weights of {network}", _STEADIER),
         "member": (f"the training record of {network}", "train again"),
         "conformal": ("the prediction interval's half-width", _SCALE_DOWN.replace("that column", "the target column")),
+        "group_metric": (f"a metric of group '{first}'", _SCALE_DOWN.replace("that column", "the target column")),
         "holdout_interval": (f"the error bar of holdout metric '{first}'", _SCALE_DOWN.replace("that column", "the target column")),
     }.get(record.key, (f"the block's '{record.key}' row", "train again"))
 
@@ -592,8 +601,19 @@ def _model_of(records: list[Record], version: int) -> tuple[Model, BlockInfo]:
         conformal=_conformal_of(by_key.get("conformal", [])),
         metric_intervals=MappingProxyType(_metric_intervals_of(by_key.get("holdout_interval", []))),
         error_bars=_error_bars_of(by_key.get("error_bars", [])),
+        group_column=_text(one("group_column", 1)[0], "group column") if "group_column" in by_key else None,
+        group_metrics=MappingProxyType(_group_metrics_of(by_key.get("group_metric", []))),
     )
     return model, info
+
+
+def _group_metrics_of(found: list[Record]) -> dict[str, dict[str, float]]:
+    groups: dict[str, dict[str, float]] = {}
+    for r in found:
+        label, name, value = _fields(r, 3)
+        what = f"metric {_shown(name)} of group {_shown(label)}"
+        groups.setdefault(_text(label, "group label"), {})[_text(name, "name of a group metric")] = _number(value, what)
+    return groups
 
 
 def _conformal_of(found: list[Record]) -> Conformal | None:
