@@ -44,7 +44,7 @@ from .errors import BadValueError, CellError, InputError, ModelError, SettingErr
 from .evaluation import permutation_importance
 from .evaluation import score as score_model
 from .labels import metric_label, percent_in_words, value_in_words
-from .limits import MAX_NUMBER, check_network_size
+from .limits import MAX_NUMBER, check_answer_size, check_lag_count, check_network_size, check_ranges, range_shape
 from .metrics import ROC_AUC_LEFT_OUT, mape_left_out_reason
 from .model import Model
 from .preparation import NumericInput, fit_target, numbers_of, planned_width, read_table, read_target, task_choice_in_words
@@ -235,6 +235,7 @@ def _fingerprint(table: SheetTable, columns: list[str], rows: np.ndarray) -> str
 @cell_function
 def split(table: Any, holdout_share: Any = None, seed: Any = None, mode: Any = None) -> Cells:
     """A column as tall as the table: a header, then 'train' or 'holdout' for each data row."""
+    check_ranges(table=table)
     sheet = read_sheet_table(table)
     holdout_share, seed, mode = one_value(holdout_share, "holdout share"), one_value(seed, "seed"), one_value(mode, "split mode")
     share = 0.2 if is_blank(holdout_share) else _number_setting(holdout_share, "holdout share")
@@ -293,6 +294,7 @@ def _cache_key(*parts: Any) -> str:
 @cell_function
 def train(table: Any, target: Any, hidden: Any = None, settings: Any = None, split: Any = None) -> Cells:
     """The model block: trains on the table's rows (holdout rows of the split left out)."""
+    check_ranges(table=table, split=split, settings=settings)
     key = _cache_key(table, target, hidden, settings, split)
     if key in _train_cache:
         _train_cache.move_to_end(key)
@@ -426,8 +428,10 @@ def _parse_output(value: Any) -> list[str]:
 @cell_function
 def predict(model: Any, table: Any, output: Any = None) -> Cells:
     """As tall as the table: a header, then per row the prediction (and what `output` asks for)."""
+    check_ranges(model=model, table=table)
     decoded, info, options = _decode(model)
     wanted = _parse_output(one_value(output, "output"))
+    check_answer_size(range_shape(table)[0], 2 * len(wanted) + len(decoded.classes), "SHEETNET.PREDICT")  # an output takes at most 2 columns, or 1 a class
     sheet = read_sheet_table(table)
     sheet = _numbers_for_model(sheet, decoded, info, options, with_target=False)
     rows = _rows_used(sheet, list(decoded.input_names), options["skip_blanks"])
@@ -543,6 +547,7 @@ def score(model: Any, table: Any, split: Any = None, error_bars: Any = None) -> 
     percentile-bootstrap interval over the scored rows and a label in words, and the
     last rows state the method, resamples and seed.
     """
+    check_ranges(model=model, table=table, split=split)
     decoded, info, options = _decode(model)
     error_bars = one_value(error_bars, "error bars")
     level = None if is_blank(error_bars) or error_bars is False else read_level(None if error_bars is True else error_bars, "error-bar level")
@@ -584,6 +589,7 @@ def _with_error_bars(answer: Cells, bars: dict[str, tuple[float, float]], level:
 @cell_function
 def groups(model: Any, table: Any, group: Any, split: Any = None) -> Cells:
     """Metrics by group: one row per value of the group column, then the largest gap of each metric."""
+    check_ranges(model=model, table=table, split=split)
     from .groups import GAP_CAUTION, group_metrics
 
     decoded, info, options = _decode(model)
@@ -646,6 +652,7 @@ def _rows_scored(decoded: Model, info: BlockInfo, raw: SheetTable, options: dict
 @cell_function
 def explain(model: Any, table: Any) -> Cells:
     """Permutation importance of each input on the table's rows, largest first."""
+    check_ranges(model=model, table=table)
     decoded, info, options = _decode(model)
     sheet = _numbers_for_model(read_sheet_table(table), decoded, info, options, with_target=True)
     rows = _scored_rows(decoded, info, sheet, None, options["skip_blanks"])
@@ -671,6 +678,7 @@ def data_unchanged(model: Any, table: Any) -> bool:
 @cell_function
 def about(model: Any, table: Any = None) -> Cells:
     """A two-column summary of the model; given the table, whether its data changed since training."""
+    check_ranges(model=model, table=table)
     decoded, info, options = _decode(model)
     member = decoded.members[0]
     rows: list[list[Any]] = [
@@ -730,8 +738,10 @@ def lags(series: Any, lags: Any = None) -> Cells:
     ``lags`` is a count k (lags 1..k) or a list like ``1,2,52``. The first rows,
     which have no history yet, are blank: train with the setting blank_rows=skip.
     """
+    check_ranges(series=series)
     name, values = column_of(series, "series", len(as_grid(series, "series")) - 1)
     steps = _lag_steps(one_value(lags, "lags"), len(values))
+    check_answer_size(len(values) + 1, len(steps), "SHEETNET.LAGS")
     numbers: list[float | None] = []
     for i, value in enumerate(values):
         if is_blank(value):
@@ -756,6 +766,7 @@ def _lag_steps(lags: Any, length: int) -> list[int]:
     elif isinstance(lags, (int, float, np.number)) and not isinstance(lags, bool):
         count = _whole_number(lags, "number of lags", low=1)
         _refuse_long_lag(count, length)  # before the list of lags is made: a count may be huge
+        check_lag_count(count)
         steps = list(range(1, count + 1))
     else:
         try:
@@ -764,6 +775,7 @@ def _lag_steps(lags: Any, length: int) -> list[int]:
             raise SettingError(f"the lags {cell_in_words(lags)} are not whole numbers; {fix}") from None
         if not steps or min(steps) < 1:
             raise SettingError(f"every lag must be 1 or more; {fix}")
+        check_lag_count(len(steps))
     _refuse_long_lag(max(steps), length)
     return steps
 
