@@ -5,8 +5,10 @@ SHEETNET.TRAIN returns and what the hidden model sheet stores; DEVELOPERS.md
 documents the layout. Decoding reads numbers and texts only (nothing is
 evaluated or imported), checks the format version and a SHA-256 checksum
 over the whole content, and checks that the parts fit together, so a
-corrupted, truncated, edited or future-version block gets a clear
-`BlockError` instead of a wrong number.
+corrupted, truncated, accidentally edited or future-version block gets a
+clear `BlockError` instead of a wrong number. The checksum is no protection
+against a deliberate edit (anyone can compute it again); the optional
+signature row (format 3), verified by `sheetnet.signing`, shows who wrote a block.
 
 Layout: every row is ``[key, field, field, ...]`` padded to `WIDTH` cells. A
 row with a key starts a record; the rows below it with a blank key carry
