@@ -1,0 +1,155 @@
+"""The scikit-learn estimators: scikit-learn's own checks, and its tools (Pipeline, GridSearchCV, cross_val_score, inspection).
+
+scikit-learn's `parametrize_with_checks` (sklearn.utils.estimator_checks) runs every check of
+`check_estimator` as its own test. Small settings keep them fast: 200 epochs, a fixed decay.
+"""
+
+import inspect
+import pickle
+import warnings
+
+import numpy as np
+import pandas as pd
+import pytest
+from sklearn.exceptions import DataConversionWarning, NotFittedError
+from sklearn.inspection import partial_dependence, permutation_importance
+from sklearn.model_selection import GridSearchCV, KFold, cross_val_score
+from sklearn.pipeline import Pipeline
+from sklearn.preprocessing import StandardScaler
+from sklearn.utils.estimator_checks import parametrize_with_checks
+
+import sheetnet
+from sheetnet import errors
+from sheetnet.estimators import ESTIMATOR_SETTINGS, NotTrainedError, SheetnetClassifier, SheetnetRegressor
+from sheetnet.settings import SETTINGS
+
+QUICK = dict(epochs=200, decay=1e-4, validation_share=0)
+
+
+@parametrize_with_checks([SheetnetRegressor(hidden=(4,), **QUICK), SheetnetClassifier(hidden=(4,), **QUICK)])
+def test_scikit_learn_checks(estimator, check):
+    with warnings.catch_warnings():
+        # scikit-learn's own helpers cast NaN to integers inside some checks; that warning is theirs, not ours
+        warnings.filterwarnings("ignore", message="invalid value encountered in cast", category=RuntimeWarning)
+        check(estimator)
+
+
+def _shipments(rows: int = 120, seed: int = 3) -> tuple[pd.DataFrame, np.ndarray]:
+    """An invented table: transit hours, packaging (text) and a spoilage score."""
+    rng = np.random.default_rng(seed)
+    frame = pd.DataFrame(
+        {
+            "transit_hours": rng.uniform(5, 90, rows),
+            "door_openings": rng.integers(0, 8, rows).astype(float),
+            "packaging": rng.choice(["foam", "gel pack", "dry ice"], rows),
+        }
+    )
+    score = 0.05 * frame["transit_hours"] + 0.3 * frame["door_openings"] - 2.0 * (frame["packaging"] == "dry ice") + rng.normal(0, 0.3, rows)
+    return frame, score.to_numpy()
+
+
+def test_parameters_are_the_settings_plus_hidden_seed_and_categories():
+    names = list(inspect.signature(SheetnetRegressor).parameters)
+    assert names == ["hidden", "seed", "categories", *ESTIMATOR_SETTINGS]
+    assert set(ESTIMATOR_SETTINGS) == {s.name for s in SETTINGS} - {"task"}  # a new setting needs a parameter
+    defaults = SheetnetClassifier().get_params()
+    assert all(defaults[s.name] == s.default for s in SETTINGS if s.name != "task")
+
+
+def test_the_regressor_is_sheetnet_fit():
+    frame, y = _shipments()
+    estimator = SheetnetRegressor(hidden=(5,), seed=4, **QUICK).fit(frame, y)
+    direct = sheetnet.fit(frame, y, hidden=(5,), seed=4, task="regression", **QUICK)
+    np.testing.assert_array_equal(estimator.predict(frame), direct.predict(frame))
+    assert estimator.feature_names_in_.tolist() == ["transit_hours", "door_openings", "packaging"]
+    assert estimator.n_features_in_ == 3
+    assert estimator.score(frame, y) > 0.9
+
+
+def test_the_classifier_takes_text_labels_and_text_columns():
+    frame, y = _shipments()
+    labels = np.where(y > np.median(y), "spoiled", "fine")
+    classifier = SheetnetClassifier(hidden=(4,), **QUICK).fit(frame, labels)
+    assert classifier.classes_.tolist() == ["fine", "spoiled"]
+    probabilities = classifier.predict_proba(frame)
+    assert probabilities.shape == (120, 2)
+    np.testing.assert_allclose(probabilities.sum(axis=1), 1.0)
+    assert classifier.predict(frame).tolist() == np.asarray(classifier.classes_)[probabilities.argmax(axis=1)].tolist()
+    assert classifier.score(frame, labels) > 0.85
+
+
+def test_a_polars_table_trains_as_the_same_table_in_pandas():
+    pl = pytest.importorskip("polars", reason="polars is a test-only extra (pip install '.[dev]')")
+    frame, y = _shipments()
+    polars_frame = pl.DataFrame({name: frame[name].tolist() for name in frame.columns})
+    from_polars = SheetnetRegressor(hidden=(3,), **QUICK).fit(polars_frame, y)
+    from_pandas = SheetnetRegressor(hidden=(3,), **QUICK).fit(frame, y)
+    np.testing.assert_array_equal(from_polars.predict(polars_frame), from_pandas.predict(frame))
+    assert from_polars.feature_names_in_.tolist() == list(frame.columns)
+
+
+def test_in_a_pipeline_the_estimator_trains_on_the_scaled_rows():
+    frame, y = _shipments()
+    X = frame[["transit_hours", "door_openings"]].to_numpy()
+    pipeline = Pipeline([("scale", StandardScaler()), ("net", SheetnetRegressor(hidden=(3,), **QUICK))]).fit(X, y)
+    scaled = StandardScaler().fit_transform(X)
+    direct = sheetnet.fit(scaled, y, hidden=(3,), task="regression", **QUICK)
+    np.testing.assert_allclose(pipeline.predict(X), direct.predict(scaled), rtol=1e-12)
+
+
+def test_grid_search_picks_the_network_that_cross_validates_best():
+    frame, y = _shipments()
+    search = GridSearchCV(SheetnetRegressor(**QUICK), {"hidden": [(), (6,)], "decay": [1e-4, 50.0]}, cv=3).fit(frame, y)
+    assert search.best_params_["decay"] == 1e-4  # a decay of 50 flattens the network (common practice, no source)
+    assert len(search.cv_results_["mean_test_score"]) == 4
+    refit = SheetnetRegressor(**{**QUICK, **search.best_params_}).fit(frame, y)
+    np.testing.assert_array_equal(search.predict(frame), refit.predict(frame))
+
+
+def test_cross_val_score_equals_folds_trained_by_hand():
+    frame, y = _shipments()
+    folds = KFold(3, shuffle=True, random_state=0)
+    scores = cross_val_score(SheetnetRegressor(hidden=(3,), **QUICK), frame, y, cv=folds)
+    by_hand = []
+    for train, test in folds.split(frame):
+        model = sheetnet.fit(frame.iloc[train], y[train], hidden=(3,), task="regression", **QUICK)
+        by_hand.append(sheetnet.score(model, frame.iloc[test], y[test])["r2"])
+    np.testing.assert_allclose(scores, by_hand, rtol=1e-12)
+
+
+def test_inspection_ranks_the_column_that_matters_first():
+    rng = np.random.default_rng(5)
+    X = rng.normal(size=(150, 3))
+    y = 3 * X[:, 1] + 0.1 * rng.normal(size=150)
+    estimator = SheetnetRegressor(hidden=(3,), **QUICK).fit(X, y)
+    importance = permutation_importance(estimator, X, y, n_repeats=3, random_state=0)
+    assert importance.importances_mean.argmax() == 1
+    dependence = partial_dependence(estimator, X, [1], grid_resolution=5)
+    assert np.all(np.diff(dependence["average"][0]) > 0)  # y rises with column 2
+
+
+def test_a_fitted_estimator_pickles_and_predicts_the_same():
+    frame, y = _shipments()
+    estimator = SheetnetRegressor(hidden=(3,), **QUICK).fit(frame, y)
+    copy = pickle.loads(pickle.dumps(estimator))
+    np.testing.assert_array_equal(copy.predict(frame), estimator.predict(frame))
+
+
+def test_messages_of_the_scikit_learn_door():
+    frame, y = _shipments()
+    with pytest.raises(NotTrainedError, match="not fitted yet") as unfitted:
+        SheetnetRegressor().predict(frame)
+    assert isinstance(unfitted.value, NotFittedError) and isinstance(unfitted.value, errors.SheetnetError)
+    with pytest.raises(errors.InputError, match="X is one-dimensional; Reshape your data"):
+        SheetnetRegressor(**QUICK).fit(frame["transit_hours"], y)
+    with pytest.warns(DataConversionWarning, match="A column-vector y was passed"):
+        SheetnetRegressor(hidden=(2,), **QUICK).fit(frame, y.reshape(-1, 1))
+    trained = SheetnetRegressor(hidden=(2,), **QUICK).fit(frame, y)
+    with pytest.raises(errors.UnknownColumnError, match="The feature names should match those that were passed during fit"):
+        trained.predict(frame[["packaging", "transit_hours", "door_openings"]])
+    with pytest.raises(errors.InputError, match="Unknown label type: the target holds continuous numbers"):
+        SheetnetClassifier(**QUICK).fit(frame, y)
+    with pytest.raises(errors.InputError, match=r"requires y to be passed, but the target y is None"):
+        SheetnetClassifier(**QUICK).fit(frame, None)
+    with pytest.raises(errors.NotEnoughRowsError, match=r"needs at least 4 rows; X has 1 row \(1 sample\)"):
+        SheetnetRegressor(**QUICK).fit(frame.iloc[:1], y[:1])
