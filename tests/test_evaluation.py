@@ -6,6 +6,7 @@ from sklearn.base import BaseEstimator, RegressorMixin
 from sklearn.inspection import permutation_importance as reference_importance
 
 import sheetnet
+from sheetnet.evaluation import make_folds
 
 
 def _signal_and_noise(rng, rows=400):
@@ -87,3 +88,66 @@ def test_scores_leave_mape_out_for_a_target_that_crosses_zero(rng):
     assert found["mape"] is None and found["rmse"] > 0
     folds = sheetnet.cross_validate(X, y, k=3, hidden=(3,), workers=1, epochs=30)
     assert "mape" not in folds["mean"] and set(folds["mean"]) == {"rmse", "mae", "r2"}
+
+
+def test_ordered_folds_never_train_on_later_rows():
+    folds = make_folds(np.arange(103.0), k=4, mode="ordered")[1]
+    assert len(folds) == 4
+    for train_rows, test_rows in folds:
+        assert train_rows.max() < test_rows.min()  # every training row comes before every test row
+        np.testing.assert_array_equal(train_rows, np.arange(len(train_rows)))  # the window expands from the first row
+    tested = np.concatenate([te for _, te in folds])
+    np.testing.assert_array_equal(tested, np.arange(tested[0], 103))  # the later rows are each tested once
+    # 103 rows cut at 0, 20.6, 41.2, 61.8, 82.4, 103 (rounded): the first block only trains
+    assert [len(te) for _, te in folds] == [20, 21, 20, 21]
+
+
+def test_ordered_cross_validation_trains_each_fold_on_the_earlier_rows_only(rng):
+    X, y = _signal_and_noise(rng, 120)
+    result = sheetnet.cross_validate(X, y, k=3, hidden=(2,), workers=1, epochs=30, mode="ordered")
+    assert result["mode"] == "ordered" and result["rows"] == [(30, 30), (60, 30), (90, 30)]
+    last = sheetnet.fit(X[:90], y[:90], hidden=(2,), epochs=30)  # the third fold by hand: rows 1-90 train, 91-120 test
+    assert result["folds"][2]["rmse"] == sheetnet.score(last, X[90:], y[90:])["rmse"]
+    assert result["spread"]["rmse"] == pytest.approx(np.std([f["rmse"] for f in result["folds"]], ddof=1))
+
+
+def test_grouped_folds_never_split_a_group(rng):
+    groups = rng.choice([f"store {i}" for i in range(13)], size=300)
+    folds = make_folds(np.zeros(300), k=5, groups=groups, seed=3)[1]
+    for train_rows, test_rows in folds:
+        assert not set(groups[train_rows]) & set(groups[test_rows])
+    assert sorted(np.concatenate([te for _, te in folds]).tolist()) == list(range(300))
+    sizes = [len(te) for _, te in folds]
+    assert max(sizes) - min(sizes) <= max(np.unique(groups, return_counts=True)[1])  # dealt to the emptiest fold
+
+
+def test_grouped_cross_validation_from_groups_alone(rng):
+    X, y = _signal_and_noise(rng, 120)
+    groups = np.repeat(np.arange(8), 15)
+    result = sheetnet.cross_validate(X, y, k=4, hidden=(2,), workers=1, epochs=20, groups=groups)
+    assert result["mode"] == "grouped" and [te for _, te in result["rows"]] == [30, 30, 30, 30]
+
+
+def test_fold_modes_refuse_what_they_cannot_do():
+    with pytest.raises(sheetnet.SheetnetError, match="grouped folds need the groups"):
+        make_folds(np.zeros(20), mode="grouped")
+    with pytest.raises(sheetnet.SheetnetError, match="at least 5 different groups; the group column has 2"):
+        make_folds(np.zeros(20), groups=[1, 2] * 10)
+    with pytest.raises(sheetnet.SheetnetError, match="groups were given with fold mode ordered"):
+        make_folds(np.zeros(20), mode="ordered", groups=list(range(20)))
+    with pytest.raises(sheetnet.SheetnetError, match="blank in data row 3"):
+        make_folds(np.zeros(6), k=2, groups=["a", "b", None, "a", "b", "c"])
+    with pytest.raises(sheetnet.SheetnetError, match="fold mode 'weekly' is not known"):
+        make_folds(np.zeros(20), mode="weekly")
+    with pytest.raises(sheetnet.SheetnetError, match="need at least 12 rows"):
+        make_folds(np.zeros(11), k=5, mode="ordered")
+    with pytest.raises(sheetnet.SheetnetError, match="stratified folds are for targets learned as classes"):
+        make_folds(np.linspace(0, 1, 20), mode="stratified")
+
+
+def test_importance_columns_give_the_same_answer_in_processes(rng):
+    X, y = _signal_and_noise(rng, 200)
+    model = sheetnet.fit(X, y, hidden=(3,), seed=0, epochs=50)
+    here = sheetnet.permutation_importance(model, X, y, repeats=3, seed=4, workers=1)
+    there = sheetnet.permutation_importance(model, X, y, repeats=3, seed=4, workers=2)
+    assert here == there
