@@ -157,7 +157,7 @@ def check_answer_size(rows: int, columns: int, function: str) -> None:
     """
     if rows * columns > MAX_ANSWER_CELLS:
         raise SizeError(
-            f"{function} would answer {rows:,} rows by {columns:,} columns, {rows * columns:,} cells, more than the "
+            f"{function} would answer up to {rows * columns:,} cells ({rows:,} rows by up to {columns:,} columns), more than the "
             f"{MAX_ANSWER_CELLS:,} sheetnet returns from one cell; ask for fewer columns, or split the table into several calls"
         )
 

@@ -1,11 +1,16 @@
 """The local sheetnet server: the cell functions over HTTP for sheetnet's own Office add-in.
 
-Listens on 127.0.0.1 only. Every call needs ``Authorization: Bearer TOKEN``
-except the add-in's static files under ``/addin/`` (the task pane page reads
-the token from its address, ``#token=...``). Request bodies are limited in
-size. Every error answer, from the token gate to a cell function's refusal,
-is JSON ``{"detail": TEXT}`` built by `error_response`, with the same messages
-the cells show.
+Listens on 127.0.0.1 only and answers only requests addressed to it (``Host``
+127.0.0.1, localhost or [::1] with its port; 421 otherwise, against DNS
+rebinding). Every call needs ``Authorization: Bearer TOKEN`` except the
+add-in's static files under ``/addin/`` (the task pane page reads the token
+from its address, ``#token=...``), which take no request body. Requests are
+held to the budget of `sheetnet.limits` before anything is parsed: body size,
+cells and rows in the body, bodies held and calls answered at once (503 with
+``Retry-After`` beyond), and time to send the headers (`guarded_protocol`: the
+socket is closed) and the body (408). Every error answer, from the host check
+to a cell function's refusal, is JSON ``{"detail": TEXT}`` built by
+`error_response`, with the same messages the cells show.
 
 - ``GET /v1/functions``: the registry.
 - ``POST /v1/functions/{name}`` with ``{"args": [...]}``: ``{"result": [[...]]}``. Runs off the
@@ -16,7 +21,9 @@ the cells show.
 - ``POST /v1/placements`` with ``{"name": MODEL, "block": [[...]], "existing_names": [...]}``: what a
   door writes to store the model (`sheetnet.service.model_placements`, as JSON).
 - ``GET /v1/models``: the models this server trained, with their summaries.
-- ``/openapi.json``: the schema (token required).
+- ``/openapi.json``: the schema (token required; it declares the token as its bearer security scheme).
+
+Run it with `server_options` (uvicorn's options: the guarded protocol), as ``sheetnet serve`` does.
 """
 
 from __future__ import annotations
@@ -31,6 +38,7 @@ import threading
 from http import HTTPStatus
 from pathlib import Path
 from typing import Any, Mapping
+from urllib.parse import urlsplit
 
 from fastapi import FastAPI, HTTPException, Request
 from fastapi.exceptions import RequestValidationError
@@ -41,12 +49,15 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from . import __version__, service
 from .cells import MARKER
-from .errors import SheetnetError
+from .errors import SheetnetError, SizeError
 from .jobs import BoardFull, JobBoard, JobRequestError, SplitRequest, UnknownJob, finite
+from .limits import BODY_TIMEOUT, HEADER_TIMEOUT, MAX_BODIES_BYTES, MAX_BODY_BYTES, MAX_CALLS_AT_ONCE, check_request_body
 from .registry import BY_NAME, REGISTRY
 
-MAX_BODY_BYTES = 32 * 1024 * 1024  # about a million numeric cells
 ADDIN_FILES = Path(__file__).parent / "addin"
+LOCAL_NAMES = (b"127.0.0.1", b"localhost", b"[::1]")  # the only host names a request may address
+BUSY_RETRY_SECONDS = 1  # Retry-After of a refusal for too much at once (bodies held, calls)
+CLOSE = {"connection": "close"}  # a refusal sent before the body was read ends the connection
 # the HTTP status of each refusal sheetnet raises on purpose; any other SheetnetError is a 400
 STATUS_OF_ERROR: tuple[tuple[type[SheetnetError], int], ...] = ((UnknownJob, 404), (JobRequestError, 422), (BoardFull, 429))
 log = logging.getLogger(__name__)
@@ -111,52 +122,143 @@ def _problems(error: RequestValidationError) -> str:
     return "; ".join(dict.fromkeys(found))
 
 
-class BodyLimit:
-    """Refuses request bodies over the limit with 413, whether announced by Content-Length or not."""
+class HostCheck:
+    """Refuses (421) a request whose ``Host`` is not this server's: 127.0.0.1, localhost or [::1] with its port.
 
-    def __init__(self, app: ASGIApp, limit: int) -> None:
-        self.app, self.limit = app, limit
+    A web page on another site may make the browser connect to 127.0.0.1 under that site's name (DNS
+    rebinding); the Host header still names the site, so such a request is refused before anything else.
+    ``port``: the server's port (None: the port the connection came in on, as ASGI reports it)."""
+
+    def __init__(self, app: ASGIApp, port: int | None = None) -> None:
+        self.app, self.port = app, port
+        self._allowed: dict[tuple[str, int | None], frozenset[bytes]] = {}
+
+    def allowed(self, scheme: str, port: int | None) -> frozenset[bytes]:
+        found = self._allowed.get((scheme, port))
+        if found is None:
+            names = {name + b":" + str(port).encode() for name in LOCAL_NAMES} if port is not None else set()
+            if port is None or port == {"http": 80, "https": 443}.get(scheme):  # the default port may go unwritten
+                names.update(LOCAL_NAMES)
+            found = self._allowed[(scheme, port)] = frozenset(names)
+        return found
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] not in ("http", "websocket"):
+            await self.app(scope, receive, send)
+            return
+        port = self.port if self.port is not None else (scope.get("server") or (None, None))[1]
+        host = next((value for key, value in scope.get("headers", []) if key == b"host"), b"").lower()
+        if host not in self.allowed(scope.get("scheme", "http"), port):
+            shown = host.decode("latin-1")[:100] or "nothing"
+            refusal = error_response(
+                421,
+                f"this sheetnet server answers only requests addressed to 127.0.0.1:{port}, localhost:{port} or [::1]:{port}, "
+                f"not to '{shown}'; open the server by one of those addresses",
+                CLOSE,
+            )
+            await refusal(scope, receive, send)
+            return
+        await self.app(scope, receive, send)
+
+
+class RequestBudget:
+    """Holds every request to the server's budget (`sheetnet.limits`) before the API sees it.
+
+    In order: calls at once (503), the declared body size (413), then the body is read, counted against
+    its limit (413), the bodies held at once (503) and its time limit (408), and its cells and rows are
+    counted on the bytes (413, `limits.check_request_body`) before the API parses it once, in one piece."""
+
+    def __init__(
+        self,
+        app: ASGIApp,
+        limit: int = MAX_BODY_BYTES,
+        held_limit: int = MAX_BODIES_BYTES,
+        calls_limit: int = MAX_CALLS_AT_ONCE,
+        body_timeout: float = BODY_TIMEOUT,
+    ) -> None:
+        self.app, self.limit, self.held_limit, self.calls_limit, self.body_timeout = app, limit, held_limit, calls_limit, body_timeout
+        self.calls = self.held = 0  # only the event loop's thread changes them
 
     async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
         if scope["type"] != "http":
             await self.app(scope, receive, send)
             return
-        declared = dict(scope.get("headers", [])).get(b"content-length")
-        if declared is not None and declared.isdigit() and int(declared) > self.limit:
-            await self._too_large(scope, receive, send)
+        if self.calls >= self.calls_limit:
+            busy = f"the sheetnet server is answering {self.calls} calls already, the most it takes at once; try again in a moment"
+            await self._refuse(scope, receive, send, 503, busy, busy=True)
             return
-        # read the whole body first (it is bounded by the limit), then hand it on in one piece
-        parts, seen, more = [], 0, True
-        while more:
-            message = await receive()
-            if message["type"] != "http.request":
-                await self.app(scope, receive, send)  # a disconnect: let the app see it
-                return
-            parts.append(message.get("body", b""))
-            seen += len(parts[-1])
-            if seen > self.limit:
+        self.calls += 1
+        reserved = 0
+        try:
+            declared = dict(scope.get("headers", [])).get(b"content-length")
+            if declared is not None and declared.isdigit() and int(declared) > self.limit:
                 await self._too_large(scope, receive, send)
                 return
-            more = message.get("more_body", False)
-        body, delivered = b"".join(parts), False
+            parts: list[bytes] = []
+            seen, more = 0, True
+            try:
+                async with asyncio.timeout(self.body_timeout):
+                    while more:
+                        message = await receive()
+                        if message["type"] != "http.request":
+                            return  # the caller went away: nobody to answer
+                        parts.append(message.get("body", b""))
+                        seen += len(parts[-1])
+                        if seen > self.limit:
+                            await self._too_large(scope, receive, send)
+                            return
+                        if seen > reserved:  # bodies held at once: what this request holds counts until it is answered
+                            if self.held - reserved + seen > self.held_limit:
+                                full = "the sheetnet server is holding as many large requests as it takes at once; try again in a moment"
+                                await self._refuse(scope, receive, send, 503, full, busy=True)
+                                return
+                            self.held += seen - reserved
+                            reserved = seen
+                        more = message.get("more_body", False)
+            except TimeoutError:
+                await self._refuse(scope, receive, send, 408, f"the request body did not arrive within {self.body_timeout:g} seconds; send it in one go")
+                return
+            body = b"".join(parts)
+            del parts
+            if body:
+                try:
+                    check_request_body(body)
+                except SizeError as error:
+                    await self._refuse(scope, receive, send, 413, str(error))
+                    return
+            delivered = False
 
-        async def replay() -> Message:
-            nonlocal delivered
-            if not delivered:
-                delivered = True
-                return {"type": "http.request", "body": body, "more_body": False}
-            return await receive()
+            async def replay() -> Message:
+                nonlocal delivered
+                if not delivered:
+                    delivered = True
+                    return {"type": "http.request", "body": body, "more_body": False}
+                return await receive()
 
-        await self.app(scope, replay, send)
+            await self.app(scope, replay, send)
+        finally:
+            self.calls -= 1
+            self.held -= reserved
 
     async def _too_large(self, scope: Scope, receive: Receive, send: Send) -> None:
-        refusal = error_response(413, f"the request body is larger than {self.limit:,} bytes; send fewer cells per call")
-        await refusal(scope, receive, send)
+        await self._refuse(scope, receive, send, 413, f"the request body is larger than {self.limit:,} bytes; send fewer cells per call")
+
+    @staticmethod
+    async def _refuse(scope: Scope, receive: Receive, send: Send, status: int, detail: str, busy: bool = False) -> None:
+        headers = {**CLOSE, "retry-after": str(BUSY_RETRY_SECONDS)} if busy else CLOSE
+        await error_response(status, detail, headers)(scope, receive, send)
+
+
+def is_public(scope: Scope) -> bool:
+    """What anyone on this machine may ask without the token: the add-in's files, the start page, CORS preflights."""
+    path = scope.get("path", "")
+    return scope.get("method") == "OPTIONS" or path.startswith("/addin/") or path == "/"
 
 
 class TokenGate:
-    """Refuses every call without ``Authorization: Bearer TOKEN`` (except the add-in's static files);
-    answers CORS for our own origin only. A plain ASGI layer: it adds no per-request task or copy."""
+    """Refuses every call without ``Authorization: Bearer TOKEN`` (except the add-in's static files, which
+    take no body: one sent is refused before a byte of it is read); answers CORS for our own origin only.
+    A plain ASGI layer: it adds no per-request task or copy."""
 
     def __init__(self, app: ASGIApp, token: str, origin: str) -> None:
         self.app, self.expected, self.origin = app, f"Bearer {token}".encode(), origin.encode()
@@ -166,8 +268,11 @@ class TokenGate:
             await self.app(scope, receive, send)
             return
         headers = dict(scope.get("headers", []))
-        path = scope.get("path", "")
-        public = scope.get("method") == "OPTIONS" or path.startswith("/addin/") or path == "/"
+        public = is_public(scope)
+        if public and (headers.get(b"content-length", b"0") != b"0" or b"transfer-encoding" in headers):
+            refusal = error_response(413, "the add-in's files and the start page take no request body; send the request without one", CLOSE)
+            await refusal(scope, receive, send)
+            return
         if not public and not hmac.compare_digest(headers.get(b"authorization", b""), self.expected):
             refusal = error_response(401, "missing or wrong access token; send the header 'Authorization: Bearer TOKEN' printed by sheetnet serve")
             await refusal(scope, receive, send)
@@ -189,9 +294,71 @@ class TokenGate:
         await self.app(scope, receive, with_cors)
 
 
-def create_app(token: str, origin: str = "http://127.0.0.1", max_body: int = MAX_BODY_BYTES, jobs: JobBoard | None = None) -> FastAPI:
-    """The application; ``origin`` is where it is served from (the only origin CORS allows);
-    ``jobs`` holds the training jobs (a fresh `JobBoard` when not given; also at ``app.state.jobs``)."""
+def guarded_protocol(header_timeout: float = HEADER_TIMEOUT) -> type:
+    """uvicorn's HTTP/1.1 protocol (h11) closing a connection whose request headers take longer than
+    ``header_timeout`` seconds to arrive, counted from the connection (or the end of the previous answer)
+    to the end of the headers: a caller trickling bytes cannot hold sockets open. (uvicorn itself times
+    out only idle kept-alive connections; the body's own time limit is `RequestBudget`'s.)"""
+    import h11
+    from uvicorn.protocols.http.h11_impl import H11Protocol
+
+    class GuardedH11Protocol(H11Protocol):
+        _header_timer: asyncio.TimerHandle | None = None
+
+        def connection_made(self, transport: Any) -> None:
+            super().connection_made(transport)
+            self._start_header_clock()
+
+        def data_received(self, data: bytes) -> None:
+            super().data_received(data)
+            if self.conn.their_state is not h11.IDLE:  # the headers are in
+                self._stop_header_clock()
+
+        def on_response_complete(self) -> None:
+            super().on_response_complete()
+            if not self.transport.is_closing() and self.conn.their_state is h11.IDLE:
+                self._start_header_clock()
+
+        def connection_lost(self, exc: Exception | None) -> None:
+            self._stop_header_clock()
+            super().connection_lost(exc)
+
+        def _start_header_clock(self) -> None:
+            self._stop_header_clock()
+            self._header_timer = self.loop.call_later(header_timeout, self._headers_too_slow)
+
+        def _stop_header_clock(self) -> None:
+            if self._header_timer is not None:
+                self._header_timer.cancel()
+                self._header_timer = None
+
+        def _headers_too_slow(self) -> None:
+            self._header_timer = None
+            if self.conn.their_state is h11.IDLE and not self.transport.is_closing():
+                self.transport.close()
+
+    return GuardedH11Protocol
+
+
+def server_options(header_timeout: float = HEADER_TIMEOUT) -> dict[str, Any]:
+    """uvicorn's options for this server (``uvicorn.Config(app, **server_options(), ...)``): the guarded
+    protocol, a short keep-alive, headers of at most 16 KB."""
+    return {"http": guarded_protocol(header_timeout), "timeout_keep_alive": 5, "h11_max_incomplete_event_size": 16 * 1024}
+
+
+def create_app(
+    token: str,
+    origin: str = "http://127.0.0.1",
+    max_body: int = MAX_BODY_BYTES,
+    jobs: JobBoard | None = None,
+    body_timeout: float = BODY_TIMEOUT,
+    max_held: int = MAX_BODIES_BYTES,
+    max_calls: int = MAX_CALLS_AT_ONCE,
+) -> FastAPI:
+    """The application; ``origin`` is where it is served from (the only origin CORS allows; its port, when
+    written, the only port a request may address, else the port the connection came in on: `HostCheck`); ``jobs``
+    holds the training jobs (a fresh `JobBoard` when not given; also at ``app.state.jobs``); the rest:
+    the request budget (`RequestBudget`)."""
     if len(token) < 16:
         raise ValueError("the access token must be at least 16 characters")
     app = FastAPI(title="sheetnet local server", version=__version__, description=__doc__)
@@ -211,7 +378,8 @@ def create_app(token: str, origin: str = "http://127.0.0.1", max_body: int = MAX
 
     @app.exception_handler(SheetnetError)
     async def refused(request: Request, error: SheetnetError) -> Response:
-        return error_response(status_of(error), str(error))
+        retry = {"retry-after": str(error.retry_after)} if isinstance(error, BoardFull) else None
+        return error_response(status_of(error), str(error), retry)
 
     @app.exception_handler(Exception)
     async def broken(request: Request, error: Exception) -> Response:  # a bug: logged, answered in words
@@ -295,8 +463,20 @@ def create_app(token: str, origin: str = "http://127.0.0.1", max_body: int = MAX
         base = served_base(request.scope, origin)  # the server's own address, never the request's Host header
         return Response(addin_file_bytes(file_name, base), media_type=ADDIN_TYPES[file_name], headers=addin_headers(file_name))
 
-    app.add_middleware(BodyLimit, limit=max_body)
-    app.add_middleware(TokenGate, token=token, origin=origin)  # outermost: nothing runs before the token is checked
+    openapi = app.openapi
+
+    def openapi_with_token() -> dict[str, Any]:
+        schema = openapi()  # FastAPI's, built once and kept
+        schema.setdefault("components", {})["securitySchemes"] = {
+            "token": {"type": "http", "scheme": "bearer", "description": "the access token sheetnet serve prints (also in the task pane's address)"}
+        }
+        schema["security"] = [{"token": []}]
+        return schema
+
+    app.openapi = openapi_with_token  # type: ignore[method-assign]
+    app.add_middleware(RequestBudget, limit=max_body, held_limit=max_held, calls_limit=max_calls, body_timeout=body_timeout)
+    app.add_middleware(TokenGate, token=token, origin=origin)  # nothing is read before the token is checked
+    app.add_middleware(HostCheck, port=urlsplit(origin).port or None)  # outermost: a request for another host meets nothing
     return app
 
 

@@ -5,15 +5,19 @@ from __future__ import annotations
 import threading
 import time
 from contextlib import contextmanager
-from typing import Iterator
+from typing import Any, Iterator
 
 import uvicorn
 
+from sheetnet.server import server_options
+
 
 @contextmanager
-def serving(app) -> Iterator[str]:
-    """Yields the base address, like ``http://127.0.0.1:41234``; stops the server afterwards."""
-    running = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=0, log_level="warning"))
+def serving(app, **options: Any) -> Iterator[str]:
+    """Yields the base address, like ``http://127.0.0.1:41234``; stops the server afterwards.
+    Runs with the options ``sheetnet serve`` uses (`server.server_options`); ``options`` replace them."""
+    config = uvicorn.Config(app, host="127.0.0.1", port=0, log_level="warning", **{**server_options(), **options})
+    running = uvicorn.Server(config)
     thread = threading.Thread(target=running.run, daemon=True)
     thread.start()
     deadline = time.monotonic() + 20

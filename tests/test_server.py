@@ -69,6 +69,7 @@ def test_every_function_over_http_equals_the_python_call(client, table):
         "SHEETNET.EXPLAIN": (model, table),
         "SHEETNET.ABOUT": (model, table),
         "SHEETNET.LAGS": ([row[1:2] for row in table], 3),
+        "SHEETNET.GROUPS": (model, table, "packaging", split),
     }
     assert set(calls) == {f.name for f in REGISTRY}
     for name, args in calls.items():
@@ -196,7 +197,7 @@ def test_a_failed_job_reports_the_cells_message(client):
     assert "row 6 of the table" in status["message"]
 
 
-def test_a_full_board_refuses_new_jobs_with_429(table):
+def test_a_job_flood_is_refused_beyond_the_cap_with_retry_after_while_other_calls_stay_quick(table):
     release = threading.Event()
     block = functions.train(table, "spoiled", "2", "epochs=5")
 
@@ -204,15 +205,38 @@ def test_a_full_board_refuses_new_jobs_with_429(table):
         assert release.wait(60)
         return block
 
-    with serving(server.create_app(TOKEN, jobs=JobBoard(max_running=1, trainer=held))) as address:
+    board = JobBoard(max_running=1, max_waiting=2, trainer=held)
+    with serving(server.create_app(TOKEN, jobs=board)) as address:
         with httpx.Client(base_url=address, headers=AUTH, timeout=60) as session:
-            first = session.post("/v1/jobs", json={"name": "one", "args": [table, "spoiled"]})
-            full = session.post("/v1/jobs", json={"name": "two", "args": [table, "spoiled"]})
-            assert first.status_code == 202 and full.status_code == 429
-            assert full.json()["detail"].startswith("1 models are training already, the most this server runs at once")
+
+            def submit(i):
+                return session.post("/v1/jobs", json={"name": f"flood{i}", "args": [table, "spoiled"]})
+
+            with ThreadPoolExecutor(max_workers=10) as pool:
+                answers = list(pool.map(submit, range(60)))
+            statuses = [a.status_code for a in answers]
+            assert statuses.count(202) == 3 and statuses.count(429) == 57  # one training, two waiting: the cap
+            refused = next(a for a in answers if a.status_code == 429)
+            assert refused.headers["retry-after"] == "10"
+            assert refused.json()["detail"].startswith("1 models are training and 2 are waiting already, the most this server takes at once")
+            trainers = [t for t in threading.enumerate() if t.name.startswith("sheetnet-jobs-")]
+            assert len(trainers) == 1  # one thread for the one running job, none for the waiting ones
+            for _ in range(20):  # the flood costs the other calls nothing: each answers at once (3 ms idle; 18 s before the cap)
+                started = time.perf_counter()
+                assert session.get("/v1/functions").status_code == 200
+                assert time.perf_counter() - started < 1.0
             release.set()
-            assert _until_finished(session, first.json()["id"])["state"] == "done"
-            assert session.post("/v1/jobs", json={"name": "two", "args": [table, "spoiled"]}).status_code == 202
+            accepted = [a.json()["id"] for a in answers if a.status_code == 202]
+            assert [_until_finished(session, i)["state"] for i in accepted] == ["done"] * 3
+            assert session.post("/v1/jobs", json={"name": "again", "args": [table, "spoiled"]}).status_code == 202
+
+
+def test_a_job_with_a_name_that_is_no_model_name_is_refused(client, app, table):
+    before = len(app.state.jobs.jobs())
+    for hostile in ("<img src=x onerror=alert(1)>", "a b", "A1", "x" * 300, ""):
+        answer = client.post("/v1/jobs", json={"name": hostile, "args": [table, "spoiled"]})
+        assert answer.status_code == 400 and "cannot be a model name" in answer.json()["detail"], hostile
+    assert len(app.state.jobs.jobs()) == before
 
 
 def test_unknown_jobs_answer_404(client):
@@ -229,7 +253,7 @@ def test_placements_are_the_services_answer(client, table):
     answer = client.post("/v1/placements", json={"name": "shipments", "block": block, "existing_names": names})
     assert answer.status_code == 200
     assert answer.json() == service.model_placements("shipments", block, names).to_json()
-    assert answer.json()["sheets"] == [{"title": "sheetnet_shipments", "visibility": "veryHidden"}]
+    assert {"title": "sheetnet_shipments", "visibility": "veryHidden"} in answer.json()["sheets"]
     without = client.post("/v1/placements", json={"name": "shipments", "block": block}).json()
     assert without["drop_names"] == [] and without["names"] == answer.json()["names"]
 
@@ -301,9 +325,13 @@ def test_a_training_job_can_be_cancelled(client):
     assert status["state"] == "cancelled" and status["message"] == "the training was cancelled"
 
 
-def test_the_schema_is_published(client):
+def test_the_schema_is_published_with_the_token_as_its_security_scheme(client):
     schema = client.get("/openapi.json").json()
     assert {"/v1/functions", "/v1/functions/{name}", "/v1/jobs", "/v1/jobs/{job_id}", "/v1/models", "/v1/placements"} <= set(schema["paths"])
+    assert schema["components"]["securitySchemes"]["token"]["type"] == "http"
+    assert schema["components"]["securitySchemes"]["token"]["scheme"] == "bearer"
+    assert schema["security"] == [{"token": []}]
+    assert client.get("/openapi.json").json() == schema  # built once, the same every time
 
 
 def test_serve_listens_on_loopback_only(monkeypatch, capsys):
@@ -312,6 +340,7 @@ def test_serve_listens_on_loopback_only(monkeypatch, capsys):
     monkeypatch.setenv("SHEETNET_TOKEN", TOKEN)
     assert cli.main(["serve", "--port", "8799"]) == 0
     assert seen["host"] == "127.0.0.1" and seen["port"] == 8799
+    assert seen["http"].__name__ == "GuardedH11Protocol" and seen["timeout_keep_alive"] == 5  # slow sockets are closed
     assert seen["bound"] == ("127.0.0.1", 8799)  # the socket is bound (and listening) before the server file is written
     out = capsys.readouterr().out
     assert out.count(TOKEN) == 2  # printed once as the token, once inside the task pane address
