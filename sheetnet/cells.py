@@ -12,7 +12,10 @@ row 2.
 from __future__ import annotations
 
 import datetime
+import functools
+import hashlib
 import itertools
+import marshal
 import math
 import re
 from dataclasses import dataclass
@@ -21,6 +24,7 @@ from typing import Any, Sequence
 import numpy as np
 import pandas as pd
 
+from .block import _canonical
 from .cell_text import ERROR_VALUES, cell_in_words
 from .errors import BadValueError, InputError, SettingError, UnknownColumnError
 from .limits import MAX_LAYERS
@@ -95,57 +99,159 @@ def _check_cell_types(rows: list[list[Any]], what: str, types: set[type] | None 
                 raise InputError(f"{place} holds {cell_in_words(value)}; pass numbers, text, dates or TRUE/FALSE")
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class SheetTable:
-    """A table read from a range: named columns and which rows hold data."""
+    """A table read from a range: named columns and which rows hold data.
 
-    frame: pd.DataFrame  # data rows only (blank rows dropped), columns by name, object dtype
-    data_rows: np.ndarray  # for each frame row, its index among the range's data rows (0 = row 2)
+    Columns are NumPy arrays over the data rows (blank rows dropped): float64
+    where every cell is a number or blank (blanks as NaN), else object arrays of
+    cleaned cells (texts stripped, blanks as None). ``frame`` gives them as a
+    DataFrame, built on first use only, so the number-only paths never meet pandas.
+    """
+
+    columns: dict[str, np.ndarray]  # by name, in the range's order
+    data_rows: np.ndarray  # for each data row kept, its index among the range's data rows (0 = row 2)
     n_rows: int  # data rows in the range, blank ones included (the height of per-row answers)
 
+    @functools.cached_property
+    def frame(self) -> pd.DataFrame:
+        """The columns as a DataFrame: number columns as float64, the others with object dtype (texts stay Python texts)."""
+        names = list(self.columns)
+        numbers = [name for name in names if self.columns[name].dtype.kind == "f"]
+        others = [name for name in names if self.columns[name].dtype.kind != "f"]
+        # one block per kind, not a Series per column: a table 100,000 columns wide is built in linear time
+        parts = [pd.DataFrame(np.column_stack([self.columns[name] for name in numbers]), columns=numbers)] if numbers else []
+        if others:
+            parts.append(pd.DataFrame(np.column_stack([self.columns[name] for name in others]), columns=others, dtype=object))
+        frame = parts[0] if len(parts) == 1 else pd.concat(parts, axis=1)
+        return frame if numbers == names or others == names else frame[names]
+
+    def values(self, name: str) -> np.ndarray:
+        """The column's array (float64 or object), or `UnknownColumnError` naming the columns there are."""
+        found = self.columns.get(name)
+        if found is None:
+            raise UnknownColumnError(f"the table has no column named '{name}'; its columns are: {', '.join(map(str, self.columns))}")
+        return found
+
     def column(self, name: str) -> pd.Series:
-        if name not in self.frame.columns:
-            raise UnknownColumnError(f"the table has no column named '{name}'; its columns are: {', '.join(map(str, self.frame.columns))}")
+        self.values(name)
         return self.frame[name]
+
+    def filled(self, name: str) -> np.ndarray:
+        """True for the data rows whose cell in this column is not blank."""
+        values = self.values(name)
+        if values.dtype.kind == "f":
+            return ~np.isnan(values)
+        return ~np.fromiter(map(is_blank, values), dtype=bool, count=len(values))
 
 
 def read_sheet_table(cells: Any, what: str = "table") -> SheetTable:
-    """Split a range into header and data rows; refuse missing or repeated column names."""
-    grid = as_grid(cells, what, check_cells=False)  # the cells' types are looked at column by column below
+    """Split a range into header and data rows; refuse missing or repeated column names.
+
+    The data rows are read column by column: when every cell is a number or a
+    blank, in one conversion of the whole range; otherwise each column on its
+    own (a column of numbers still in one conversion).
+    """
+    grid = as_grid(cells, what, check_cells=False)  # the cells' types are looked at below
     _check_cell_types(grid[:1], what)
-    header = grid[0]
+    names = _column_names(grid[0], what)
+    body = grid[1:]
+    typed, blank = _typed_columns(body, len(names), grid, what)
+    keep = np.flatnonzero(~blank)
+    if not len(keep):
+        raise InputError(f"the {what} has a header but no data rows; include the rows below the header")
+    if len(keep) < len(body):
+        typed = [values[keep] for values in typed]
+    return SheetTable(dict(zip(names, typed)), keep, len(body))
+
+
+def _column_names(header: list[Any], what: str) -> list[str]:
     names: list[str] = []
+    seen: set[str] = set()  # a set, not the list: a header 100,000 columns wide is read in linear time
     for j, name in enumerate(header):
         if is_blank(name):
             raise InputError(f"the {what}'s header (its first row) has a blank cell in column {j + 1}; give every column a name")
         text = _number_text(name) if isinstance(name, (int, float)) and not isinstance(name, bool) else str(name).strip()
-        if text in names:
+        if text in seen:
             raise InputError(f"the {what} has two columns named '{text}'; give each column its own name")
+        seen.add(text)
         names.append(text)
-    body = grid[1:]
-    columns = list(zip(*body)) if body else [() for _ in names]
+    return names
+
+
+def _typed_columns(body: list[list[Any]], width: int, grid: list[list[Any]], what: str) -> tuple[list[np.ndarray], np.ndarray]:
+    """The data rows' columns (float64 for numbers and blanks, else object arrays of cleaned cells), and which rows are blank."""
+    if not body:
+        return [np.empty(0, dtype=np.float64) for _ in range(width)], np.ones(0, dtype=bool)
+    types = set(map(type, itertools.chain.from_iterable(body)))  # one pass in C over every cell
+    if types <= NUMBER_TYPES:  # numbers and blanks only: one conversion of the whole range (blanks become NaN)
+        matrix = np.array(body, dtype=np.float64)
+        blank = np.asarray(np.isnan(matrix).all(axis=1))
+        return list(np.ascontiguousarray(matrix.T)), blank
+    if not types <= CELL_TYPES:
+        columns = [_typed_column(list(column), grid, what) for column in zip(*body)]  # each column checked in turn, as the messages expect
+    else:
+        objects = np.empty((len(body), width), dtype=object)
+        objects[:] = body  # rows of equal length (as_grid pads them): one copy in C, no list inside a cell
+        columns = [_typed_column(objects[:, j], grid, what) for j in range(width)]
     blank = np.ones(len(body), dtype=bool)
-    typed: list[np.ndarray | list[Any]] = []
-    for column in columns:
-        types = set(map(type, column))
-        if not types <= CELL_TYPES:
-            _check_cell_types(grid, what, types)
-        if types <= NUMBER_TYPES:  # numbers and blanks only: one vectorised conversion
-            numbers = np.array(column, dtype=np.float64)  # blanks (None) become NaN
-            blank &= np.isnan(numbers)
-            typed.append(numbers)
+    for values in columns:
+        blank &= np.isnan(values) if values.dtype.kind == "f" else _none_mask(values)
+    return columns, blank
+
+
+def _typed_column(column: Any, grid: list[list[Any]], what: str) -> np.ndarray:
+    types = set(map(type, column))
+    if not types <= CELL_TYPES:
+        _check_cell_types(grid, what, types)
+    if types <= NUMBER_TYPES:
+        return np.array(column, dtype=np.float64)
+    if types <= {str}:
+        cleaned = [v.strip() or None for v in column]
+    else:
+        cleaned = [_clean(v) for v in column]
+    values = np.empty(len(cleaned), dtype=object)
+    values[:] = cleaned
+    return values
+
+
+def _none_mask(values: np.ndarray) -> np.ndarray:
+    return np.fromiter((v is None for v in values), dtype=bool, count=len(values))
+
+
+def content_key(*parts: Any) -> str | None:
+    """A SHA-256 key of arguments exactly as given, every cell's type and value, for caches of answers.
+
+    Written in one pass in C (marshal, format 2: plain values only, no code, nothing ever read back), so a
+    10,000-row range costs milliseconds. Two keys are equal only if the arguments are (1, 1.0 and TRUE
+    differ, so do 0.0 and -0.0: such a pair only misses the cache). None when a part holds a value of
+    another type (a date, a NumPy number or array): the caller then keys it its own way.
+    """
+    try:
+        written = marshal.dumps(parts, 2)
+    except ValueError:
+        return None
+    return hashlib.sha256(written).hexdigest()
+
+
+def fingerprint(table: SheetTable, columns: Sequence[str], rows: np.ndarray) -> str:
+    """`block.table_fingerprint` of these columns over ``rows`` (a mask or index over the data rows): the very
+    same digest, with each number column written as text in one pass rather than cell by cell."""
+    digest = hashlib.sha256()
+    for name in columns:
+        values = table.values(name)[rows]
+        digest.update(b"\x1e")
+        if values.dtype.kind == "f":
+            digest.update(_number_texts(values))
         else:
-            cleaned = [_clean(v) for v in column]
-            blank &= np.fromiter((v is None for v in cleaned), dtype=bool, count=len(cleaned))
-            typed.append(cleaned)
-    keep = np.flatnonzero(~blank)
-    if not len(keep):
-        raise InputError(f"the {what} has a header but no data rows; include the rows below the header")
-    data = {
-        name: values[keep] if isinstance(values, np.ndarray) else pd.Series([values[i] for i in keep], dtype=object)
-        for name, values in zip(names, typed)
-    }
-    return SheetTable(pd.DataFrame(data), keep, len(body))
+            digest.update(b"".join(_canonical(v.item() if isinstance(v, np.generic) else v).encode("utf-8") + b"\x1f" for v in values))
+    return digest.hexdigest()
+
+
+def _number_texts(values: np.ndarray) -> bytes:
+    """Floats as `block._canonical` writes them (15 significant digits, -0 as 0, blanks as nan), each ended by \\x1f."""
+    plain = np.where(values == 0, 0.0, values).tolist()
+    return (("%.15g\x1f" * len(plain)) % tuple(plain)).encode("ascii")
 
 
 def _number_text(value: float | int) -> str:
@@ -219,9 +325,9 @@ def read_numbers_in_text(table: SheetTable, columns: Sequence[str], mode: str, f
     only reads with the other mark is refused. Columns holding other text are
     left as they are. ``{column}`` in ``fix`` becomes the column's name.
     """
-    replaced: dict[str, pd.Series] = {}
+    replaced: dict[str, np.ndarray] = {}
     for name in columns:
-        values = table.column(name)
+        values = table.values(name)
         if values.dtype.kind == "f":
             continue
         texts = [(k, v) for k, v in enumerate(values) if isinstance(v, str) and v.upper() not in ERROR_VALUES]
@@ -230,7 +336,7 @@ def read_numbers_in_text(table: SheetTable, columns: Sequence[str], mode: str, f
         if mode == "error":
             k, value = texts[0]
             raise BadValueError(name, k + 1, value, "a number typed as text", fix.replace("{column}", name), range_row(int(table.data_rows[k])))
-        read = list(values)
+        read = values.copy()
         for k, value in texts:
             number = number_from_text(value, mode)
             if number is None:
@@ -241,11 +347,10 @@ def read_numbers_in_text(table: SheetTable, columns: Sequence[str], mode: str, f
                     range_row(int(table.data_rows[k])),
                 )
             read[k] = number
-        replaced[name] = pd.Series(read, dtype=object, index=values.index)
+        replaced[name] = read
     if not replaced:
         return table
-    frame = table.frame.assign(**replaced)
-    return SheetTable(frame, table.data_rows, table.n_rows)
+    return SheetTable({**table.columns, **replaced}, table.data_rows, table.n_rows)
 
 
 def range_row(data_row: int) -> int:

@@ -1,0 +1,168 @@
+"""The cell path beside the engine, in one run: what the cell functions cost on top of `fit` and `Model.predict`.
+
+Run by hand:  python tests/benchmarks/cell_path.py [--quick]
+
+Every pair is timed interleaved (one call of each in turn), so both sides meet the same load on a
+shared machine; medians are printed with their ratio. The table is invented: ten normal inputs and
+y = sin(x1) + x2 * x3 (seeded), given as the 2-D list of cells a spreadsheet hands over.
+
+- PREDICT through `functions.predict` beside `Model.predict` on the same numbers as a float array,
+  at 1 and 10,000 rows, and how much of PREDICT is reading the range (`cells.read_sheet_table`).
+- TRAIN at 10,000 rows: a cache hit, and a fresh TRAIN (`functions.train_block`) beside `fit` on
+  the float array with the same layers and seed.
+- PREDICT over HTTP: a server in its own process (as the add-in and the Calc extension meet it),
+  beside the direct call, with the parts of the request measured alone in this process: reading
+  the JSON body, the cell function, writing the answer.
+- The header: SPLIT on a range two data rows tall and 40,000 or 100,000 columns wide.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import socket
+import statistics
+import subprocess
+import sys
+import time
+from typing import Any, Callable
+
+import httpx
+import numpy as np
+import orjson
+
+from sheetnet import cells, functions
+from sheetnet.block import decode_block
+from sheetnet.training import fit
+
+TOKEN = "bench-token-0123456789abcdef"
+
+
+def table(rows: int, seed: int = 0) -> list[list[Any]]:
+    rng = np.random.default_rng(seed)
+    values = rng.normal(size=(rows, 10))
+    target = np.sin(values[:, 0]) + values[:, 1] * values[:, 2]
+    return [[f"x{j + 1}" for j in range(10)] + ["y"]] + [[*map(float, row), float(t)] for row, t in zip(values, target)]
+
+
+def side_by_side(calls: int, *functions_to_time: Callable[[], Any]) -> list[float]:
+    """Median seconds of each function, timed in turn within every round."""
+    seconds: list[list[float]] = [[] for _ in functions_to_time]
+    for _ in range(calls):
+        for times, call in zip(seconds, functions_to_time):
+            start = time.perf_counter()
+            call()
+            times.append(time.perf_counter() - start)
+    return [statistics.median(times) for times in seconds]
+
+
+def ms(seconds: float) -> str:
+    return f"{seconds * 1e3:.3f}" if seconds < 0.01 else f"{seconds * 1e3:.1f}"
+
+
+def predict_rows(model: list[list[Any]], calls: int) -> None:
+    decoded, _ = decode_block(model)
+    print("| PREDICT rows | cell function (ms) | Model.predict (ms) | ratio | difference (µs) | reading the range (ms) | reading / PREDICT |")
+    print("|---|---|---|---|---|---|---|")
+    for rows in (1, 10_000):
+        data = table(rows, seed=1)
+        matrix = np.array([row[:10] for row in data[1:]], dtype=np.float64)
+        functions.predict(model, data)  # the model block decoded once, as in a recalculating sheet
+        count = calls if rows == 1 else max(15, calls // 20)
+        cell, engine, reading = side_by_side(count, lambda: functions.predict(model, data), lambda: decoded.predict(matrix), lambda: cells.read_sheet_table(data))
+        print(f"| {rows:,} | {ms(cell)} | {ms(engine)} | {cell / engine:.1f}x | {(cell - engine) * 1e6:.0f} | {ms(reading)} | {reading / cell:.0%} |", flush=True)
+
+
+def train_rows(calls: int) -> None:
+    data = table(10_000)
+    matrix = np.array([row[:10] for row in data[1:]], dtype=np.float64)
+    y = np.array([row[10] for row in data[1:]])
+    functions.train(data, "y", "8", "seed=0")  # fills the cache
+    hit, = side_by_side(max(5, calls // 20), lambda: functions.train(data, "y", "8", "seed=0"))
+    cell, engine = side_by_side(3 if calls < 100 else 5, lambda: functions.train_block(data, "y", "8", "seed=0"), lambda: fit(matrix, y, (8,), 0))
+    print("| TRAIN, 10,000 rows | cell function (ms) | fit (ms) | ratio |")
+    print("|---|---|---|---|")
+    print(f"| cache hit | {ms(hit)} | {ms(engine)} | {hit / engine:.3f}x |")
+    print(f"| fresh | {ms(cell)} | {ms(engine)} | {cell / engine:.2f}x |", flush=True)
+
+
+def free_port() -> int:
+    with socket.socket() as probe:
+        probe.bind(("127.0.0.1", 0))
+        return int(probe.getsockname()[1])
+
+
+def start_server(port: int) -> subprocess.Popen[bytes]:
+    code = (
+        "import uvicorn; from sheetnet import server; "
+        f"uvicorn.run(server.create_app({TOKEN!r}), host='127.0.0.1', port={port}, log_level='warning')"
+    )
+    process = subprocess.Popen([sys.executable, "-c", code], env={**os.environ, "PYTHONUNBUFFERED": "1"})
+    deadline = time.monotonic() + 60
+    while time.monotonic() < deadline:
+        try:
+            with socket.create_connection(("127.0.0.1", port), timeout=0.5):
+                return process
+        except OSError:
+            time.sleep(0.1)
+    process.kill()
+    raise RuntimeError("the benchmark server did not start within 60 s")
+
+
+def http_rows(model: list[list[Any]], calls: int) -> None:
+    port = free_port()
+    process = start_server(port)
+    try:
+        print("| HTTP PREDICT rows | HTTP (ms) | direct (ms) | HTTP / direct | reading the body (ms) | writing the answer (ms) | rest: transport, server, client (ms) |")
+        print("|---|---|---|---|---|---|---|")
+        headers = {"Authorization": f"Bearer {TOKEN}", "content-type": "application/json"}
+        with httpx.Client(base_url=f"http://127.0.0.1:{port}", headers=headers, timeout=60) as client:
+            for rows in (1, 10_000):
+                data = table(rows, seed=1)
+                body = orjson.dumps({"args": [model, data]})  # encoded once, as a client holding the range would
+
+                def over_http() -> Any:
+                    return orjson.loads(client.post("/v1/functions/SHEETNET.PREDICT", content=body).raise_for_status().content)
+
+                over_http()
+                answer = {"result": functions.predict(model, data)}
+                count = calls if rows == 1 else max(15, calls // 20)
+                http, direct, parse, write = side_by_side(
+                    count, over_http, lambda: functions.predict(model, data), lambda: orjson.loads(body), lambda: orjson.dumps(answer)
+                )
+                rest = http - direct - parse - write
+                print(f"| {rows:,} | {ms(http)} | {ms(direct)} | {http / direct:.1f}x | {ms(parse)} | {ms(write)} | {ms(rest)} |", flush=True)
+    finally:
+        process.terminate()
+        process.wait(10)
+
+
+def header_widths() -> None:
+    print("| SPLIT on a header of | seconds | seconds per 10,000 columns |")
+    print("|---|---|---|")
+    for width in (40_000, 100_000):
+        wide = [[f"c{j}" for j in range(width)], [float(j) for j in range(width)], [float(-j) for j in range(width)]]
+        start = time.perf_counter()
+        answer = functions.split(wide)
+        seconds = time.perf_counter() - start
+        assert answer[0] == ["split"], answer
+        print(f"| {width:,} columns | {seconds:.2f} | {seconds / width * 10_000:.3f} |", flush=True)
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser()
+    parser.add_argument("--quick", action="store_true", help="fewer calls")
+    args = parser.parse_args()
+    calls = 60 if args.quick else 300
+    model = functions.train(table(2000), "y", "8", "seed=0")
+    predict_rows(model, calls)
+    print()
+    train_rows(calls)
+    print()
+    http_rows(model, calls)
+    print()
+    header_widths()
+
+
+if __name__ == "__main__":
+    main()
