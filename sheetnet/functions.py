@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 
 from . import __version__
-from .block import BlockInfo, _canonical, decode_block, encode_block, table_fingerprint
+from .block import BlockInfo, _canonical, decode_block, encode_block
 from .cell_text import cell_in_words, label_in_words, labels_in_words, number_in_words
 from .cells import (
     NUMBERS_IN_TEXT,
@@ -29,6 +29,8 @@ from .cells import (
     as_cells,
     as_grid,
     column_of,
+    content_key,
+    fingerprint,
     is_blank,
     message_cell,
     numeric_frame,
@@ -117,12 +119,12 @@ def _in_sheet_rows(data_rows: np.ndarray, target: str | None, call: Callable[[],
 def _rows_used(table: SheetTable, columns: list[str], skip_blanks: bool) -> np.ndarray:
     """Mask over the table's data rows: rows with every needed column filled (or all, without skipping)."""
     for name in columns:
-        table.column(name)  # a missing column is named before any row is looked at
+        table.values(name)  # a missing column is named before any row is looked at
     if not skip_blanks:
-        return np.ones(len(table.frame), dtype=bool)
-    filled = np.ones(len(table.frame), dtype=bool)
+        return np.ones(len(table.data_rows), dtype=bool)
+    filled = np.ones(len(table.data_rows), dtype=bool)
     for name in columns:
-        filled &= ~table.frame[name].map(is_blank).to_numpy(dtype=bool)
+        filled &= table.filled(name)
     return filled
 
 
@@ -136,6 +138,8 @@ def _inputs_frame(table: SheetTable, names: tuple[str, ...] | list[str], rows: n
 def _check_no_identifiers(frame: pd.DataFrame) -> None:
     for name in frame.columns:
         values = frame[name]
+        if values.dtype.kind == "f":
+            continue  # numbers: no texts to look at
         texts = [v for v in values if isinstance(v, str)]
         if len(values) >= 20 and len(texts) == len(values) and len(set(texts)) == len(texts):
             raise InputError(
@@ -190,7 +194,7 @@ def _name_list(value: Any) -> list[str]:
 def _model_inputs(sheet: SheetTable, model: Model, rows: np.ndarray) -> Any:
     """The model's input columns for these rows: a float array in model order when all are numbers
     (the engine's fast path, no pandas on the way), else a DataFrame."""
-    columns = [sheet.column(name).to_numpy() for name in model.input_names]
+    columns = [sheet.values(name) for name in model.input_names]
     if model.preparation.all_numeric and all(c.dtype.kind == "f" for c in columns):
         matrix = np.column_stack([c[rows] for c in columns]) if columns else np.empty((int(rows.sum()), 0))
         if (np.abs(matrix) <= MAX_NUMBER).all():  # blanks (NaN) and huge numbers take the path that names the cell
@@ -205,11 +209,12 @@ def _scalar_metrics(metrics: dict[str, Any]) -> dict[str, float]:
 def _decode(model: Any) -> tuple[Model, BlockInfo, dict[str, Any]]:
     if isinstance(model, str) and not model.strip():
         raise ModelError("no model given; pass the block SHEETNET.TRAIN returned (or its defined name)")
-    grid = as_grid(model, "model")
     # decoded models are immutable, so a block seen before (every cell the same) is not decoded again
-    key = hashlib.sha256(repr(grid).encode("utf-8")).hexdigest()
-    found = _decoded_cache.get(key)
+    key = content_key(model)
+    found = None if key is None else _decoded_cache.get(key)
     if found is None:
+        grid = as_grid(model, "model")
+        key = key or hashlib.sha256(repr(grid).encode("utf-8")).hexdigest()
         found = _decoded_cache[key] = decode_block(grid)
         while len(_decoded_cache) > TRAIN_CACHE_SIZE:
             _decoded_cache.popitem(last=False)
@@ -223,11 +228,11 @@ def _numbers_for_model(sheet: SheetTable, decoded: Model, info: BlockInfo, optio
     columns = [spec.name for spec in decoded.preparation.inputs if isinstance(spec, NumericInput)]
     if with_target and (decoded.task == "regression" or all(isinstance(c, (int, float)) for c in decoded.classes)):
         columns.append(info.target)
-    return read_numbers_in_text(sheet, [c for c in columns if c in sheet.frame.columns], options["numbers_in_text"], PREDICT_NUMBER_TEXT_FIX)
+    return read_numbers_in_text(sheet, [c for c in columns if c in sheet.columns], options["numbers_in_text"], PREDICT_NUMBER_TEXT_FIX)
 
 
 def _fingerprint(table: SheetTable, columns: list[str], rows: np.ndarray) -> str:
-    return table_fingerprint([table.frame.loc[rows, name].tolist() for name in columns])
+    return fingerprint(table, columns, rows)  # the digest of `block.table_fingerprint`, number columns in one pass
 
 
 # --- the cell functions -------------------------------------------------------------------
@@ -247,11 +252,11 @@ def split(table: Any, holdout_share: Any = None, seed: Any = None, mode: Any = N
         column = text[len("stratified"):].strip(" :")
         if not column:
             raise SettingError("a stratified split needs the column to stratify by: write the mode as 'stratified grade'")
-        labels = [label_in_words(v) for v in sheet.column(column)]  # blanks and 3.0 read as the sheet shows them
+        labels = [label_in_words(v) for v in sheet.values(column).tolist()]  # blanks and 3.0 read as the sheet shows them
         lowered = "stratified"
     elif lowered not in ("random", "ordered"):
         raise SettingError(f"split mode {cell_in_words(text)} is not known; use random, ordered, or 'stratified COLUMN'")
-    held = holdout_mask(len(sheet.frame), share, chosen_seed, lowered, labels)
+    held = holdout_mask(len(sheet.data_rows), share, chosen_seed, lowered, labels)
     answer: Cells = [["split"]]
     answer += [[""] for _ in range(sheet.n_rows)]
     for k, row in enumerate(sheet.data_rows):
@@ -295,7 +300,7 @@ def _cache_key(*parts: Any) -> str:
 def train(table: Any, target: Any, hidden: Any = None, settings: Any = None, split: Any = None) -> Cells:
     """The model block: trains on the table's rows (holdout rows of the split left out)."""
     check_ranges(table=table, split=split, settings=settings)
-    key = _cache_key(table, target, hidden, settings, split)
+    key = content_key(table, target, hidden, settings, split) or _cache_key(table, target, hidden, settings, split)
     if key in _train_cache:
         _train_cache.move_to_end(key)
         return [list(row) for row in _train_cache[key]]
