@@ -292,6 +292,8 @@ def test_make_sign_and_check_from_the_command_line(signed_book, capsys, tmp_path
     ]
     assert cli.main(["check", str(path), "--keys", keys, "--trusted-only"]) == 0
     assert openpyxl.load_workbook(path)["Lots"]["J2"].value == "my note"  # the user's cells are kept
+    openpyxl.load_workbook(path).save(tmp_path / "resaved.xlsx")  # the whole workbook saved again by another program
+    assert cli.main(["check", str(tmp_path / "resaved.xlsx"), "--keys", keys, "--trusted-only"]) == 0
     assert cli.main(["check", str(path), "--keys", str(tmp_path / "no-keys"), "--trusted-only"]) == 1  # someone without alice's key
     assert "REFUSED grades: signed by a key that is not among your trusted keys" in capsys.readouterr().out
 
@@ -356,3 +358,26 @@ def test_about_shows_the_signature_in_a_cell():
     forged[_row_of(forged, "holdout_metric")][2] = 0.0001
     assert dict(map(tuple, functions.about(_resealed(forged))[1:]))["signature"].startswith("WRONG: the block was changed after the key")
     assert "not deliberate edits" in dict(map(tuple, functions.about(_block())[1:]))["signature"]
+
+
+def _key_with_a_numeric_id():
+    """A key whose id is 16 digits (about 1 key in 1,850): a text a spreadsheet would read as a number if typed."""
+    while not (key := make_key("digits")).key_id.isdigit():
+        pass
+    return key
+
+
+def test_a_signature_whose_texts_look_like_numbers_survives_the_xlwings_door():
+    import xlwings_standin as standin
+
+    from sheetnet import xl_macros
+    from sheetnet.xl_udfs import from_excel
+
+    key = _key_with_a_numeric_id()
+    signed = sign_block(_block(), key)
+    book = standin.Book()
+    book.table("Data", _model_table())
+    xl_macros.apply_placements(book, service.model_placements("grades", signed))
+    stored = from_excel(book.names["grades"].refers_to_range.options(ndim=2).value)
+    assert stored[-2][2] == key.key_id  # still the text, not the number 1.23e15
+    assert check_signature(stored, [key.public_key()]).state == "trusted"
