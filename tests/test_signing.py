@@ -167,6 +167,19 @@ def test_a_signature_row_misplaced_or_in_an_older_format_is_refused():
         sign_block(format_2, ALICE)
 
 
+def test_a_block_signed_once_stays_verified_and_predicts_the_same():
+    # tests/data/signed_block_format_3.json: written and signed once when signatures began, the private key thrown
+    # away; later versions must keep verifying it (canonical content, message prefix) and predict the same
+    from sheetnet.signing import PublicKey
+
+    stored = json.loads((DATA / "signed_block_format_3.json").read_text())
+    found = check_signature(stored["block"], [PublicKey("fixture", bytes.fromhex(stored["public_key"]))])
+    assert (found.state, found.key_id) == ("trusted", block.key_id_of(bytes.fromhex(stored["public_key"])))
+    model, _ = decode_block(stored["block"])
+    assert model.format_version == 3
+    np.testing.assert_allclose(model.predict(pd.DataFrame(stored["rows"])), stored["predictions"], rtol=1e-12)
+
+
 def _model_table():
     frame, _ = _model()
     return [list(frame.columns)] + frame.values.tolist()
