@@ -791,3 +791,11 @@ def _refuse_long_lag(longest: int, length: int) -> None:
             f"a lag of {longest:,} is as long as the series or longer (it has {length} values below its header), so its column would be blank; "
             f"use lags up to {length - 1}, or select a longer series"
         )
+
+
+@cell_function
+def search(table: Any, target: Any, candidates: Any = None, settings: Any = None, folds: Any = None) -> Cells:
+    """Candidate networks ranked by cross-validated score, and which one to use (see `sheetnet.search_cells`)."""
+    from .search_cells import search_table
+
+    return search_table(table, target, candidates, settings, folds)

@@ -136,6 +136,19 @@ REGISTRY: tuple[CellFunction, ...] = (
         ),
         "one row per group, then the largest gap of each metric and a caution",
     ),
+    CellFunction(
+        "SHEETNET.SEARCH",
+        functions.search,
+        "Ranks candidate networks by cross-validated score and says which one to use.",
+        (
+            Argument("table", "the table, its first row holding column names"),
+            Argument("target", "the name of the column to predict", kind="value"),
+            Argument("candidates", "a range headed hidden, decay, algorithm (any of them), one candidate per row; 12 from none to 8,4 when blank", True),
+            Argument("settings", "TRAIN's settings, plus metric=NAME to rank by (rmse or log_loss when blank)", True),
+            Argument("folds", "5 when blank; a count, or ordered (time series), random, stratified or 'grouped COLUMN', then a count", True, "value"),
+        ),
+        "one row per candidate, best mean first (rank, hidden, decay, algorithm, weights, mean, spread, standard error, choice), then the rule",
+    ),
 )
 
 BY_NAME: dict[str, CellFunction] = {f.name: f for f in REGISTRY}

@@ -41,9 +41,9 @@ def test_registry_matches_the_python_functions():
     check_registry()
     assert [f.name for f in REGISTRY] == [
         "SHEETNET.SPLIT", "SHEETNET.TRAIN", "SHEETNET.PREDICT", "SHEETNET.SCORE", "SHEETNET.EXPLAIN", "SHEETNET.ABOUT", "SHEETNET.LAGS",
-        "SHEETNET.GROUPS",
+        "SHEETNET.GROUPS", "SHEETNET.SEARCH",
     ]
-    assert [f.python_name for f in REGISTRY] == ["split", "train", "predict", "score", "explain", "about", "lags", "groups"]
+    assert [f.python_name for f in REGISTRY] == ["split", "train", "predict", "score", "explain", "about", "lags", "groups", "search"]
 
 
 def test_split_marks_every_data_row_and_leaves_blank_rows_blank(shipments):

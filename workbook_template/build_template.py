@@ -41,6 +41,7 @@ def examples(rows: int) -> dict[str, str]:
         "SHEETNET.EXPLAIN": f"=SHEETNET.EXPLAIN(starter_model, {data})",
         "SHEETNET.ABOUT": f"=SHEETNET.ABOUT(starter_model, {data})",
         "SHEETNET.LAGS": f"=SHEETNET.LAGS(Data!$D$1:$D${rows + 1}, 3)",
+        "SHEETNET.SEARCH": f'=SHEETNET.SEARCH({data}, "grade", "", "ignore=lot; epochs=200", 3)',
     }
 
 
