@@ -31,3 +31,22 @@ def serving(app, **options: Any) -> Iterator[str]:
     finally:
         running.should_exit = True
         thread.join(10)
+
+
+def main() -> None:
+    """``python tests/local_server.py TOKEN``: a server in a process of its own (for measuring its memory);
+    prints ``port N`` once it listens, serves until stopped."""
+    import socket
+    import sys
+
+    from sheetnet import cli, server
+
+    listening = socket.create_server(("127.0.0.1", 0))
+    port = listening.getsockname()[1]
+    app = server.create_app(sys.argv[1], origin=f"http://127.0.0.1:{port}")
+    print(f"port {port}", flush=True)
+    cli.serve_forever(app, listening, host="127.0.0.1", port=port, **server_options())
+
+
+if __name__ == "__main__":
+    main()
