@@ -222,16 +222,34 @@ def _none_mask(values: np.ndarray) -> np.ndarray:
 def content_key(*parts: Any) -> str | None:
     """A SHA-256 key of arguments exactly as given, every cell's type and value, for caches of answers.
 
-    Written in one pass in C (marshal, format 2: plain values only, no code, nothing ever read back), so a
+    Written in one pass in C (marshal, format 2, of plain values only; nothing is ever read back), so a
     10,000-row range costs milliseconds. Two keys are equal only if the arguments are (1, 1.0 and TRUE
-    differ, so do 0.0 and -0.0: such a pair only misses the cache). None when a part holds a value of
-    another type (a date, a NumPy number or array): the caller then keys it its own way.
+    differ, so do 0.0 and -0.0: such a pair only misses the cache). None when a part is not a plain
+    value or a list of rows of plain values (a date, a NumPy number or array, which marshal would write
+    as bare bytes): the caller then keys it its own way.
     """
-    try:
-        written = marshal.dumps(parts, 2)
-    except ValueError:
+    if not all(map(_plain, parts)):
         return None
-    return hashlib.sha256(written).hexdigest()
+    return hashlib.sha256(marshal.dumps(parts, 2)).hexdigest()
+
+
+_PLAIN_CELLS = frozenset({float, int, bool, str, type(None)})
+_SEQUENCES = frozenset({list, tuple})
+
+
+def _plain(value: Any) -> bool:
+    """A plain cell, or a range of them (a list of cells, or of rows of cells) of exactly these types."""
+    if type(value) in _PLAIN_CELLS:
+        return True
+    if type(value) not in _SEQUENCES:
+        return False
+    kinds = set(map(type, value))
+    if kinds <= _PLAIN_CELLS:
+        return True
+    if not kinds <= _PLAIN_CELLS | _SEQUENCES:
+        return False
+    rows = [row for row in value if type(row) in _SEQUENCES]
+    return set(map(type, itertools.chain.from_iterable(rows))) <= _PLAIN_CELLS
 
 
 def fingerprint(table: SheetTable, columns: Sequence[str], rows: np.ndarray) -> str:

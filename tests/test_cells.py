@@ -1,0 +1,117 @@
+"""Reading ranges as tables (sheetnet.cells): column types, blank rows, the header, the fast keys and the fingerprint."""
+
+from __future__ import annotations
+
+import datetime
+import hashlib
+import math
+import time
+
+import numpy as np
+import pytest
+
+from sheetnet import cells
+from sheetnet.block import table_fingerprint
+from sheetnet.errors import InputError, UnknownColumnError
+
+TRICKY_NUMBERS = [
+    0.1, -0.0, 0.0, 1.0, -2.5, 1 / 3, 2 / 3, 1e-5, 1e-4, 0.00012345, 1e14, 1e15, 999999999999999.9, 1e16, 123456789012345678.0,
+    5e-324, 1.7976931348623157e308, -1.7976931348623157e308, 0.30000000000000004, 1234567.0000000002, 9.9999999999999995e-8,
+    float("inf"), float("-inf"), 42, -7, 10**15, 2**53 + 1,
+]
+
+
+def test_number_columns_are_float_arrays_and_text_columns_object_arrays_of_cleaned_cells():
+    table = cells.read_sheet_table([
+        ["name", "size", 3, "mixed"],
+        ["  ann ", 1, 2.5, "x"],
+        [None, None, None, None],
+        ["bo", None, np.float32(1.5), 7],
+        ["", 2.0, "", "  "],
+    ])
+    assert list(table.columns) == ["name", "size", "3", "mixed"]  # a number as a header reads as the sheet shows it
+    assert table.data_rows.tolist() == [0, 2, 3] and table.n_rows == 4  # the blank row is left out, still counted
+    assert table.values("size").dtype == np.float64 and np.isnan(table.values("size")[1])
+    assert table.values("name").tolist() == ["ann", "bo", None]  # texts stripped, a blank text is a blank
+    assert table.values("3").tolist()[:2] == [2.5, 1.5] and table.values("3")[2] is None  # a blank text makes the column cells
+    assert table.values("mixed").tolist() == ["x", 7, None]
+    frame = table.frame
+    assert list(frame.columns) == ["name", "size", "3", "mixed"]
+    assert [frame[c].dtype.kind for c in frame.columns] == ["O", "f", "O", "O"]
+    assert frame["name"].tolist() == ["ann", "bo", None] and isinstance(frame["name"].iloc[0], str)
+
+
+def test_a_table_of_numbers_only_is_read_in_one_conversion_with_blank_rows_dropped():
+    table = cells.read_sheet_table([["a", "b"], [1, 2.0], [None, None], [3, None], [None, None]])
+    assert table.data_rows.tolist() == [0, 2] and table.n_rows == 4
+    assert table.values("a").tolist() == [1.0, 3.0] and table.values("b")[0] == 2.0 and np.isnan(table.values("b")[1])
+    assert table.filled("b").tolist() == [True, False]
+    assert table.frame.shape == (2, 2) and table.frame["a"].dtype == np.float64
+
+
+def test_an_unknown_column_is_named_with_the_columns_there_are():
+    table = cells.read_sheet_table([["a", "b"], [1, 2]])
+    with pytest.raises(UnknownColumnError, match="no column named 'c'; its columns are: a, b"):
+        table.values("c")
+    with pytest.raises(UnknownColumnError, match="no column named 'c'"):
+        table.column("c")
+
+
+def test_a_list_inside_a_cell_is_named_in_the_first_column_that_holds_one():
+    body = [[float(i), "text", float(i)] for i in range(60)]
+    body[2][1] = {"a": 1}  # column 2, an earlier row
+    body[49][0] = [1, 2]  # column 1, a later row: columns are checked in order, so this one is named
+    with pytest.raises(InputError, match=r"^row 51, column 1 of the table range holds a list of values"):
+        cells.read_sheet_table([["a", "b", "c"], *body])
+
+
+def test_a_header_100000_columns_wide_is_read_in_linear_time():
+    # the names were once checked against a list (quadratic: 40,000 columns took 30 s, 100,000 did not finish in 120 s);
+    # read with a set it takes well under a second, so this generous bound only catches the quadratic step coming back
+    width = 100_000
+    header = [f"c{j}" for j in range(width)]
+    start = time.monotonic()
+    table = cells.read_sheet_table([header, list(range(width)), [None] * width])
+    seconds = time.monotonic() - start
+    assert len(table.columns) == width and table.values("c99999").tolist() == [99999.0] and table.n_rows == 2
+    assert seconds < 20, f"reading a 100,000-column header took {seconds:.1f} s"
+    with pytest.raises(InputError, match="two columns named 'c0'"):
+        cells.read_sheet_table([[*header[:-1], "c0"], [0] * width])
+
+
+def test_the_fingerprint_is_the_blocks_table_fingerprint_of_the_columns_as_read():
+    rng = np.random.default_rng(3)
+    numbers = [*TRICKY_NUMBERS, *rng.normal(size=40).tolist(), *(rng.normal(size=20) * 1e-9).tolist(), *(rng.normal(size=20) * 1e20).tolist()]
+    rows = len(numbers)
+    texts = ["a", " b ", None, True, 3, 2.5, 10**400, np.float64(0.25), datetime.date(2026, 12, 2), "", -0.0, np.int64(7)]
+    grid = [["n", "with blanks", "cells"]] + [
+        [numbers[i], None if i % 5 == 0 else numbers[(i * 7) % rows], texts[i % len(texts)]] for i in range(rows)
+    ]
+    table = cells.read_sheet_table(grid)
+    assert table.values("n").dtype == np.float64 and table.values("cells").dtype == object
+    names = ["n", "with blanks", "cells"]
+    for used in (np.ones(rows, dtype=bool), np.arange(rows) % 3 != 0):
+        expected = table_fingerprint([table.frame.loc[used, name].tolist() for name in names])  # the way blocks have stored it
+        assert cells.fingerprint(table, names, used) == expected
+    assert cells.fingerprint(table, ["cells", "n"], np.ones(rows, dtype=bool)) != cells.fingerprint(table, names[::2], np.ones(rows, dtype=bool))
+
+
+def test_the_fingerprint_of_a_known_table_stays_the_same():
+    table = cells.read_sheet_table([["x", "label"], [1.5, "a"], [-0.0, "b"], [None, None], [1e16, None], [float("nan"), "c"]])
+    # the texts block._canonical writes: numbers to 15 digits, -0 as 0, a blank number as nan, a blank cell as nothing
+    written = hashlib.sha256(b"\x1e1.5\x1f0\x1f1e+16\x1fnan\x1f\x1es:a\x1fs:b\x1f\x1fs:c\x1f").hexdigest()
+    assert cells.fingerprint(table, ["x", "label"], np.ones(4, dtype=bool)) == written
+    assert table_fingerprint([[1.5, 0.0, 1e16, math.nan], ["a", "b", None, "c"]]) == written
+
+
+def test_content_key_tells_apart_every_difference_a_cell_can_hold():
+    table = [["a", "b"], [1.0, "x"], [2.0, None]]
+    key = cells.content_key(table, "b", None)
+    assert key == cells.content_key([["a", "b"], [1.0, "x"], [2.0, None]], "b", None)  # same content, other lists
+    changed = [["a", "b"], [1.0, "x"], [2.0, ""]]
+    assert cells.content_key(changed, "b", None) != key
+    assert len({cells.content_key([[1]]), cells.content_key([[1.0]]), cells.content_key([[True]]), cells.content_key([["1"]])}) == 4
+    assert cells.content_key(table, "b", "8") != cells.content_key(table, "b", 8)
+    # not plain: keyed another way (marshal would write arrays and NumPy numbers as bare bytes, so [1.0] and [4607182418800017408] would meet)
+    for strange in ([[datetime.date(2026, 12, 2)]], np.zeros(2), [np.array([1.0])], [[np.float64(1.0)]], [[[1.0]]], [[b"1"]]):
+        assert cells.content_key([["a"], [1.0]], strange) is None
