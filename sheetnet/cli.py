@@ -131,7 +131,10 @@ def _saved(book: Any, out: TextIO) -> None:
 
 
 def run_train(args: argparse.Namespace, out: TextIO) -> int:
-    from . import functions, service
+    import contextlib
+
+    from . import functions, parallel, service
+    from .progress import TerminalProgress, reporting_to
     from .workbook import check_can_save, open_book, read_range
     from .workbook_models import check_storable, results_sheet, store_model
 
@@ -141,7 +144,10 @@ def run_train(args: argparse.Namespace, out: TextIO) -> int:
     table = read_range(book, args.table)
     request = service.TrainRequest(table, args.target, args.hidden, _settings_text(args.set), args.holdout, args.mode, args.seed, args.table)
     bar = ProgressLine(f"training {args.name}")
-    trained = service.train_model(request, bar)
+    repeats = TerminalProgress()  # "repeats: k of n done" when several networks train
+    with parallel.cluster(args.cluster) if args.cluster else contextlib.nullcontext(), reporting_to(repeats):
+        trained = service.train_model(request, bar)
+    repeats.done()
     bar.done()
     store_model(book, args.name, trained.block, args.replace)
     answer = functions.raising(functions.predict)(trained.block, table, "value")
@@ -526,6 +532,7 @@ def build_parser() -> argparse.ArgumentParser:
     train.add_argument("--seed", type=int, default=None, help="seed of the split and the training (default: the seed setting, else 0)")
     train.add_argument("--set", action="append", default=[], metavar="NAME=VALUE", help="a training setting; repeat for more (see: sheetnet settings)")
     train.add_argument("--replace", action="store_true", help="replace a stored model of the same name")
+    train.add_argument("--cluster", metavar="ADDRESS", help="train repeats on the Dask scheduler at ADDRESS, like tcp://10.1.2.3:8786 (default: this machine)")
 
     predict = commands.add_parser("predict", help="predict a range of a workbook file with a stored model")
     predict.add_argument("book", type=Path)
@@ -557,6 +564,9 @@ def build_parser() -> argparse.ArgumentParser:
     from .calc.commands import add_calc_parser
 
     add_calc_parser(commands)
+    from .search_command import add_search_parser
+
+    add_search_parser(commands)
     refresh = commands.add_parser("refresh", help="retrain the stored models whose data changed since training")
     refresh.add_argument("book", type=Path)
     refresh.add_argument("--model", help="only this model (default: every stored model)")
@@ -627,6 +637,10 @@ def _dispatch(args: argparse.Namespace) -> int:
         from .calc.commands import run_calc
 
         return run_calc(args, sys.stdout)
+    if args.command == "search":
+        from .search_command import run_search
+
+        return run_search(args, sys.stdout)
     runners = {
         "train": run_train, "predict": run_predict, "formulas": run_formulas, "models": run_models, "check": run_check, "refresh": run_refresh,
         "sign": run_sign, "keys": run_keys,

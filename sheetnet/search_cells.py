@@ -151,5 +151,5 @@ def search_table(table: Any, target: Any, candidates: Any = None, settings: Any 
     rows = result.rows()
     width = len(rows[0])
     rows.append(["choice rule", result.rule] + [""] * (width - 2))
-    rows.append(["folds", f"{result.folds} {result.mode}" + (f" by {group_column}" if group_column else "")] + [""] * (width - 2))
+    rows.append(["folds", f"{result.folds} folds, {result.mode}" + (f" by {group_column}" if group_column else "")] + [""] * (width - 2))
     return rows
