@@ -158,7 +158,7 @@ class _SheetnetEstimator(BaseEstimator):
             validate_data(self, table_for_names(X, table), reset=reset, skip_check_array=True)
         except ValueError as error:  # scikit-learn's words about column counts and names, as our error
             raise UnknownColumnError(str(error)) from None
-        _check_no_missing_numbers(table)
+        _check_no_missing_numbers(X, table)
         return table
 
     # --- prediction ----------------------------------------------------------------------
@@ -255,8 +255,12 @@ def table_for_names(X: Any, table: RawTable) -> Any:
     return np.empty((0, len(table.names)))
 
 
-def _check_no_missing_numbers(table: RawTable) -> None:
+def _check_no_missing_numbers(X: Any, table: RawTable) -> None:
     """A NaN in a numeric array is named in Python's word for it (the engine says 'blank', as cells do)."""
+    if isinstance(X, np.ndarray) and X.dtype.kind == "f":
+        with np.errstate(over="ignore", invalid="ignore"):
+            if np.isfinite(X.sum()):  # one contiguous sum: no NaN anywhere
+                return
     for name, values in zip(table.names, table.columns):
         if values.dtype.kind == "f":
             missing = np.isnan(values)
