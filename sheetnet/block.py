@@ -220,11 +220,18 @@ def _trimmed(fields: tuple[Any, ...]) -> tuple[Any, ...]:
     return fields[:end]
 
 
+def _canonical_entries(records: Sequence[Record]) -> list[list[Any]]:
+    return [[r.key, [_canonical(f) for f in _trimmed(r.fields)], [_canonical(n) for n in r.numbers]] for r in records]
+
+
+def _dumped(entries: list[list[Any]]) -> bytes:
+    return json.dumps(entries, separators=(",", ":")).encode("utf-8")
+
+
 def canonical_content(records: Sequence[Record]) -> bytes:
     """The records as the bytes the checksum and a signature cover: a compact JSON list of
     ``[key, [fields], [numbers]]``, each value as `_canonical` writes it (numbers to 15 digits)."""
-    canonical = [[r.key, [_canonical(f) for f in _trimmed(r.fields)], [_canonical(n) for n in r.numbers]] for r in records]
-    return json.dumps(canonical, separators=(",", ":")).encode("utf-8")
+    return _dumped(_canonical_entries(records))
 
 
 def checksum(records: Sequence[Record]) -> str:
@@ -408,7 +415,7 @@ def decode_block(cells: Any) -> tuple[Model, BlockInfo]:
 
     A signature row is checked for its shape only (`sheetnet.signing` verifies it), so a block
     with a damaged one is refused at every door rather than read as unsigned."""
-    records, version = _checked_records(cells)
+    records, version, _ = _checked_records(cells)
     _signature_of(records, version)
     try:
         return _model_of(records, version)
@@ -416,8 +423,9 @@ def decode_block(cells: Any) -> tuple[Model, BlockInfo]:
         raise BlockError(f"the model block is damaged (its rows do not fit together: {type(error).__name__}); train the model again") from None
 
 
-def _checked_records(cells: Any) -> tuple[list[Record], int]:
-    """The records of a block and its format version, after the first cell, the version and the checksum."""
+def _checked_records(cells: Any) -> tuple[list[Record], int, list[list[Any]]]:
+    """The records of a block, its format version and the records' canonical entries (computed once: they are
+    most of the cost), after the first cell, the version and the checksum."""
     if isinstance(cells, np.ndarray):
         cells = cells.tolist()
     if not isinstance(cells, (list, tuple)) or not cells or not all(isinstance(row, (list, tuple)) for row in cells) or not cells[0]:
@@ -438,9 +446,10 @@ def _checked_records(cells: Any) -> tuple[list[Record], int]:
     records, stored = _records_of(grid)
     if stored is None:
         raise BlockError("the model block is incomplete (its checksum row is missing); select the whole block, down to the row that starts with 'checksum'")
-    if stored != checksum(records):
+    entries = _canonical_entries(records)
+    if stored != hashlib.sha256(_dumped(entries)).hexdigest():  # `checksum`, from the entries
         raise BlockError("the model block was changed after training (its checksum does not match); undo the change, or train the model again")
-    return records, int(version)
+    return records, int(version), entries
 
 
 # --- the signature row (format 3) -----------------------------------------------------------
@@ -509,14 +518,15 @@ def signed_message(records: Sequence[Record]) -> bytes:
 def block_signature(cells: Any) -> tuple[bytes, BlockSignature | None]:
     """The message a block's signature covers and its signature (None: unsigned), after the checks
     `decode_block` makes first (first cell, version, checksum, the signature row's shape)."""
-    records, version = _checked_records(cells)
-    return signed_message(records), _signature_of(records, version)
+    records, version, entries = _checked_records(cells)
+    signature = _signature_of(records, version)
+    return SIGNED_PREFIX + _dumped([e for e in entries if e[0] != SIGNATURE_KEY]), signature  # `signed_message`, from the entries
 
 
 def with_signature(cells: Any, signature: BlockSignature) -> list[list[Any]]:
     """The block with ``signature`` as its last row before a new checksum (an older signature row is replaced).
     The signature must cover `block_signature(cells)[0]`; the rows above are kept as they are."""
-    records, version = _checked_records(cells)
+    records, version, _ = _checked_records(cells)
     if version < SIGNATURE_FROM_FORMAT:
         raise BlockError(
             f"this model was stored by an older sheetnet (block format {version}), which holds no signature; train it again and sign it then"

@@ -22,7 +22,9 @@ Key files are texts of our own (`key_file_text`, `public_key_file_text`)::
 
 from __future__ import annotations
 
+import hashlib
 import re
+from collections import OrderedDict
 from dataclasses import dataclass
 from typing import Any, Literal, Sequence
 
@@ -140,10 +142,22 @@ def check_signature(cells: Any, trusted: Sequence[PublicKey]) -> SignatureCheck:
     return SignatureCheck("unknown", found.key_id) if name is None else SignatureCheck("trusted", found.key_id, name)
 
 
+_WORDS_CACHE: OrderedDict[str, str] = OrderedDict()  # block content -> words: a recalculated ABOUT is not verified again
+_WORDS_CACHE_SIZE = 64
+
+
 def signature_in_words(cells: Any) -> str:
     """The signature as ABOUT shows it, without the trusted keys (a cell cannot know whom you trust:
     `sheetnet check` does). Raises `BlockError` for a damaged block."""
-    found = check_signature(cells, ())
+    key = hashlib.sha256(repr(cells).encode("utf-8")).hexdigest()
+    if key not in _WORDS_CACHE:
+        _WORDS_CACHE[key] = _signature_words(check_signature(cells, ()))
+        while len(_WORDS_CACHE) > _WORDS_CACHE_SIZE:
+            _WORDS_CACHE.popitem(last=False)
+    return _WORDS_CACHE[key]
+
+
+def _signature_words(found: SignatureCheck) -> str:
     if found.state == "unsigned":
         return "none: nothing shows who wrote this model (its checksum catches accidental damage, not deliberate edits)"
     if found.state == "wrong":
