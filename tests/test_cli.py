@@ -66,3 +66,40 @@ def test_console_script_is_installed():
     done = subprocess.run([str(script), "--version"], capture_output=True, text=True, timeout=60)
     assert done.returncode == 0
     assert done.stdout.startswith("sheetnet ")
+
+
+def test_check_refuses_unsigned_models_with_exit_code_1_when_asked(tmp_path):
+    import os
+
+    import numpy as np
+    import openpyxl
+    import pandas as pd
+
+    import sheetnet
+    from sheetnet import service
+    from sheetnet.block import BlockInfo, encode_block
+    from sheetnet.sheet_writer import apply_to_workbook
+
+    rng = np.random.default_rng(5)
+    frame = pd.DataFrame({"a": rng.normal(size=40), "b": rng.normal(size=40)})
+    model = sheetnet.fit(frame, frame["a"] - frame["b"], hidden=(2,), epochs=10, workers=1)
+    workbook = openpyxl.Workbook()
+    workbook.active["A1"] = "mine"
+    apply_to_workbook(workbook, service.model_placements("small", encode_block(model, BlockInfo("y", "t", "x", "f" * 64, 40, 0))))
+    book = tmp_path / "small.xlsx"
+    workbook.save(book)
+    script = str(Path(sys.executable).parent / "sheetnet")
+    environment = {**os.environ, "SHEETNET_KEYS": str(tmp_path / "keys")}
+
+    def run(*args):
+        return subprocess.run([script, *args], capture_output=True, text=True, timeout=120, env=environment)
+
+    assert run("check", str(book)).returncode == 0
+    refused = run("check", str(book), "--trusted-only")
+    assert refused.returncode == 1 and "REFUSED small: unsigned" in refused.stdout and "Traceback" not in refused.stderr
+    assert run("keys", "make", "me").returncode == 0
+    assert (tmp_path / "keys" / "me.key").stat().st_mode & 0o777 == 0o600
+    assert run("sign", str(book)).returncode == 0
+    passed = run("check", str(book), "--trusted-only")
+    assert passed.returncode == 0 and "ok      small: intact; signed by the trusted key 'me'" in passed.stdout
+    assert openpyxl.load_workbook(book).active["A1"].value == "mine"
