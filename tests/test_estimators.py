@@ -5,7 +5,10 @@ scikit-learn's `parametrize_with_checks` (sklearn.utils.estimator_checks) runs e
 """
 
 import inspect
+import os
 import pickle
+import subprocess
+import sys
 import warnings
 
 import numpy as np
@@ -28,6 +31,8 @@ QUICK = dict(epochs=200, decay=1e-4, validation_share=0)
 
 @parametrize_with_checks([SheetnetRegressor(hidden=(4,), **QUICK), SheetnetClassifier(hidden=(4,), **QUICK)])
 def test_scikit_learn_checks(estimator, check):
+    if getattr(check, "func", check).__name__ == "check_array_api_input":
+        pytest.skip("needs SCIPY_ARRAY_API=1 before SciPy loads: test_the_array_api_check_with_dispatch_enabled runs it in a process of its own")
     with warnings.catch_warnings():
         # scikit-learn's own helpers cast NaN to integers inside some checks; that warning is theirs, not ours
         warnings.filterwarnings("ignore", message="invalid value encountered in cast", category=RuntimeWarning)
@@ -153,3 +158,21 @@ def test_messages_of_the_scikit_learn_door():
         SheetnetClassifier(**QUICK).fit(frame, None)
     with pytest.raises(errors.NotEnoughRowsError, match=r"needs at least 4 rows; X has 1 row \(1 sample\)"):
         SheetnetRegressor(**QUICK).fit(frame.iloc[:1], y[:1])
+
+
+ARRAY_API_CHECK = """
+from sklearn.utils.estimator_checks import check_array_api_input
+from sheetnet.estimators import SheetnetClassifier, SheetnetRegressor
+for estimator in (SheetnetRegressor(hidden=(4,), **QUICK), SheetnetClassifier(hidden=(4,), **QUICK)):
+    check_array_api_input(type(estimator).__name__, estimator, array_namespace="numpy", expect_only_array_outputs=False)
+    print("passed", type(estimator).__name__)
+"""
+
+
+def test_the_array_api_check_with_dispatch_enabled():
+    """scikit-learn's check that array API dispatch leaves NumPy results unchanged; SciPy reads SCIPY_ARRAY_API when it loads."""
+    program = f"QUICK = {QUICK!r}\n" + ARRAY_API_CHECK
+    done = subprocess.run([sys.executable, "-W", "error", "-c", program], env={**os.environ, "SCIPY_ARRAY_API": "1"},
+                          capture_output=True, text=True, timeout=300)
+    assert done.returncode == 0, done.stderr[-2000:]
+    assert done.stdout.split("\n")[:2] == ["passed SheetnetRegressor", "passed SheetnetClassifier"]
