@@ -67,8 +67,9 @@ from .uncertainty import (
 )
 
 CAUTION = "a decision aid, not a decision: check it for bias and follow local law and licensed practice"
-# settings the cell layer reads itself (interval_level: of the conformal interval and the error bars; intended_use: for the model card)
-CELL_OPTIONS = ("seed", "ignore", "inputs", "categories", "blank_rows", "numbers_in_text", "interval_level", "intended_use")
+# settings the cell layer reads itself (interval_level: of the conformal interval and the error bars; intended_use: for the
+# model card; group: a column whose groups' holdout metrics the block records)
+CELL_OPTIONS = ("seed", "ignore", "inputs", "categories", "blank_rows", "numbers_in_text", "interval_level", "intended_use", "group")
 TRAIN_NUMBER_TEXT_FIX = (
     "convert the column to numbers in the sheet, or add the setting numbers_in_text=point (reads 1,234.5 and 12% as numbers) "
     "or numbers_in_text=comma (reads 1.234,5 as numbers)"
@@ -366,6 +367,7 @@ def train_block(
             intervals = metric_error_bars(model, holdout_frame, actual, level)
         if holdout.sum() >= rows_needed(level):  # the holdout rows are rows the network did not train on: they calibrate
             conformal = calibrate(model, holdout_frame, actual, level)
+    group_column, by_group = _training_groups(sheet, options.get("group"), holdout, model, readable, inputs, target_name)
     info = BlockInfo(
         target=target_name,
         trained_at=datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
@@ -380,8 +382,53 @@ def train_block(
         conformal=conformal,
         metric_intervals={k: v for k, v in intervals.items() if k in metrics},
         error_bars=(level, BOOTSTRAP_RESAMPLES, BOOTSTRAP_SEED) if intervals else None,
+        group_column=group_column,
+        group_metrics=by_group,
     )
     return encode_block(model, info)
+
+
+def _training_groups(
+    sheet: SheetTable, group: Any, holdout: np.ndarray, model: Model, readable: SheetTable, inputs: list[str], target: str
+) -> tuple[str | None, dict[str, dict[str, float]]]:
+    """The setting group=COLUMN: metrics by that column's groups over the holdout rows, for the block and the model card."""
+    if group is None or is_blank(group):
+        return None, {}
+    name = str(group).strip()
+    sheet.column(name)
+    rows = holdout & _rows_used(sheet, [name], True)
+    if not rows.any():
+        raise SettingError(f"the setting group={name} needs holdout rows with a group: train with a split (SHEETNET.SPLIT) that holds out rows")
+    labels = _group_labels(sheet, name, rows)
+    actual = numeric_frame(readable.frame.loc[rows, [target]])[target].to_numpy()
+    frame = _inputs_frame(readable, inputs, rows)
+    report = _in_sheet_rows(sheet.data_rows[rows], target, lambda: _group_report(model, labels, actual, frame))
+    by_group = {
+        str(label): {"rows": float(count), **{m: float(v) for m, v in values.items() if v is not None}}
+        for label, count, values in zip(report.groups, report.rows, report.values)
+    }
+    return name, by_group
+
+
+def _group_labels(sheet: SheetTable, name: str, rows: np.ndarray) -> list[str]:
+    labels = [label_in_words(v) for v in sheet.frame.loc[rows, name]]
+    if len(set(labels)) > MAX_GROUPS:
+        raise InputError(
+            f"column '{name}' holds {len(set(labels)):,} different values; metrics by group compare up to {MAX_GROUPS} groups: "
+            "name a column of categories (such as region), or make one that bands the values"
+        )
+    return labels
+
+
+def _group_report(decoded: Model, labels: list[str], actual: np.ndarray, frame: Any) -> Any:
+    from .groups import group_metrics
+
+    if decoded.task == "regression":
+        return group_metrics("regression", labels, numbers_of("target", actual), decoded.predict(frame))
+    index = decoded.target.class_indices(actual)
+    probabilities = decoded.predict_proba(frame)
+    decided = (probabilities[:, 1] >= decoded.threshold).astype(np.int64) if decoded.task == "binary" else probabilities.argmax(axis=1)
+    return group_metrics(decoded.task, labels, index, decided)
 
 
 def _given_arguments(hidden: Any, settings: Any) -> dict[str, Any]:
@@ -595,7 +642,7 @@ def _with_error_bars(answer: Cells, bars: dict[str, tuple[float, float]], level:
 def groups(model: Any, table: Any, group: Any, split: Any = None) -> Cells:
     """Metrics by group: one row per value of the group column, then the largest gap of each metric."""
     check_ranges(model=model, table=table, split=split)
-    from .groups import GAP_CAUTION, group_metrics
+    from .groups import GAP_CAUTION
 
     decoded, info, options = _decode(model)
     group = one_value(group, "group column")
@@ -608,24 +655,10 @@ def groups(model: Any, table: Any, group: Any, split: Any = None) -> Cells:
     rows = _scored_rows(decoded, info, sheet, split, options["skip_blanks"]) & _rows_used(sheet, [group_name], True)
     if not rows.any():
         raise InputError(f"no rows with a group in column '{group_name}'; fill the column or name another")
-    labels = [label_in_words(v) for v in sheet.frame.loc[rows, group_name]]
-    if len(set(labels)) > MAX_GROUPS:
-        raise InputError(
-            f"column '{group_name}' holds {len(set(labels)):,} different values; metrics by group compare up to {MAX_GROUPS} groups: "
-            "name a column of categories (such as region), or make one that bands the values"
-        )
+    labels = _group_labels(sheet, group_name, rows)
     actual = numeric_frame(sheet.frame.loc[rows, [info.target]])[info.target].to_numpy()
     frame = _inputs_frame(sheet, decoded.input_names, rows)
-
-    def measured() -> Any:
-        if decoded.task == "regression":
-            return group_metrics("regression", labels, numbers_of("target", actual), decoded.predict(frame))
-        index = decoded.target.class_indices(actual)
-        probabilities = decoded.predict_proba(frame)
-        decided = (probabilities[:, 1] >= decoded.threshold).astype(np.int64) if decoded.task == "binary" else probabilities.argmax(axis=1)
-        return group_metrics(decoded.task, labels, index, decided)
-
-    report = _in_sheet_rows(sheet.data_rows[rows], info.target, measured)
+    report = _in_sheet_rows(sheet.data_rows[rows], info.target, lambda: _group_report(decoded, labels, actual, frame))
     header: list[Any] = [group_name, "rows", *(metric_label(m) for m in report.metrics)]
     answer: Cells = [header]
     for label, count, values in zip(report.groups, report.rows, report.values):

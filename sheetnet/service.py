@@ -91,10 +91,18 @@ def names_of_model(name: str, existing_names: Iterable[str]) -> list[str]:
     return [n for n in existing_names if n.casefold() == folded or constant_owner(n) == folded]
 
 
+def card_sheet_name(name: str) -> str:
+    """The visible sheet holding a model's card (`sheetnet.model_card`): ``sn card NAME``."""
+    return results_sheet_name(name, "card")
+
+
 def model_placements(name: str, block: list[list[Any]], existing_names: Iterable[str] = ()) -> Placements:
     """Everything a stored model writes: its very hidden sheet with the block at A1 and the
-    native-formula constants from column K, the defined name of the block, one name per constant.
+    native-formula constants from column K, the defined name of the block, one name per constant,
+    and its model card on the visible sheet ``sn card NAME`` (our mark in A1, the card from A2).
     ``existing_names`` are the workbook's defined names now (the model's old ones are dropped)."""
+    from .model_card import model_card
+
     check_model_name(name)
     model, info = decode_block(block)
     sheet = model_sheet_name(name)
@@ -106,18 +114,20 @@ def model_placements(name: str, block: list[list[Any]], existing_names: Iterable
         cells.append(cell_block(sheet, row, CONSTANTS_COLUMN, constant.values))
         names.append(NamePlacement(constant.name, sheet, row, CONSTANTS_COLUMN, row + height - 1, CONSTANTS_COLUMN + width - 1))
         row += height + 1
+    card = card_sheet_name(name)
+    cells += [cell_block(card, 1, 1, [[OWNED_MARK]]), cell_block(card, 2, 1, model_card(name, block))]
     return Placements(
         drop_names=tuple(names_of_model(name, existing_names)),
-        drop_sheets=(sheet,),
-        sheets=(SheetPlan(sheet, "veryHidden"),),
+        drop_sheets=(sheet, card),
+        sheets=(SheetPlan(sheet, "veryHidden"), SheetPlan(card, "visible")),
         cells=tuple(cells),
         names=tuple(names),
     )
 
 
 def removal_placements(name: str, existing_names: Iterable[str]) -> Placements:
-    """What removing a stored model drops: its names and its hidden sheet."""
-    return Placements(drop_names=tuple(names_of_model(name, existing_names)), drop_sheets=(model_sheet_name(name),))
+    """What removing a stored model drops: its names, its hidden sheet and its card."""
+    return Placements(drop_names=tuple(names_of_model(name, existing_names)), drop_sheets=(model_sheet_name(name), card_sheet_name(name)))
 
 
 # --- visible sheets of ours and native formulas -------------------------------------------

@@ -31,6 +31,9 @@ def check_storable(book: Book, name: str, replace: bool = False) -> None:
     current = next((s for s in book.formulas.worksheets if service.same_title(s.title, sheet)), None)
     if current is not None and current["A1"].value != MAGIC:
         raise InputError(f"the workbook has a sheet '{current.title}' that sheetnet did not write; rename that sheet or choose another model name")
+    card = service.card_sheet_name(name)
+    current = next((s for s in book.formulas.worksheets if service.same_title(s.title, card)), None)
+    service.check_owned_sheet(card, None if current is None else current["A1"].value)
     for other in model_names(book):
         destinations = list(book.formulas.defined_names[other].destinations)
         if not service.same_title(other, name) and destinations and service.same_title(destinations[0][0], sheet):

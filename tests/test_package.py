@@ -528,12 +528,12 @@ def test_a_workbook_part_written_the_way_excel_writes_it_keeps_all_but_our_entri
     for extra in ((), ("--replace",)):
         assert cli.main(["train", str(path), "--table", "Data!A1:B31", "--target", "y", "--name", "m", "--set", "epochs=20", *extra]) == 0
     workbook = _members(path)["xl/workbook.xml"].decode()
-    ours = re.compile(r'<sheet name="(sheetnet_m|sn m)"[^>]*/>|<definedName name="(m|snf_m_[^"]*)">[^<]*</definedName>')
+    ours = re.compile(r'<sheet name="(sheetnet_m|sn m|sn card m)"[^>]*/>|<definedName name="(m|snf_m_[^"]*)">[^<]*</definedName>')
     assert ours.sub("", workbook) == EXCEL_STYLE_WORKBOOK
     assert len(ours.findall(workbook)) >= 4
     reread = _openpyxl(path)
     assert reread.defined_names["rates"].attr_text == "Data!$B$2:$B$31"
-    assert reread.sheetnames == ["Data", "sheetnet_m", "sn m"]
+    assert reread.sheetnames == ["Data", "sheetnet_m", "sn card m", "sn m"]
 
 
 CALC_CHAIN = '<calcChain xmlns="http://schemas.openxmlformats.org/spreadsheetml/2006/main"><c r="B2" i="{}"/><c r="B3"/></calcChain>'

@@ -110,3 +110,60 @@ def test_refresh_leaves_unchanged_and_sourceless_models_alone(table):
     outcome = service.refresh_model("bare", bare, lambda address: table)
     assert outcome.state == "no-source" and "does not record the range" in outcome.message
     assert service.refresh_summary([outcome]) == "sheetnet: not from a known range, left as they are: bare"
+
+
+def _card(placements, name):
+    title = service.card_sheet_name(name)
+    blocks = [c for c in placements.cells if c.sheet == title]
+    assert [b.values for b in blocks[:1]] == [((service.OWNED_MARK,),)]
+    return {row[0]: row for row in blocks[1].values if row[0]}
+
+
+def test_every_stored_model_gets_a_card_with_use_data_metrics_groups_limits_and_cautions(table):
+    request = service.TrainRequest(
+        table, "grade", "3", "epochs=40; ignore=lot; intended_use=sorting lots for cupping; group=process", seed=1, address="Data!A1:G91"
+    )
+    trained = service.train_model(request)
+    placements = service.model_placements("grades", trained.block)
+    assert [(s.title, s.visibility) for s in placements.sheets] == [("sheetnet_grades", "veryHidden"), ("sn card grades", "visible")]
+    assert "sn card grades" in placements.drop_sheets and "sn card grades" in service.removal_placements("grades", []).drop_sheets
+    card = _card(placements, "grades")
+    assert card["intended use"][1] == "sorting lots for cupping"
+    assert card["training rows"][1] == 72 and card["holdout rows"][1] == 18 and card["source range"][1] == "Data!A1:G91"
+    accuracy = card["Accuracy"]
+    assert accuracy[2] == "accuracy" and "%" in accuracy[1] and "90 % interval" in accuracy[1]  # a share shown as a percentage
+    assert "every class with probability" in card["prediction set"][1]
+    _, info = decode_block(trained.block)
+    process = [r for r in table[1:] if r[table[0].index("process")] is not None]
+    assert info.group_column == "process" and sum(v["rows"] for v in info.group_metrics.values()) == 18 and len(process) == 90
+    for label, values in info.group_metrics.items():
+        assert card[label][1] == f"{int(values['rows'])} rows"
+    assert "altitude_m range" in card and "process categories" in card
+    title = service.card_sheet_name("grades")
+    texts = " ".join(str(v) for block in placements.cells if block.sheet == title for row in block.values for v in row)
+    assert "decision aid" in texts and "local law" in texts and "credit, hiring, medical or safety" in texts
+    assert "needs a person's judgement" in texts  # the caution beside the group gaps
+
+
+def test_a_card_for_a_format_2_block_and_one_without_a_holdout(table):
+    with open("tests/data/block_format_2.json") as f:
+        old = json.load(f)["block"]
+    card = _card(service.model_placements("old", old), "old")
+    assert card["intended use"][1].startswith("not stated") and "Holdout metrics" in card
+    block = functions.train_block(table, "grade", "2", "epochs=5; ignore=lot")
+    card = _card(service.model_placements("plain", block), "plain")
+    assert card["holdout metrics"][1].startswith("none") and card["no holdout rows"][1] == 0
+
+
+def test_a_users_sheet_named_like_a_card_is_never_replaced(tmp_path, table):
+    import openpyxl
+
+    from sheetnet.workbook import open_book
+    from sheetnet.workbook_models import check_storable
+
+    book = openpyxl.Workbook()
+    book.active.title = "Data"
+    book.create_sheet("SN card grades")["A1"] = "my own notes"
+    book.save(tmp_path / "mine.xlsx")
+    with pytest.raises(InputError, match="sheet 'sn card grades' that sheetnet did not write"):
+        check_storable(open_book(tmp_path / "mine.xlsx"), "grades")
