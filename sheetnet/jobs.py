@@ -43,6 +43,7 @@ from . import functions, service
 from .cells import Cells
 from .errors import SheetnetError
 from .limits import KEPT_JOB_CELLS, KEPT_JOBS, KEPT_MODELS, MAX_RUNNING_JOBS, MAX_WAITING_JOBS
+from .progress import reporting_to
 from .registry import BY_NAME
 from .stopping import ProgressCallback
 
@@ -110,6 +111,9 @@ class Job:
     training_loss: float | None = None
     validation_loss: float | None = None
     curve: list[list[float | None]] = field(default_factory=list)
+    stage: str | None = None  # the run of jobs under way ("repeats"), and how many of them are done
+    done: int = 0
+    total: int = 0
     message: str | None = None
     result: list[list[Any]] | None = None
     placements: dict[str, Any] | None = None
@@ -122,7 +126,7 @@ class Job:
             "id": self.id, "name": self.name, "state": self.state, "waiting": self.waiting, "epoch": self.epoch, "epochs": self.epochs,
             "training_loss": self.training_loss, "validation_loss": self.validation_loss,
             "curve": self.curve[-CURVE_POINTS_SHOWN:], "message": self.message, "result": self.result,
-            "placements": self.placements,
+            "placements": self.placements, "stage": self.stage, "done": self.done, "total": self.total,
         }
 
 
@@ -312,15 +316,21 @@ class JobBoard:
             if len(job.curve) > 2 * CURVE_POINTS_SHOWN:  # a long training keeps only what its view shows
                 del job.curve[:-CURVE_POINTS_SHOWN]
 
+        def jobs_done(what: str, done: int, total: int) -> None:  # "k of n done" from sheetnet.parallel
+            if job.cancel.is_set():
+                raise Cancelled("the training was cancelled")
+            job.stage, job.done, job.total = what, done, total
+
         reporting: ProgressCallback = progress
         state, message, result, placements, about = "failed", None, None, None, None
         try:
             table, target, hidden, settings, split = args
-            if job.split is not None:
-                request = service.TrainRequest(table, target, hidden, settings, job.split.holdout, job.split.mode, job.split.seed, job.split.address)
-                block = service.train_model(request, reporting).block
-            else:
-                block = self.trainer(table, target, hidden, settings, split, progress=reporting)
+            with reporting_to(jobs_done):
+                if job.split is not None:
+                    request = service.TrainRequest(table, target, hidden, settings, job.split.holdout, job.split.mode, job.split.seed, job.split.address)
+                    block = service.train_model(request, reporting).block
+                else:
+                    block = self.trainer(table, target, hidden, settings, split, progress=reporting)
             if job.existing_names is not None:
                 placements, message = self._placements(job, block)
             about = functions.raising(functions.about)(block)

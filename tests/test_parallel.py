@@ -209,3 +209,16 @@ def test_the_cluster_gives_the_same_bits_as_one_process(local_cluster):
     assert found.chosen.candidate == local_search.chosen.candidate
     for a, b in zip(model.members, local_fit.members):
         np.testing.assert_array_equal(a.theta, b.theta)
+
+
+def test_a_server_job_shows_how_many_repeats_are_done():
+    from sheetnet.jobs import JobBoard
+
+    X, y = _table(60)
+    table = [["a", "b", "c", "y"]] + [[*map(float, row), float(v)] for row, v in zip(X, y)]
+    board = JobBoard()
+    job = board.submit("quick", [table, "y", "2", "repeats=3; workers=1; epochs=20"])
+    assert job.finished.wait(60)
+    view = job.view()
+    assert view["state"] == "done", view["message"]
+    assert (view["stage"], view["done"], view["total"]) == ("repeats", 3, 3)
