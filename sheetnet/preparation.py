@@ -170,8 +170,8 @@ def _column_array(values: np.ndarray, name: str = "") -> np.ndarray:
 
 
 def _cell_kind(value: Any) -> str:
-    """'number', 'text', 'blank' or 'error' for one cell."""
-    if value is None:
+    """'number', 'text', 'blank', 'error', 'date' or 'object' (not one value) for one cell."""
+    if value is None or type(value).__name__ in ("NAType", "NaTType"):  # pandas' missing values
         return "blank"
     if isinstance(value, (bool, np.bool_)):
         return "number"

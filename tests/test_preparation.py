@@ -275,3 +275,9 @@ def test_complex_numbers_and_cells_holding_several_values_are_refused():
     with pytest.raises(errors.CellTypeError, match="column 'x2', row 4: the cell holds a dict, not one value") as raised:
         sheetnet.fit(X, np.arange(10.0), **FAST)
     assert isinstance(raised.value, TypeError)
+
+
+def test_pandas_missing_values_are_blank_cells():
+    frame = pd.DataFrame({"count": pd.array([1, None, 3, 4], dtype="Int64")})
+    with pytest.raises(errors.BadValueError, match="column 'count', row 2: the cell is blank or not a number"):
+        sheetnet.fit(frame, [1.0, 2.0, 3.0, 4.5], **FAST)
