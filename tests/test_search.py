@@ -114,3 +114,72 @@ def test_search_refuses_bad_requests_before_training():
         sheetnet.search(X, y, [Candidate((2,), -1.0)])
     with pytest.raises(sheetnet.SheetnetError, match="a candidate has width"):
         sheetnet.search(X, y, [{"width": 3}])
+
+
+def _sheet(rows=90, seed=0):
+    rng = np.random.default_rng(seed)
+    X = rng.normal(size=(rows, 2))
+    y = np.sin(2 * X[:, 0]) + 0.5 * X[:, 1] + 0.1 * rng.normal(size=rows)
+    return [["week", "a", "b", "store", "sales"]] + [[i, float(a), float(b), f"s{i % 6}", float(v)] for i, ((a, b), v) in enumerate(zip(X, y))]
+
+
+def test_the_cell_function_ranks_like_the_python_search():
+    from sheetnet import functions
+
+    table = _sheet()
+    answer = functions.search(table, "sales", [["hidden", "decay"], ["0", None], [3, 0.01]], "ignore=week, store; epochs=40; seed=1", "ordered 3")
+    X = np.array([[row[1], row[2]] for row in table[1:]])
+    y = np.array([row[4] for row in table[1:]])
+    direct = sheetnet.search(X, y, [Candidate(()), Candidate((3,), 0.01)], k=3, seed=1, mode="ordered", epochs=40)
+    assert answer[0][5] == "mean rmse"
+    # a DataFrame and an array of the same numbers are scaled in a different order: equal to the last bit or two
+    assert [row[5] for row in answer[1:3]] == pytest.approx([s.mean for s in direct.ranking], rel=1e-12)
+    assert answer[3][:2] == ["choice rule", direct.rule] and answer[4][:2] == ["folds", "3 folds, ordered"]
+    assert all(len(row) == 9 for row in answer)
+
+
+def test_the_cell_function_keeps_groups_whole_and_leaves_their_column_out():
+    from sheetnet import functions
+
+    answer = functions.search(_sheet(), "sales", [["hidden"], [2]], "ignore=week; epochs=20", "grouped store 3")
+    assert answer[1][4] == (2 + 1) * 2 + (2 + 1) * 1  # inputs a and b only: the group column is not an input
+    assert answer[-1][1] == "3 folds, grouped by store"
+
+
+def test_the_cell_function_answers_in_spreadsheet_words():
+    from sheetnet import functions
+
+    table = _sheet(30)
+    assert functions.search(table, "sales", None, None, "weekly")[0][0].startswith("#SHEETNET! the folds 'weekly' are not understood")
+    assert functions.search(table, "sales", [["width"], [3]])[0][0].startswith("#SHEETNET! the candidates' header has 'width'")
+    missing = functions.search(table, "sales", None, None, "grouped shop")[0][0]
+    assert missing == "#SHEETNET! the table has no column named 'shop'; its columns are: week, a, b, store, sales"
+    table[5][1] = "lots"
+    found = functions.search(table, "sales", [["hidden"], [2]], "ignore=week, store", 2)[0][0]
+    assert found.startswith("#SHEETNET!") and "row 6 of the table" in found  # the row as the user counts it, not inside a fold
+
+
+def test_the_search_command_prints_the_ranking_and_how_to_train_the_choice(tmp_path, capsys):
+    import openpyxl
+
+    from sheetnet.cli import main
+
+    book = openpyxl.Workbook()
+    for row in _sheet(80):
+        book.active.append(row)
+    book.active.title = "Data"
+    path = tmp_path / "sales.xlsx"
+    book.save(path)
+    before = path.read_bytes()
+    code = main([
+        "search", str(path), "--table", "Data!A1:E81", "--target", "sales", "--hidden", "0", "--hidden", "3", "--decay", "0.01",
+        "--folds", "ordered 3", "--set", "ignore=week, store", "--set", "epochs=30",
+    ])
+    out = capsys.readouterr().out
+    assert code == 0
+    assert out.splitlines()[0] == "2 candidates for sales on Data!A1:E81; 3 folds, ordered"
+    assert "mean rmse" in out and "use this" in out and "rule: the simplest candidate" in out
+    assert f"to train it: sheetnet train {path} --table 'Data!A1:E81' --target 'sales' --name NAME --hidden " in out
+    assert path.read_bytes() == before  # a search writes nothing
+    assert main(["search", str(path), "--table", "Data!A1:E81", "--target", "sales", "--folds", "grouped nowhere"]) == 1
+    assert "the table has no column named 'nowhere'" in capsys.readouterr().err
