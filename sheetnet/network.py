@@ -25,6 +25,7 @@ from typing import Callable, Sequence
 
 import numpy as np
 from scipy.special import expit
+from threadpoolctl import ThreadpoolController
 
 Array = np.ndarray
 
@@ -182,15 +183,18 @@ def pack(params: Sequence[tuple[Array, Array]]) -> Array:
 
 
 def initial_parameters(sizes: Sequence[int], activation: str, rng: np.random.Generator) -> Array:
-    """Glorot-uniform weights (Glorot & Bengio 2010) and zero biases.
+    """Glorot-uniform weights (Glorot & Bengio 2010) and zero biases, the same bound for every activation.
 
-    The bound is ``sqrt(6 / (fan_in + fan_out))``, times 4 for the logistic
-    activation (as that paper recommends) and times sqrt(2) for ReLU (He et al. 2015).
+    The bound is ``sqrt(6 / (fan_in + fan_out))``. Earlier versions multiplied
+    it by 4 for the logistic activation and by sqrt(2) for ReLU; with
+    standardised inputs the larger weights saturated units and slowed Adam
+    (make_friedman1, 7,500 rows, 20 epochs of 200-row batches at rate 0.001:
+    holdout R^2 0.28 instead of 0.72 for logistic, 0.77 instead of 0.84 for
+    ReLU) while L-BFGS ended at the same quality either way.
     """
-    gain = {"logistic": 4.0, "relu": np.sqrt(2.0)}.get(activation, 1.0)
     theta = np.zeros(parameter_count(sizes))
     for w, (n_in, n_out), _ in layout(sizes):
-        bound = gain * np.sqrt(6.0 / (n_in + n_out))
+        bound = np.sqrt(6.0 / (n_in + n_out))
         theta[w] = rng.uniform(-bound, bound, n_in * n_out)
     return theta
 
@@ -199,6 +203,23 @@ def initial_parameters(sizes: Sequence[int], activation: str, rng: np.random.Gen
 
 PREDICT_CHUNK_ROWS = 1024  # samples per block: keeps each layer's intermediate block in cache
 
+_THREADPOOLS: ThreadpoolController | None = None
+
+
+def one_blas_thread():  # type: ignore[no-untyped-def]
+    """Pin BLAS to one thread (a context manager).
+
+    Small products gain nothing from a second thread, and on busy cores its
+    hand-overs cost more than the work: two pools of two threads on two cores
+    slowed fits 2-3x, and 10,000 digits-shaped predictions in blocks ran at
+    half the speed of one big product. The controller is built once;
+    building it scans every loaded library.
+    """
+    global _THREADPOOLS
+    if _THREADPOOLS is None:
+        _THREADPOOLS = ThreadpoolController()
+    return _THREADPOOLS.limit(limits=1, user_api="blas")
+
 
 def forward_layers(params: Sequence[tuple[Array, Array]], activation: str, head: str, X: Array) -> Array:
     """Output for rows ``X`` given ``[(W_1, b_1), ...]``: shape (rows, outputs), in float64.
@@ -206,6 +227,13 @@ def forward_layers(params: Sequence[tuple[Array, Array]], activation: str, head:
     Rows go through in blocks so that intermediate arrays stay small and in
     cache; a non-finite input raises `ValueError` (callers name the cell).
     """
+    if len(X) > PREDICT_CHUNK_ROWS:  # one row is answered faster than the pin costs (about 8 us)
+        with one_blas_thread():
+            return _forward_blocks(params, activation, head, X)
+    return _forward_blocks(params, activation, head, X)
+
+
+def _forward_blocks(params: Sequence[tuple[Array, Array]], activation: str, head: str, X: Array) -> Array:
     act = ACTIVATIONS[activation]
     output = HEADS[head].output
     columns = [(w.T, b[:, None]) for w, b in params]
@@ -293,6 +321,7 @@ class Objective:
             self._X, self._Y = np.ascontiguousarray(rows), np.ascontiguousarray(targets)
         else:
             self._X, self._Y = np.ascontiguousarray(rows.T), np.ascontiguousarray(targets.T)
+        self._spare: tuple[Array, Array] | None = None  # shuffle's gather target, made on the first shuffle
         self.decay = float(decay)
         self._layout = layout(self.sizes)
         self._buffers: dict[int, _Buffers] = {}
@@ -301,19 +330,24 @@ class Objective:
         self._grad = np.empty(parameter_count(self.sizes), self.dtype)
         self._params = [(self._theta[w].reshape(shape), self._theta[b]) for w, shape, b in self._layout]
         self._grads = [(self._grad[w].reshape(shape), self._grad[b]) for w, shape, b in self._layout]
-        self._weight_mask = np.zeros(parameter_count(self.sizes), bool)
-        for w, _, _ in self._layout:
-            self._weight_mask[w] = True
+        self._weight_slices = [w for w, _, _ in self._layout]  # slices, not a mask: masks copy on every call
 
     def shuffle(self, rng: np.random.Generator) -> None:
-        """Reorder the rows (inputs and targets together) for the next epoch."""
+        """Reorder the rows (inputs and targets together) for the next epoch.
+
+        Rows are gathered with `np.take` into spare arrays which then swap with
+        the current ones: 1.5-1.8x faster than ``X[:] = X[order]``, which builds
+        a temporary and copies it back.
+        """
         order = rng.permutation(self.n_rows)
-        if self._row_major:
-            self._X[:] = self._X[order]
-            self._Y[:] = self._Y[order]
-        else:
-            self._X[:] = self._X[:, order]
-            self._Y[:] = self._Y[:, order]
+        axis = 0 if self._row_major else 1
+        if self._spare is None:
+            self._spare = (np.empty_like(self._X), np.empty_like(self._Y))
+        spare_x, spare_y = self._spare
+        np.take(self._X, order, axis=axis, out=spare_x)
+        np.take(self._Y, order, axis=axis, out=spare_y)
+        self._spare = (self._X, self._Y)
+        self._X, self._Y = spare_x, spare_y
 
     def _inputs(self, start: int, stop: int) -> Array:
         """Rows start:stop as columns, shape (inputs, rows)."""
@@ -323,8 +357,7 @@ class Objective:
         return self._Y[start:stop].T if self._row_major else self._Y[:, start:stop]
 
     def penalty(self, theta: Array) -> float:
-        w = theta[self._weight_mask]
-        return 0.5 * self.decay * float(np.dot(w, w))
+        return 0.5 * self.decay * sum(float(np.dot(theta[w], theta[w])) for w in self._weight_slices)
 
     def _work(self, rows: int) -> _Buffers:
         work = self._buffers.get(rows)
@@ -383,6 +416,8 @@ class Objective:
         grad = self._grad.astype(np.float64)
         grad /= rows
         # the penalty is spread over all N training rows, so batches estimate it without bias
-        scale = self.decay / self.n_rows
-        grad[self._weight_mask] += scale * theta[self._weight_mask]
+        if self.decay:
+            scale = self.decay / self.n_rows
+            for weights in self._weight_slices:
+                grad[weights] += scale * theta[weights]
         return loss / rows + self.penalty(theta) / self.n_rows, grad

@@ -45,8 +45,10 @@ SETTINGS: tuple[Setting, ...] = (
     Setting("gradient_threshold", float, d.GRADIENT_THRESHOLD, "stop once the largest partial derivative is at or below this", low=0.0),
     Setting("tolerance", float, d.TOLERANCE, "a loss must fall by this share of itself to count as progress", low=0.0, high=1.0),
     Setting("patience", int, d.PATIENCE, "epochs without progress before stopping (validation loss, or training loss when no validation share)", low=1, high=100_000),
-    Setting("validation_share", float, None, f"share of training rows held back for early stopping; none: {d.AUTO_VALIDATION_SHARE:g} from {d.VALIDATION_ROW_LIMIT:,} training rows on, else 0", low=0.0, high=0.5, allow_none=True),
-    Setting("decay", float, 1e-4, "L2 weight decay: adds decay/2 * sum of squared weights (biases excluded) to the summed loss", low=0.0),
+    Setting("validation_share", float, None, f"share of training rows held back for early stopping; none: {d.AUTO_VALIDATION_SHARE:g} from {d.VALIDATION_ROW_LIMIT:,} training rows on, else 0 "
+        "(and 0 while the decay is chosen by cross-validation)", low=0.0, high=0.5, allow_none=True),
+    Setting("decay", float, None, "L2 weight decay: adds decay/2 * sum of squared weights (biases excluded) to the summed loss; "
+        f"none: chosen by {d.TUNING_FOLDS}-fold cross-validation on the training rows below {d.TUNING_ROW_LIMIT:,} of them, else {d.DEFAULT_DECAY:g}", low=0.0, allow_none=True),
     Setting("rate", float, None, f"learning rate; none: {d.GD_RATE:g} for gd, {d.ADAM_RATE:g} for adam "
         f"(the paper suggests {d.ADAM_PAPER_RATE:g}; {d.ADAM_RATE:g} converged about 3x sooner on large tables)", low=0.0, allow_none=True),
     Setting("momentum", float, 0.9, "momentum of gradient descent", low=0.0, high=0.999),

@@ -2,18 +2,28 @@
 
 Randomness enters through the ``seed`` argument only: it seeds one
 `numpy.random.SeedSequence` whose children drive each repeat's starting
-weights, inner validation rows and batch order, so the same data, settings
-and seed give identical weights.
+weights, inner validation rows and batch order (and, after them, the inner
+cross-validation that chooses the decay), so the same data, settings and
+seed give identical weights.
+
+Small tables (below `defaults.TUNING_ROW_LIMIT` training rows, decay left at
+none): early stopping on a small inner validation share is noisy and trains
+on fewer rows, so instead the weight decay is chosen by k-fold
+cross-validation on the training rows (`choose_decay`), and the network is
+then trained on every training row with that decay until the training loss
+stalls. On the benchmark's small tables this lifted, for example, diabetes
+R^2 from 0.46 to 0.51 and make_classification (750 training rows) accuracy
+from 0.77 to 0.89 (tests/benchmarks/vs_reference.py).
 """
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 from types import MappingProxyType
 from typing import Any, Sequence
 
 import numpy as np
-from threadpoolctl import ThreadpoolController
 
 from . import network, optimizers
 from .cell_text import cell_in_words
@@ -21,9 +31,13 @@ from .defaults import (
     ADAM_BATCH_ROWS,
     AUTO_RATES,
     AUTO_VALIDATION_SHARE,
+    DECAY_CHOICES,
+    DEFAULT_DECAY,
     FLOAT32_ROW_LIMIT,
     LBFGS_ROW_LIMIT,
     MIN_ROWS,
+    TUNING_FOLDS,
+    TUNING_ROW_LIMIT,
     VALIDATION_ROW_LIMIT,
 )
 from .errors import LengthMismatchError, NotEnoughRowsError, SettingError, TrainingError
@@ -32,21 +46,8 @@ from .model import Member, Model
 from .parallel import run_jobs
 from .preparation import fit_preparation, fit_target, read_table, read_target
 from .settings import resolve_settings
-from .splits import holdout_mask
+from .splits import holdout_mask, k_folds
 from .stopping import Monitor, ProgressCallback, StoppingRules
-
-_THREADPOOLS: ThreadpoolController | None = None
-
-
-def _one_blas_thread():  # type: ignore[no-untyped-def]
-    """Pin BLAS to one thread: two pools of two threads on two cores slow fits 2-3x.
-
-    The controller is built once; building it scans every loaded library.
-    """
-    global _THREADPOOLS
-    if _THREADPOOLS is None:
-        _THREADPOOLS = ThreadpoolController()
-    return _THREADPOOLS.limit(limits=1, user_api="blas")
 
 
 @dataclass(frozen=True)
@@ -58,6 +59,8 @@ class Plan:
     validation_share: float
     rate: float
     batch_rows: int
+    decay: float | None = None  # None: chosen by inner cross-validation (see `choose_decay`)
+    folds: int = 0  # folds of that cross-validation
 
 
 def plan_training(n_rows: int, settings: dict[str, Any]) -> Plan:
@@ -77,7 +80,15 @@ def plan_training(n_rows: int, settings: dict[str, Any]) -> Plan:
     batch = settings["batch"]
     if batch is None:
         batch = ADAM_BATCH_ROWS if algorithm == "adam" else 0
-    return Plan(algorithm, dtype, float(share), float(rate), int(batch))
+    decay = settings["decay"]
+    folds = 0
+    if decay is None and n_rows < TUNING_ROW_LIMIT:
+        folds = TUNING_FOLDS
+        if settings["validation_share"] is None:
+            share = 0.0  # the folds decide, and the final fit uses every row
+    elif decay is None:
+        decay = DEFAULT_DECAY
+    return Plan(algorithm, dtype, float(share), float(rate), int(batch), decay, folds)
 
 
 def _check_hidden(hidden: int | Sequence[int]) -> tuple[int, ...]:
@@ -100,6 +111,73 @@ def _validation_rows(n_rows: int, share: float, rng: np.random.Generator, labels
     return holdout_mask(n_rows, share, seed, "random")
 
 
+def _inner_folds(n_rows: int, folds: int, rng: np.random.Generator, labels: np.ndarray | None) -> list[tuple[np.ndarray, np.ndarray]]:
+    """The folds of the inner cross-validation (stratified for classes when every class fills every fold)."""
+    seed = int(rng.integers(2**32))
+    if labels is not None and np.unique(labels, return_counts=True)[1].min() >= folds:
+        return k_folds(n_rows, folds, seed, labels)
+    return k_folds(n_rows, folds, seed)
+
+
+def _stopping_rules(settings: dict[str, Any]) -> StoppingRules:
+    return StoppingRules(
+        epochs=settings["epochs"],
+        target_loss=settings["target_loss"],
+        gradient_threshold=settings["gradient_threshold"],
+        tolerance=settings["tolerance"],
+        patience=settings["patience"],
+    )
+
+
+@dataclass(frozen=True)
+class DecayChoice:
+    """What the inner cross-validation found: the decay kept, and the mean validation loss of each decay tried."""
+
+    decay: float
+    losses: tuple[float, ...]  # one per `DECAY_CHOICES`, in its order
+
+
+def choose_decay(
+    inputs: np.ndarray,
+    outputs: np.ndarray,
+    labels: np.ndarray | None,
+    sizes: tuple[int, ...],
+    activation: str,
+    head: str,
+    settings: dict[str, Any],
+    plan: Plan,
+    theta: np.ndarray,
+    rng: np.random.Generator,
+) -> DecayChoice:
+    """Pick the weight decay by ``plan.folds``-fold cross-validation on the training rows.
+
+    Every decay of `DECAY_CHOICES` is trained on each fold's other rows from the
+    same starting weights ``theta``, watching the fold's rows for early stopping;
+    the decay with the lowest mean best validation loss (weighted by fold rows) wins.
+    """
+    folds = _inner_folds(len(inputs), plan.folds, rng, labels)
+    dtype = np.float32 if plan.dtype == "float32" else np.float64
+    optimizer = optimizers.OPTIMIZERS[plan.algorithm]
+    chosen = {**settings, "rate": plan.rate, "batch": plan.batch_rows}
+    fold_rng_seed = int(rng.integers(2**32))
+    losses = []
+    for decay in DECAY_CHOICES:
+        total = 0.0
+        for train_rows, test_rows in folds:
+            train = network.Objective(
+                sizes, activation, head, inputs[train_rows], outputs[train_rows], decay, dtype,
+                batch_rows=plan.batch_rows if optimizer.mini_batches else None,
+            )
+            check = network.Objective(sizes, activation, head, inputs[test_rows], outputs[test_rows], 0.0, dtype)
+            monitor = Monitor(_stopping_rules(settings), check.data_loss)
+            _, reason = optimizers.run(plan.algorithm, train, theta, monitor, np.random.default_rng(fold_rng_seed), chosen)
+            curve = np.asarray(monitor.validation_curve)
+            usable = reason != "diverged" and np.isfinite(curve).all()  # a decay whose steps blow up is never kept
+            total += (float(curve.min()) if usable else np.inf) * len(test_rows) / len(inputs)
+        losses.append(total)
+    return DecayChoice(DECAY_CHOICES[int(np.argmin(losses))], tuple(losses))
+
+
 def train_member(
     inputs: np.ndarray,
     outputs: np.ndarray,
@@ -115,27 +193,21 @@ def train_member(
     """Train one network on prepared arrays; pure apart from the progress callback."""
     rng = np.random.default_rng(seed)
     theta = network.initial_parameters(sizes, activation, rng)
+    assert plan.decay is not None, "fit chooses the decay before training members"
     held = _validation_rows(len(inputs), plan.validation_share, rng, labels)
     dtype = np.float32 if plan.dtype == "float32" else np.float64
     optimizer = optimizers.OPTIMIZERS[plan.algorithm]
     train = network.Objective(
-        sizes, activation, head, inputs[~held], outputs[~held], settings["decay"], dtype,
+        sizes, activation, head, inputs[~held], outputs[~held], plan.decay, dtype,
         batch_rows=plan.batch_rows if optimizer.mini_batches else None,
     )
     validation_loss = None
     if held.any():
         check = network.Objective(sizes, activation, head, inputs[held], outputs[held], 0.0, dtype)
         validation_loss = check.data_loss
-    rules = StoppingRules(
-        epochs=settings["epochs"],
-        target_loss=settings["target_loss"],
-        gradient_threshold=settings["gradient_threshold"],
-        tolerance=settings["tolerance"],
-        patience=settings["patience"],
-    )
-    monitor = Monitor(rules, validation_loss, progress)
+    monitor = Monitor(_stopping_rules(settings), validation_loss, progress)
     chosen = {**settings, "rate": plan.rate, "batch": plan.batch_rows}  # the plan's resolution of the auto choices
-    with _one_blas_thread():
+    with network.one_blas_thread():
         theta, reason = optimizers.run(plan.algorithm, train, theta, monitor, rng, chosen)
     theta = np.array(theta, dtype=np.float64)
     if reason == "diverged" or not np.isfinite(theta).all():
@@ -196,7 +268,14 @@ def fit(
     sizes = (preparation.width, *layers, target.outputs)
     plan = plan_training(table.n_rows, resolved)
 
-    seeds = np.random.SeedSequence(int(seed)).spawn(resolved["repeats"])
+    root = np.random.SeedSequence(int(seed))
+    seeds = root.spawn(resolved["repeats"])
+    if plan.decay is None:  # after the members' seeds, so choosing the decay leaves them as they were
+        tuning = np.random.default_rng(root.spawn(1)[0])
+        start = network.initial_parameters(sizes, resolved["activation"], tuning)
+        with network.one_blas_thread():
+            choice = choose_decay(inputs, outputs, labels, sizes, resolved["activation"], target.head, resolved, plan, start, tuning)
+        plan = dataclasses.replace(plan, decay=choice.decay)
     args = (inputs, outputs, labels, sizes, resolved["activation"], target.head, resolved, plan)
     if len(seeds) == 1:  # one network: here, with its progress per epoch
         members: tuple[Member, ...] = (train_member(*args, seeds[0], progress=progress),)
@@ -204,5 +283,5 @@ def fit(
         members = tuple(run_jobs(train_member, [(*args, s) for s in seeds], resolved["workers"], "repeats"))
 
     used = dict(resolved)
-    used.update(algorithm=plan.algorithm, precision=plan.dtype, validation_share=plan.validation_share, rate=plan.rate, batch=plan.batch_rows)
+    used.update(algorithm=plan.algorithm, precision=plan.dtype, validation_share=plan.validation_share, rate=plan.rate, batch=plan.batch_rows, decay=plan.decay)
     return Model(preparation, target, sizes, resolved["activation"], members, plan.algorithm, MappingProxyType(used), int(seed))

@@ -1,8 +1,11 @@
 """fit: what it learns, how it stops, that it repeats itself, and how it refuses bad input."""
 
+import warnings
+
 import numpy as np
 import pandas as pd
 import pytest
+from sklearn.exceptions import ConvergenceWarning
 
 import sheetnet
 from sheetnet import defaults, errors
@@ -117,10 +120,15 @@ def test_progress_is_reported_each_epoch(rng):
 def test_auto_choices_follow_the_table_size(rng):
     small = sheetnet.fit(*_regression_table(rng, 80), hidden=(3,), epochs=5)
     assert (small.algorithm, small.settings["precision"], small.settings["validation_share"]) == ("lbfgs", "float64", 0.0)
+    assert small.settings["decay"] in defaults.DECAY_CHOICES  # chosen by the inner cross-validation
     medium = sheetnet.fit(*_regression_table(rng, 1200), hidden=(3,), epochs=5)
-    assert (medium.algorithm, medium.settings["precision"], medium.settings["validation_share"]) == ("lbfgs", "float32", 0.15)
+    assert (medium.algorithm, medium.settings["precision"], medium.settings["validation_share"]) == ("lbfgs", "float32", 0.0)
+    assert medium.settings["decay"] in defaults.DECAY_CHOICES
+    given_decay = sheetnet.fit(*_regression_table(rng, 1200), hidden=(3,), epochs=5, decay=0.5)
+    assert (given_decay.settings["decay"], given_decay.settings["validation_share"]) == (0.5, 0.15)
     large = sheetnet.fit(*_regression_table(rng, 50_000), hidden=(3,), epochs=2)
     assert (large.algorithm, large.settings["batch"], large.settings["rate"]) == ("adam", 512, 0.005)
+    assert (large.settings["decay"], large.settings["validation_share"]) == (defaults.DEFAULT_DECAY, 0.15)
 
 
 def test_labels_of_any_type_come_back_as_given(rng):
@@ -280,8 +288,13 @@ def test_plan_training_switches_at_the_declared_row_counts():
     below, at = plan_training(defaults.LBFGS_ROW_LIMIT - 1, auto), plan_training(defaults.LBFGS_ROW_LIMIT, auto)
     assert (below.algorithm, at.algorithm) == ("lbfgs", "adam")
     assert (at.rate, at.batch_rows) == (defaults.ADAM_RATE, defaults.ADAM_BATCH_ROWS)
-    assert plan_training(defaults.VALIDATION_ROW_LIMIT - 1, auto).validation_share == 0.0
-    assert plan_training(defaults.VALIDATION_ROW_LIMIT, auto).validation_share == defaults.AUTO_VALIDATION_SHARE
+    given_decay = resolve_settings({"decay": 0.01})
+    assert plan_training(defaults.VALIDATION_ROW_LIMIT - 1, given_decay).validation_share == 0.0
+    assert plan_training(defaults.VALIDATION_ROW_LIMIT, given_decay).validation_share == defaults.AUTO_VALIDATION_SHARE
+    below, at = plan_training(defaults.TUNING_ROW_LIMIT - 1, auto), plan_training(defaults.TUNING_ROW_LIMIT, auto)
+    assert (below.decay, below.folds, below.validation_share) == (None, defaults.TUNING_FOLDS, 0.0)
+    assert (at.decay, at.folds, at.validation_share) == (defaults.DEFAULT_DECAY, 0, defaults.AUTO_VALIDATION_SHARE)
+    assert plan_training(10, given_decay).folds == 0
     assert (plan_training(defaults.FLOAT32_ROW_LIMIT - 1, auto).dtype, plan_training(defaults.FLOAT32_ROW_LIMIT, auto).dtype) == ("float64", "float32")
     gd = plan_training(10, resolve_settings({"algorithm": "gd"}))
     assert (gd.rate, gd.batch_rows) == (defaults.GD_RATE, 0)
@@ -294,6 +307,8 @@ def test_help_texts_quote_the_declared_numbers():
     assert f"none: {defaults.AUTO_VALIDATION_SHARE:g} from {defaults.VALIDATION_ROW_LIMIT:,} training rows" in help_of["validation_share"]
     assert f"none: {defaults.GD_RATE:g} for gd, {defaults.ADAM_RATE:g} for adam" in help_of["rate"]
     assert f"{defaults.ADAM_BATCH_ROWS} for adam" in help_of["batch"]
+    assert f"{defaults.TUNING_FOLDS}-fold cross-validation on the training rows below {defaults.TUNING_ROW_LIMIT:,}" in help_of["decay"]
+    assert f"else {defaults.DEFAULT_DECAY:g}" in help_of["decay"]
     assert f"float32 from {defaults.FLOAT32_ROW_LIMIT:,} training rows" in help_of["precision"]
 
 
@@ -320,3 +335,58 @@ def test_fit_refuses_a_network_too_large_before_allocating_it():
     with pytest.raises(SizeError, match="500,000,001 weights, more than the 2,000,000"):
         sheetnet.fit(rng.random((50, 3)), rng.random(50), (100_000_000,), 0)
     assert time.monotonic() - started < 5  # refused from the sizes, not after minutes of allocation
+
+
+# --- small tables: the decay chosen by inner cross-validation ------------------------------
+
+def test_the_diabetes_default_reaches_ordinary_least_squares():
+    # source: scikit-learn's bundled diabetes data, split by sklearn.model_selection.train_test_split
+    # (test_size=0.3, random_state=0), against sklearn.linear_model.LinearRegression (R^2 0.393 on this split)
+    from sklearn.datasets import load_diabetes
+    from sklearn.linear_model import LinearRegression
+    from sklearn.model_selection import train_test_split
+
+    X_train, X_test, y_train, y_test = train_test_split(*load_diabetes(return_X_y=True), test_size=0.3, random_state=0)
+    least_squares = sheetnet.metrics.r2(y_test, LinearRegression().fit(X_train, y_train).predict(X_test))
+    model = sheetnet.fit(X_train, y_train, seed=0)
+    assert model.settings["decay"] in defaults.DECAY_CHOICES
+    assert sheetnet.metrics.r2(y_test, model.predict(X_test)) >= least_squares
+
+
+def test_a_small_classification_table_reaches_scikit_learn():
+    # source: scikit-learn's make_classification (1,000 rows, 20 columns, 10 informative, random_state=0), a
+    # stratified 75/25 train_test_split (random_state=0), against sklearn.linear_model.LogisticRegression and
+    # sklearn.neural_network.MLPClassifier (16 hidden units, solver lbfgs, random_state=0) on standardised inputs
+    from sklearn.datasets import make_classification
+    from sklearn.linear_model import LogisticRegression
+    from sklearn.model_selection import train_test_split
+    from sklearn.neural_network import MLPClassifier
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+
+    X, y = make_classification(1000, n_features=20, n_informative=10, random_state=0)
+    X_train, X_test, y_train, y_test = train_test_split(X, y, test_size=0.25, random_state=0, stratify=y)
+    references = [
+        make_pipeline(StandardScaler(), LogisticRegression()),
+        make_pipeline(StandardScaler(), MLPClassifier(hidden_layer_sizes=(16,), solver="lbfgs", random_state=0)),
+    ]
+    best = 0.0
+    for reference in references:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", ConvergenceWarning)
+            best = max(best, reference.fit(X_train, y_train).score(X_test, y_test))
+    model = sheetnet.fit(X_train, y_train, hidden=(16,), seed=0)
+    assert np.mean(model.predict(X_test) == y_test) >= best
+
+
+def test_the_decay_is_chosen_by_cross_validation_and_repeatably(rng):
+    # few noisy rows and a wide network: the weakest decay overfits, so a stronger one must win
+    X = rng.normal(size=(120, 6))
+    y = X[:, 0] + rng.normal(scale=1.0, size=120)
+    model = sheetnet.fit(X, y, hidden=(20,), seed=4)
+    assert model.settings["decay"] > min(defaults.DECAY_CHOICES)
+    again = sheetnet.fit(X, y, hidden=(20,), seed=4)
+    np.testing.assert_array_equal(model.members[0].theta, again.members[0].theta)
+    assert model.loss_curve["validation"] == () and model.stopped_by != "validation"  # the final fit uses every row
+    given = sheetnet.fit(X, y, hidden=(20,), seed=4, decay=model.settings["decay"])
+    assert given.settings["validation_share"] == defaults.AUTO_VALIDATION_SHARE  # a given decay keeps early stopping
