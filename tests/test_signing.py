@@ -10,6 +10,8 @@ import openpyxl
 import pandas as pd
 import pytest
 import sheetnet_demo
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 import sheetnet
 from sheetnet import block, cli, functions, keyring, service
@@ -394,3 +396,34 @@ def test_a_signature_whose_texts_look_like_numbers_survives_the_xlwings_door():
     stored = from_excel(book.names["grades"].refers_to_range.options(ndim=2).value)
     assert stored[-2][2] == key.key_id  # still the text, not the number 1.23e15
     assert check_signature(stored, [key.public_key()]).state == "trusted"
+
+
+SIGNATURE_VALUES = st.one_of(
+    st.sampled_from(["", " ", "ed25519", "ED25519", None, 0, 1.5, float("nan"), float("inf"), True, "0" * 64, "f" * 128, ALICE.key_id,
+                     ALICE.public.hex(), MALLORY.public.hex(), MALLORY.key_id, "checksum", "signature"]),
+    st.text(alphabet="0123456789abcdefABCDEF", min_size=0, max_size=130),
+    st.integers(),
+    st.floats(),
+)
+
+
+@given(column=st.integers(0, block.WIDTH - 1), value=SIGNATURE_VALUES, reseal=st.booleans())
+@settings(max_examples=300, deadline=None)
+def test_any_edit_of_the_signature_row_is_refused_or_untrusted(column, value, reseal):
+    signed = [list(r) for r in _signed_once()]
+    row = len(signed) - 2
+    original = signed[row][column]
+    signed[row][column] = value
+    try:
+        found = check_signature(_resealed(signed) if reseal else signed, [ALICE.public_key()])
+    except BlockError as error:
+        assert "model block" in str(error) and "Traceback" not in str(error)
+        return
+    padding = column > 4 and (value in ("", None) or (isinstance(value, float) and np.isnan(value)))  # an empty cell after the fields
+    same = (value == original and type(value) is type(original)) or padding
+    assert found.state != "trusted" or same, (column, value)
+
+
+@functools.lru_cache(maxsize=None)
+def _signed_once():
+    return tuple(tuple(r) for r in sign_block(_block(), ALICE))
