@@ -829,6 +829,7 @@ def _refuse_long_lag(longest: int, length: int) -> None:
 @cell_function
 def search(table: Any, target: Any, candidates: Any = None, settings: Any = None, folds: Any = None) -> Cells:
     """Candidate networks ranked by cross-validated score, and which one to use (see `sheetnet.search_cells`)."""
+    check_ranges(table=table, candidates=candidates, settings=settings)
     from .search_cells import search_table
 
     return search_table(table, target, candidates, settings, folds)
