@@ -59,6 +59,7 @@ def test_wrappers_equal_the_direct_calls_with_lists_and_with_numpy(table):
         "SHEETNET_EXPLAIN": (model, table),
         "SHEETNET_ABOUT": (model, table),
         "SHEETNET_LAGS": ([row[2:3] for row in table], "1,3"),
+        "SHEETNET_GROUPS": (model, table, "process", split),
     }
     assert set(calls) == set(xl_udfs.UDFS)
     for name, args in calls.items():
