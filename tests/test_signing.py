@@ -427,3 +427,10 @@ def test_any_edit_of_the_signature_row_is_refused_or_untrusted(column, value, re
 @functools.lru_cache(maxsize=None)
 def _signed_once():
     return tuple(tuple(r) for r in sign_block(_block(), ALICE))
+
+
+def test_a_signed_block_survives_a_model_file():
+    from sheetnet.model_file import block_of, file_text
+
+    signed = sign_block(_block(), ALICE)
+    assert check_signature(block_of(file_text(signed).encode("utf-8")), [ALICE.public_key()]).state == "trusted"
