@@ -1,5 +1,6 @@
 """Pictures of results people would rather look at than read: loss curves,
-predicted against actual, confusion matrices. Written as PNG files.
+predicted against actual, confusion matrices, importance bars, partial-dependence
+curves, residuals against predicted, calibration curves. Written as PNG files.
 
 Uses matplotlib's object-oriented API with the Agg canvas directly (no
 pyplot, no global state, no screen needed).
@@ -92,4 +93,71 @@ def confusion_picture(confusion: np.ndarray, classes: Sequence[Any], path: str |
             axes.text(j, i, str(confusion[i, j]), ha="center", va="center", color="white" if confusion[i, j] > top / 2 else INK)
     accuracy = np.trace(confusion) / max(confusion.sum(), 1)
     axes.set_title(f"{title}\naccuracy {accuracy:.3f} on {confusion.sum()} rows", color=INK, fontsize=10)
+    return _save(figure, path)
+
+
+def importance_picture(found: Sequence[tuple[str, float, float]], path: str | Path, loss: str = "RMSE", title: str = "What the model relies on") -> Path:
+    """Horizontal bars of permutation importance (`sheetnet.evaluation.permutation_importance`), largest on top, spread as error bars."""
+    names = [name for name, _, _ in found][::-1]
+    means = [mean for _, mean, _ in found][::-1]
+    spreads = [spread for _, _, spread in found][::-1]
+    figure = Figure(figsize=(6.0, 1.2 + 0.38 * len(names)))
+    axes = figure.add_subplot()
+    axes.barh(names, means, xerr=spreads, color=TRAINING, ecolor=INK, capsize=3)
+    axes.axvline(0, color=INK, linewidth=0.8)
+    axes.set_xlabel(f"{loss} increase when the input is shuffled")
+    axes.set_title(title, color=INK, fontsize=10)
+    axes.grid(alpha=0.3, axis="x")
+    return _save(figure, path)
+
+
+def partial_dependence_picture(curves: Sequence[tuple[str, np.ndarray, np.ndarray]], path: str | Path, answer: str = "predicted value") -> Path:
+    """One panel per input: the model's average answer (`sheetnet.dependence.partial_dependence`) over the input's grid."""
+    figure = Figure(figsize=(3.2 * max(len(curves), 1), 3.2))
+    for k, (name, grid, average) in enumerate(curves, start=1):
+        axes = figure.add_subplot(1, max(len(curves), 1), k)
+        values = np.asarray(average)
+        axes.plot(grid, values if values.ndim == 1 else values, color=TRAINING if values.ndim == 1 else None, marker="o", markersize=3)
+        axes.set_xlabel(name)
+        if k == 1:
+            axes.set_ylabel(f"average {answer}")
+        axes.grid(alpha=0.3)
+    figure.suptitle("Partial dependence: the average answer as one input changes", color=INK, fontsize=10)
+    return _save(figure, path)
+
+
+def residuals_picture(actual: Sequence[float], predicted: Sequence[float], path: str | Path, half_width: float | None = None) -> Path:
+    """Residuals (actual - predicted) against predicted values; the conformal band drawn when given."""
+    a, p = np.asarray(actual, dtype=np.float64), np.asarray(predicted, dtype=np.float64)
+    figure = Figure(figsize=(5.6, 3.8))
+    axes = figure.add_subplot()
+    axes.axhline(0, color=INK, linewidth=1, alpha=0.6)
+    if half_width is not None:
+        axes.axhspan(-half_width, half_width, color=HIGHLIGHT, alpha=0.12, label=f"prediction interval, ± {half_width:.3g}")
+    axes.scatter(p, a - p, s=14, color=TRAINING, alpha=0.75, label="holdout rows")
+    axes.set_xlabel("predicted")
+    axes.set_ylabel("actual - predicted")
+    axes.set_title(f"Residuals against predicted, {len(a)} rows", color=INK, fontsize=10)
+    axes.legend(frameon=False)
+    axes.grid(alpha=0.3)
+    return _save(figure, path)
+
+
+def calibration_picture(table: Sequence[tuple[float, float, int, float, float]], path: str | Path, positive: str = "the positive class") -> Path:
+    """Observed share against mean predicted probability per bin (`sheetnet.uncertainty.reliability_table`), the diagonal for reference."""
+    figure = Figure(figsize=(4.8, 4.6))
+    axes = figure.add_subplot()
+    axes.plot([0, 1], [0, 1], color=INK, linewidth=1, alpha=0.6, label="perfectly calibrated")
+    predicted = [row[3] for row in table]
+    observed = [row[4] for row in table]
+    sizes = [12 + 3 * row[2] ** 0.5 for row in table]
+    axes.plot(predicted, observed, color=TRAINING, linewidth=1)
+    axes.scatter(predicted, observed, s=sizes, color=TRAINING, label="bins (dot size: rows)")
+    axes.set_xlim(0, 1)
+    axes.set_ylim(0, 1)
+    axes.set_xlabel(f"mean predicted probability of {positive}")
+    axes.set_ylabel("observed share")
+    axes.set_title(f"Calibration on {sum(row[2] for row in table)} rows", color=INK, fontsize=10)
+    axes.legend(frameon=False, loc="upper left")
+    axes.grid(alpha=0.3)
     return _save(figure, path)

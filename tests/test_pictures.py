@@ -1,6 +1,7 @@
 """Pictures are real PNG images with something drawn on them."""
 
 import numpy as np
+import pytest
 from matplotlib.image import imread
 
 import sheetnet
@@ -80,3 +81,74 @@ def test_writing_a_decoded_model_again_keeps_its_curve_epochs(rng):
     assert once.training_epochs[-1] == 333 and len(once.training_epochs) == 200
     assert tuple(twice.training_epochs) == tuple(once.training_epochs)
     assert twice.training_curve == once.training_curve
+
+
+def test_importance_residuals_calibration_and_dependence_pictures(tmp_path, rng):
+    from sheetnet.dependence import partial_dependence
+    from sheetnet.uncertainty import reliability_table
+
+    _looks_drawn(pictures.importance_picture([("heat", 1.2, 0.1), ("hours", 0.4, 0.05), ("noise", 0.01, 0.02)], tmp_path / "importance.png"))
+    actual = rng.normal(size=80)
+    _looks_drawn(pictures.residuals_picture(actual, actual + rng.normal(scale=0.3, size=80), tmp_path / "residuals.png", half_width=0.5))
+    p = rng.uniform(size=300)
+    table = reliability_table(rng.uniform(size=300) < p, p)
+    _looks_drawn(pictures.calibration_picture(table, tmp_path / "calibration.png", "yes"))
+    X = rng.normal(size=(120, 2))
+    model = sheetnet.fit(X, X[:, 0] ** 2, hidden=(5,), epochs=60)
+    curves = [(name, *partial_dependence(model, X, name)) for name in model.input_names]
+    _looks_drawn(pictures.partial_dependence_picture(curves, tmp_path / "dependence.png"))
+
+
+def test_partial_dependence_equals_scikit_learns_brute_average(rng):
+    # reference: sklearn.inspection.partial_dependence (method "brute", kind "average") on the same model
+    from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin
+    from sklearn.inspection import partial_dependence as reference
+
+    from sheetnet.dependence import partial_dependence
+
+    class Regressor(RegressorMixin, BaseEstimator):
+        def __init__(self, model=None):
+            self.model = model
+
+        def fit(self, X, y):
+            self.fitted_ = True
+            return self
+
+        def predict(self, X):
+            return self.model.predict(np.asarray(X, dtype=float))
+
+    class Classifier(ClassifierMixin, BaseEstimator):
+        def __init__(self, model=None):
+            self.model = model
+
+        def fit(self, X, y):
+            self.classes_ = np.asarray(self.model.classes)
+            return self
+
+        def predict_proba(self, X):
+            return self.model.predict_proba(np.asarray(X, dtype=float))
+
+    X = rng.normal(size=(150, 3))
+    y = np.sin(X[:, 0]) + X[:, 1] * X[:, 2]
+    model = sheetnet.fit(X, y, hidden=(6,), epochs=80)
+    theirs = reference(Regressor(model).fit(X, y), X, [1], method="brute", kind="average", grid_resolution=15)
+    grid, ours = partial_dependence(model, X, model.input_names[1], theirs["grid_values"][0])
+    np.testing.assert_allclose(ours, theirs["average"][0], rtol=1e-12)
+    labels = (y > 0).astype(int)
+    classifier = sheetnet.fit(X, labels, hidden=(4,), epochs=60)
+    theirs = reference(Classifier(classifier).fit(X, labels), X, [0], method="brute", kind="average", grid_resolution=10, response_method="predict_proba")
+    _, ours = partial_dependence(classifier, X, classifier.input_names[0], theirs["grid_values"][0])
+    np.testing.assert_allclose(ours, theirs["average"][0], rtol=1e-12)  # two classes: the second class's probability
+
+
+def test_partial_dependence_by_hand_and_its_refusals():
+    from sheetnet.dependence import partial_dependence
+    from sheetnet.errors import InputError
+
+    X = np.array([[0.0, 1.0], [1.0, 2.0], [2.0, 0.0], [3.0, 4.0], [1.5, 1.5]])
+    model = sheetnet.fit(np.tile(X, (4, 1)), np.tile(X[:, 0] - X[:, 1], 4), hidden=(), epochs=50, task="regression")
+    grid, average = partial_dependence(model, X, "x2", [0.0, 2.0])
+    direct = [model.predict(np.column_stack([X[:, 0], np.full(5, v)])).mean() for v in (0.0, 2.0)]
+    np.testing.assert_allclose(average, direct, rtol=1e-14)
+    with pytest.raises(InputError, match="not an input"):
+        partial_dependence(model, X, "x9")
