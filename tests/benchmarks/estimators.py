@@ -61,6 +61,21 @@ def main() -> None:
             predict_wrapped, predict_direct = alternating(lambda: wrapped.predict(X), lambda: model.predict(X), options.repeats)
             for step, (a, b) in (("fit", (fit_wrapped, fit_direct)), ("predict", (predict_wrapped, predict_direct))):
                 print(f"{kind:6} {task:10} {step:8} {a:12.4f} {b:10.4f} {a / b:6.2f}")
+            onnx_line(kind, task, model, X, options.repeats)
+
+
+def onnx_line(kind: str, task: str, model: sheetnet.Model, X: object, repeats: int) -> None:
+    """The exported graph in onnxruntime (inputs built beforehand) beside Model.predict, when the onnx extra is installed."""
+    try:
+        import onnxruntime
+
+        from sheetnet.onnx_export import onnx_inputs, to_onnx
+    except ImportError:
+        return
+    session = onnxruntime.InferenceSession(to_onnx(model).SerializeToString(), providers=["CPUExecutionProvider"])
+    feeds = onnx_inputs(model, X)
+    graph, direct = alternating(lambda: session.run(["prediction"], feeds), lambda: model.predict(X), repeats)
+    print(f"{kind:6} {task:10} {'onnx':8} {graph:12.4f} {direct:10.4f} {graph / direct:6.2f}   (onnxruntime, in the estimator column)")
 
 
 if __name__ == "__main__":
