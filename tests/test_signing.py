@@ -434,3 +434,25 @@ def test_a_signed_block_survives_a_model_file():
 
     signed = sign_block(_block(), ALICE)
     assert check_signature(block_of(file_text(signed).encode("utf-8")), [ALICE.public_key()]).state == "trusted"
+
+
+def test_a_signed_block_survives_the_server_door(tmp_path):
+    import httpx
+    from local_server import serving
+
+    from sheetnet import server
+
+    token = "signing-test-token-0123456789"
+    signed = sign_block(_block(), ALICE)
+    sent = [[None if v == "" else v for v in row] for row in signed]  # as the task pane and Calc send cells: blanks as null
+    with serving(server.create_app(token, origin="http://127.0.0.1")) as address:
+        with httpx.Client(base_url=address, headers={"Authorization": f"Bearer {token}"}, timeout=60) as client:
+            placed = client.post("/v1/placements", json={"name": "grades", "block": sent, "existing_names": []})
+            about = client.post("/v1/functions/SHEETNET.ABOUT", json={"args": [sent]})
+    assert placed.status_code == 200 and about.status_code == 200, placed.text + about.text
+    assert dict(map(tuple, about.json()["result"][1:]))["signature"].startswith(f"signed by the key {ALICE.key_id}")
+    workbook = openpyxl.Workbook()
+    apply_to_workbook(workbook, placements_from_json(placed.json()))
+    workbook.save(tmp_path / "served.xlsx")
+    stored = read_model(open_book(tmp_path / "served.xlsx"), "grades")
+    assert check_signature(stored, [ALICE.public_key()]).state == "trusted"
