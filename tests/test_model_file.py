@@ -168,3 +168,32 @@ def test_missing_files_and_folders_are_named(tmp_path):
     (tmp_path / "binary.json").write_bytes(b"\xff\xfe\x00")
     with pytest.raises(ModelFileError, match="is not text \\(UTF-8\\)"):
         sheetnet.load(tmp_path / "binary.json")
+
+
+def test_random_damage_to_a_file_is_always_refused_in_words(trained, tmp_path):
+    """Bytes flipped, cut or doubled anywhere: a ModelFileError or a BlockError every time, never another exception."""
+    model, frame = trained
+    data = _saved_text(model).encode("utf-8")
+    rng = np.random.default_rng(0)
+    outcomes = {"refused": 0, "loaded": 0}
+    for trial in range(300):
+        damaged = bytearray(data)
+        where = int(rng.integers(len(damaged)))
+        how = trial % 3
+        if how == 0:
+            damaged[where] = int(rng.integers(256))
+        elif how == 1:
+            damaged = damaged[:where]
+        else:
+            damaged[where:where] = damaged[max(0, where - 20):where]
+        path = tmp_path / "damaged.json"
+        path.write_bytes(bytes(damaged))
+        try:
+            loaded = sheetnet.load(path)
+        except (ModelFileError, BlockError) as error:
+            assert "Traceback" not in str(error) and str(error)
+            outcomes["refused"] += 1
+        else:  # only a change the checksum does not cover (spacing between cells, say) may load, and it predicts the same
+            np.testing.assert_array_equal(loaded.predict_proba(frame), sheetnet.load(_file_with(tmp_path, _saved_text(model))).predict_proba(frame))
+            outcomes["loaded"] += 1
+    assert outcomes["refused"] > 250
