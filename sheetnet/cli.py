@@ -47,10 +47,18 @@ class ProgressLine:
             self.stream.flush()
 
 
+def _in_words(name: str, value: Any) -> str:
+    """A metric's label and value in words beside its identifier (MAPE 36.6 %), or nothing for other rows."""
+    from .labels import METRIC_LABELS, metric_in_words
+
+    key = name.removeprefix("holdout ")
+    return f"   {metric_in_words(key, value)}" if key in METRIC_LABELS and isinstance(value, float) else ""
+
+
 def _print_metrics(metrics: dict[str, Any], out: TextIO) -> None:
     for name, value in metrics.items():
         if isinstance(value, float):
-            out.write(f"    {name:<32} {value:.4f}\n")
+            out.write(f"    {name:<32} {value:.4f}{_in_words(name, value)}\n")
         elif value is None or value == "":
             out.write(f"    {name:<32} (not defined for these rows)\n")
 
@@ -118,7 +126,7 @@ def _settings_text(pairs: Sequence[str]) -> str:
 def _print_rows(rows: list[list[Any]], out: TextIO) -> None:
     for name, value, *_ in rows:
         shown = f"{value:.4f}" if isinstance(value, float) else str(value)
-        out.write(f"    {str(name):<24} {shown}\n")
+        out.write(f"    {str(name):<24} {shown}{_in_words(str(name), value)}\n")
 
 
 def _saved(book: Any, out: TextIO) -> None:
