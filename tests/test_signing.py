@@ -456,3 +456,14 @@ def test_a_signed_block_survives_the_server_door(tmp_path):
     workbook.save(tmp_path / "served.xlsx")
     stored = read_model(open_book(tmp_path / "served.xlsx"), "grades")
     assert check_signature(stored, [ALICE.public_key()]).state == "trusted"
+
+
+def test_a_workbook_of_signed_models_saved_by_libreoffice_calc_still_checks_as_trusted(signed_book, tmp_path, capsys):
+    from libreoffice import SOFFICE, recalculate
+
+    if SOFFICE is None:
+        pytest.skip("LibreOffice Calc is not installed")
+    path, keys = signed_book
+    saved = recalculate([path], tmp_path / "calc")[0]  # opened, computed and saved again by Calc, as .xlsx
+    assert cli.main(["check", str(saved), "--keys", keys]) == 0
+    assert "ok      grades: intact; signed by the trusted key 'alice'" in capsys.readouterr().out
