@@ -197,7 +197,7 @@ def processes_pay(job_seconds: float, remaining: int, processes: int, start_seco
     """Whether ``remaining`` jobs of ``job_seconds`` each finish sooner in ``processes`` processes
     (after ``start_seconds`` of starting them, each job slowed by `CONTENTION`) than here one after another.
 
-    >>> processes_pay(2.0, 4, 2, 4.0), processes_pay(0.1, 4, 2, 4.0), processes_pay(0.1, 4, 2, 0.05)
+    >>> processes_pay(5.0, 4, 2, 4.0), processes_pay(0.1, 4, 2, 4.0), processes_pay(0.1, 4, 2, 0.05)
     (True, False, True)
     """
     if remaining < 2 or processes < 2:

@@ -222,3 +222,12 @@ def test_a_server_job_shows_how_many_repeats_are_done():
     view = job.view()
     assert view["state"] == "done", view["message"]
     assert (view["stage"], view["done"], view["total"]) == ("repeats", 3, 3)
+
+
+@pytest.mark.parametrize("module", ["sheetnet.parallel", "sheetnet.progress", "sheetnet.search", "sheetnet.search_cells"])
+def test_docstring_examples_run(module):
+    import doctest
+    import importlib
+
+    result = doctest.testmod(importlib.import_module(module))
+    assert result.attempted > 0 and result.failed == 0
