@@ -158,6 +158,8 @@ class _SheetnetEstimator(BaseEstimator):
             validate_data(self, table_for_names(X, table), reset=reset, skip_check_array=True)
         except ValueError as error:  # scikit-learn's words about column counts and names, as our error
             raise UnknownColumnError(str(error)) from None
+        except TypeError as error:  # column names of mixed kinds (texts and numbers)
+            raise InputError(str(error)) from None
         _check_no_missing_numbers(X, table)
         return table
 

@@ -156,6 +156,8 @@ def test_messages_of_the_scikit_learn_door():
         SheetnetClassifier(**QUICK).fit(frame, y)
     with pytest.raises(errors.InputError, match=r"requires y to be passed, but the target y is None"):
         SheetnetClassifier(**QUICK).fit(frame, None)
+    with pytest.raises(errors.InputError, match="Feature names are only supported if all input features have string names"):
+        SheetnetRegressor(**QUICK).fit(frame.set_axis(["transit_hours", 2, "packaging"], axis=1), y)
     with pytest.raises(errors.NotEnoughRowsError, match=r"needs at least 4 rows; X has 1 row \(1 sample\)"):
         SheetnetRegressor(**QUICK).fit(frame.iloc[:1], y[:1])
 
