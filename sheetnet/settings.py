@@ -48,7 +48,9 @@ SETTINGS: tuple[Setting, ...] = (
     Setting("validation_share", float, None, f"share of training rows held back for early stopping; none: {d.AUTO_VALIDATION_SHARE:g} from {d.VALIDATION_ROW_LIMIT:,} training rows on, else 0 "
         "(and 0 while the decay is chosen by cross-validation)", low=0.0, high=0.5, allow_none=True),
     Setting("decay", float, None, "L2 weight decay: adds decay/2 * sum of squared weights (biases excluded) to the summed loss; "
-        f"none: chosen by {d.TUNING_FOLDS}-fold cross-validation on the training rows below {d.TUNING_ROW_LIMIT:,} of them, else {d.DEFAULT_DECAY:g}", low=0.0, allow_none=True),
+        f"none: {d.TINY_TABLE_DECAY:g} below {d.TUNING_MIN_ROWS} training rows, then below {d.TUNING_ROW_LIMIT:,} the one of "
+        f"{', '.join(f'{c:g}' for c in d.DECAY_CHOICES)} that {d.TUNING_FOLDS}-fold cross-validation on the training rows prefers, "
+        f"else {d.DEFAULT_DECAY:g}", low=0.0, allow_none=True),
     Setting("rate", float, None, f"learning rate; none: {d.GD_RATE:g} for gd, {d.ADAM_RATE:g} for adam "
         f"(the paper suggests {d.ADAM_PAPER_RATE:g}; {d.ADAM_RATE:g} converged about 3x sooner on large tables)", low=0.0, allow_none=True),
     Setting("momentum", float, 0.9, "momentum of gradient descent", low=0.0, high=0.999),

@@ -36,7 +36,9 @@ from .defaults import (
     FLOAT32_ROW_LIMIT,
     LBFGS_ROW_LIMIT,
     MIN_ROWS,
+    TINY_TABLE_DECAY,
     TUNING_FOLDS,
+    TUNING_MIN_ROWS,
     TUNING_ROW_LIMIT,
     VALIDATION_ROW_LIMIT,
 )
@@ -82,7 +84,9 @@ def plan_training(n_rows: int, settings: dict[str, Any]) -> Plan:
         batch = ADAM_BATCH_ROWS if algorithm == "adam" else 0
     decay = settings["decay"]
     folds = 0
-    if decay is None and n_rows < TUNING_ROW_LIMIT:
+    if decay is None and n_rows < TUNING_MIN_ROWS:
+        decay = TINY_TABLE_DECAY
+    elif decay is None and n_rows < TUNING_ROW_LIMIT:
         folds = TUNING_FOLDS
         if settings["validation_share"] is None:
             share = 0.0  # the folds decide, and the final fit uses every row

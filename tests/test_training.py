@@ -295,6 +295,8 @@ def test_plan_training_switches_at_the_declared_row_counts():
     assert (below.decay, below.folds, below.validation_share) == (None, defaults.TUNING_FOLDS, 0.0)
     assert (at.decay, at.folds, at.validation_share) == (defaults.DEFAULT_DECAY, 0, defaults.AUTO_VALIDATION_SHARE)
     assert plan_training(10, given_decay).folds == 0
+    tiny, enough = plan_training(defaults.TUNING_MIN_ROWS - 1, auto), plan_training(defaults.TUNING_MIN_ROWS, auto)
+    assert (tiny.decay, tiny.folds, enough.decay, enough.folds) == (defaults.TINY_TABLE_DECAY, 0, None, defaults.TUNING_FOLDS)
     assert (plan_training(defaults.FLOAT32_ROW_LIMIT - 1, auto).dtype, plan_training(defaults.FLOAT32_ROW_LIMIT, auto).dtype) == ("float64", "float32")
     gd = plan_training(10, resolve_settings({"algorithm": "gd"}))
     assert (gd.rate, gd.batch_rows) == (defaults.GD_RATE, 0)
@@ -307,7 +309,8 @@ def test_help_texts_quote_the_declared_numbers():
     assert f"none: {defaults.AUTO_VALIDATION_SHARE:g} from {defaults.VALIDATION_ROW_LIMIT:,} training rows" in help_of["validation_share"]
     assert f"none: {defaults.GD_RATE:g} for gd, {defaults.ADAM_RATE:g} for adam" in help_of["rate"]
     assert f"{defaults.ADAM_BATCH_ROWS} for adam" in help_of["batch"]
-    assert f"{defaults.TUNING_FOLDS}-fold cross-validation on the training rows below {defaults.TUNING_ROW_LIMIT:,}" in help_of["decay"]
+    assert f"none: {defaults.TINY_TABLE_DECAY:g} below {defaults.TUNING_MIN_ROWS} training rows" in help_of["decay"]
+    assert f"then below {defaults.TUNING_ROW_LIMIT:,} the one of" in help_of["decay"] and f"{defaults.TUNING_FOLDS}-fold" in help_of["decay"]
     assert f"else {defaults.DEFAULT_DECAY:g}" in help_of["decay"]
     assert f"float32 from {defaults.FLOAT32_ROW_LIMIT:,} training rows" in help_of["precision"]
 
