@@ -104,16 +104,9 @@ def _print_confusion(matrix: Any, classes: list[Any], out: TextIO) -> None:
 
 
 def _draw(result: Any, stem: Path) -> list[Path]:
-    from . import pictures
+    from .demo_workbook import draw_pictures
 
-    title = result.scenario.title
-    drawn = [pictures.loss_curve_picture(result.model, f"{stem}-training.png", title)]
-    if result.confusion is not None:
-        drawn.append(pictures.confusion_picture(result.confusion, list(result.model.classes), f"{stem}-confusion.png", title))
-    else:
-        actual, predicted = zip(*result.pairs)
-        drawn.append(pictures.predicted_vs_actual_picture(actual, predicted, f"{stem}-predicted.png", title))
-    return drawn
+    return draw_pictures(result, stem)
 
 
 def _settings_text(pairs: Sequence[str]) -> str:
@@ -274,7 +267,7 @@ def run_serve(args: argparse.Namespace, out: TextIO) -> int:
 
         certificate, key = local_certificate(args.cert_dir)
         tls = {"ssl_certfile": str(certificate), "ssl_keyfile": str(key)}
-        out.write(f"TLS certificate for 127.0.0.1 and localhost: {certificate}\n{TRUST_STEPS}")
+        out.write(f"TLS certificate for localhost and 127.0.0.1 only: {certificate}\n{TRUST_STEPS}")
     out.write(f"sheetnet server on {base} (this machine only)\n")
     out.write(f"access token: {token}\n")
     out.write(f"task pane / dashboard: {base}/addin/taskpane.html#token={token}\n")
@@ -301,10 +294,15 @@ def serve_forever(app: Any, listening: Any, **options: Any) -> None:
     uvicorn.Server(uvicorn.Config(app, log_level="warning", **options)).run(sockets=[listening])
 
 
-TRUST_STEPS = """To let Excel load the add-in over https, trust this certificate once:
-  Windows: double-click the .crt file > Install Certificate > Current User > Trusted Root Certification Authorities.
+TRUST_STEPS = """What you would trust: this one certificate, made on this computer for its own addresses
+(localhost and 127.0.0.1) and nothing else. It is not a certificate authority: it cannot vouch for any
+other site, and its private key (sheetnet-local.key beside it, readable by you only) never leaves this computer.
+To let Excel load the add-in over https, trust it once (and remove it the same way when you stop using sheetnet):
+  Windows: double-click the .crt file > Install Certificate > Current User > Place all certificates in the
+    following store > Trusted Root Certification Authorities (where Windows keeps certificates that sign
+    themselves; this one still vouches only for localhost and 127.0.0.1).
   macOS: open it in Keychain Access, then set 'When using this certificate' to Always Trust.
-  Linux browsers: import it under Settings > Privacy and security > Certificates > Authorities.
+  Excel on the web in a browser: open the task pane address printed below once and accept this certificate for it.
 """
 
 
