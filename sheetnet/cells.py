@@ -11,6 +11,8 @@ row 2.
 
 from __future__ import annotations
 
+import base64
+import binascii
 import datetime
 import functools
 import hashlib
@@ -19,7 +21,8 @@ import marshal
 import math
 import re
 from dataclasses import dataclass
-from typing import Any, Sequence
+from types import SimpleNamespace
+from typing import Any, Callable, Sequence
 
 import numpy as np
 import pandas as pd
@@ -27,7 +30,7 @@ import pandas as pd
 from .block import _canonical
 from .cell_text import ERROR_VALUES, cell_in_words
 from .errors import BadValueError, InputError, SettingError, UnknownColumnError
-from .limits import MAX_LAYERS
+from .limits import MAX_LAYERS, check_ranges
 
 Cell = float | int | bool | str | None
 Cells = list[list[Cell]]
@@ -150,19 +153,97 @@ def read_sheet_table(cells: Any, what: str = "table") -> SheetTable:
 
     The data rows are read column by column: when every cell is a number or a
     blank, in one conversion of the whole range; otherwise each column on its
-    own (a column of numbers still in one conversion).
+    own (a column of numbers still in one conversion). A range may also come
+    column-wise (`COLUMN_FORM`), as the local server's callers may send it.
     """
+    if isinstance(cells, dict):
+        return _read_column_form(cells, what)
     grid = as_grid(cells, what, check_cells=False)  # the cells' types are looked at below
     _check_cell_types(grid[:1], what)
     names = _column_names(grid[0], what)
     body = grid[1:]
     typed, blank = _typed_columns(body, len(names), grid, what)
+    return _table(names, typed, blank, what)
+
+
+COLUMN_FORM = """A range sent column by column: ``{"header": [names...], "columns": [column, ...]}``.
+
+Each column holds the cells below the header, one per data row, either as a list of cells or, for a
+column of numbers, as ``{"numbers": TEXT}``: the numbers as IEEE 754 doubles in little-endian byte
+order (8 bytes each), written as base64 text, a blank cell as NaN. It reads exactly like the same
+range given as rows (the same table, the same messages, rows and columns counted the same way),
+but a column of numbers costs no cell-by-cell work: 10,000 rows arrive in microseconds.
+"""
+
+
+def _read_column_form(form: dict[str, Any], what: str) -> SheetTable:
+    fix = f"send the {what} as rows of cells, or as {{\"header\": [...], \"columns\": [...]}} (see sheetnet.cells.COLUMN_FORM)"
+    header, columns = form.get("header"), form.get("columns")
+    if set(form) != {"header", "columns"} or not isinstance(header, list) or not isinstance(columns, list):
+        raise InputError(f"the {what} came as an object that is not a table by columns; {fix}")
+    if len(columns) != len(header):
+        raise InputError(f"the {what}'s header has {len(header)} names but {len(columns)} columns came; {fix}")
+    check_ranges(**{what: SimpleNamespace(shape=column_form_shape(form))})  # the limits of a range given as rows, before decoding
+    cells = [_column_cells(column, j, what, fix) for j, column in enumerate(columns)]
+    heights = set(map(len, cells))
+    if len(heights) > 1:
+        raise InputError(f"the {what}'s columns came with different numbers of cells ({min(heights):,} to {max(heights):,}); {fix}")
+    height = heights.pop() if heights else 0
+    if not header:
+        raise InputError(f"the {what} range has no cells; select a range with a header row and data rows")
+    _check_cell_types([header], what)
+    names = _column_names(header, what)
+
+    def as_rows() -> list[list[Any]]:  # only to name a strange cell at its row and column, as for a range given as rows
+        return [header, *map(list, zip(*(c.tolist() if isinstance(c, np.ndarray) else c for c in cells)))]
+
+    typed = [column if isinstance(column, np.ndarray) else _typed_column(column, as_rows, what) for column in cells]
+    blank = np.ones(height, dtype=bool)
+    for values in typed:
+        blank &= np.isnan(values) if values.dtype.kind == "f" else _none_mask(values)
+    return _table(names, typed, blank, what)
+
+
+def column_form_shape(form: dict[str, Any]) -> tuple[int, int]:
+    """Rows (the header's included) and columns of a table sent by columns (`COLUMN_FORM`), counted without
+    decoding anything (a column of numbers by its text's length, an upper bound); (1, 1) for an object that is
+    not one, which reading then refuses with what to send.
+
+    >>> column_form_shape({"header": ["a", "b"], "columns": [[1, None, 3], {"numbers": "AAAAAAAA8D8="}]})
+    (4, 2)
+    """
+    columns = form.get("columns")
+    if not isinstance(columns, list):
+        return 1, 1
+    longest = 0
+    for column in columns:
+        if isinstance(column, list):
+            longest = max(longest, len(column))
+        elif isinstance(column, dict) and isinstance(column.get("numbers"), str):
+            longest = max(longest, len(column["numbers"]) * 3 // 32)  # 4 characters of base64 carry 3 bytes; a number takes 8
+    return longest + 1, max(len(columns), 1)
+
+
+def _column_cells(column: Any, j: int, what: str, fix: str) -> np.ndarray | list[Any]:
+    if isinstance(column, list):
+        return column
+    text = column.get("numbers") if isinstance(column, dict) and set(column) == {"numbers"} else None
+    try:
+        raw = base64.b64decode(text, validate=True) if isinstance(text, str) else None
+    except (binascii.Error, ValueError):
+        raw = None
+    if raw is None or len(raw) % 8:
+        raise InputError(f"column {j + 1} of the {what} came neither as a list of cells nor as numbers written as base64 doubles; {fix}")
+    return np.frombuffer(raw, dtype="<f8").astype(np.float64)
+
+
+def _table(names: list[str], typed: list[np.ndarray], blank: np.ndarray, what: str) -> SheetTable:
     keep = np.flatnonzero(~blank)
     if not len(keep):
         raise InputError(f"the {what} has a header but no data rows; include the rows below the header")
-    if len(keep) < len(body):
+    if len(keep) < len(blank):
         typed = [values[keep] for values in typed]
-    return SheetTable(dict(zip(names, typed)), keep, len(body))
+    return SheetTable(dict(zip(names, typed)), keep, len(blank))
 
 
 def _column_names(header: list[Any], what: str) -> list[str]:
@@ -200,10 +281,11 @@ def _typed_columns(body: list[list[Any]], width: int, grid: list[list[Any]], wha
     return columns, blank
 
 
-def _typed_column(column: Any, grid: list[list[Any]], what: str) -> np.ndarray:
+def _typed_column(column: Any, grid: list[list[Any]] | Callable[[], list[list[Any]]], what: str) -> np.ndarray:
+    """One column's cells as float64 or cleaned cells; a strange cell is named at its place in ``grid`` (the range as rows)."""
     types = set(map(type, column))
     if not types <= CELL_TYPES:
-        _check_cell_types(grid, what, types)
+        _check_cell_types(grid() if callable(grid) else grid, what, types)
     if types <= NUMBER_TYPES:
         return np.array(column, dtype=np.float64)
     if types <= {str}:
@@ -237,15 +319,19 @@ _PLAIN_CELLS = frozenset({float, int, bool, str, type(None)})
 _SEQUENCES = frozenset({list, tuple})
 
 
-def _plain(value: Any) -> bool:
-    """A plain cell, or a range of them (a list of cells, or of rows of cells) of exactly these types."""
+def _plain(value: Any, depth: int = 0) -> bool:
+    """A plain cell, or a range of them (a list of cells, or of rows of cells; a `COLUMN_FORM` object) of exactly these types."""
     if type(value) in _PLAIN_CELLS:
         return True
+    if type(value) is dict:
+        return depth < 3 and all(type(k) is str and _plain(v, depth + 1) for k, v in value.items())
     if type(value) not in _SEQUENCES:
         return False
     kinds = set(map(type, value))
     if kinds <= _PLAIN_CELLS:
         return True
+    if dict in kinds and depth < 3:
+        return all(_plain(v, depth + 1) for v in value)  # the columns of a COLUMN_FORM object
     if not kinds <= _PLAIN_CELLS | _SEQUENCES:
         return False
     rows = [row for row in value if type(row) in _SEQUENCES]

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import base64
 import datetime
 import hashlib
 import math
@@ -12,7 +13,7 @@ import pytest
 
 from sheetnet import cells
 from sheetnet.block import table_fingerprint
-from sheetnet.errors import InputError, UnknownColumnError
+from sheetnet.errors import InputError, SheetnetError, UnknownColumnError
 
 TRICKY_NUMBERS = [
     0.1, -0.0, 0.0, 1.0, -2.5, 1 / 3, 2 / 3, 1e-5, 1e-4, 0.00012345, 1e14, 1e15, 999999999999999.9, 1e16, 123456789012345678.0,
@@ -115,3 +116,80 @@ def test_content_key_tells_apart_every_difference_a_cell_can_hold():
     # not plain: keyed another way (marshal would write arrays and NumPy numbers as bare bytes, so [1.0] and [4607182418800017408] would meet)
     for strange in ([[datetime.date(2026, 12, 2)]], np.zeros(2), [np.array([1.0])], [[np.float64(1.0)]], [[[1.0]]], [[b"1"]]):
         assert cells.content_key([["a"], [1.0]], strange) is None
+
+
+def column_form(grid: list[list[object]], numbers: tuple[int, ...] = ()) -> dict[str, object]:
+    """``grid`` by columns; the columns in ``numbers`` as base64 doubles (blanks as NaN)."""
+    columns: list[object] = []
+    for j in range(len(grid[0])):
+        column = [row[j] for row in grid[1:]]
+        if j in numbers:
+            doubles = np.array([np.nan if v is None else v for v in column], dtype="<f8")
+            columns.append({"numbers": base64.b64encode(doubles.tobytes()).decode("ascii")})
+        else:
+            columns.append(column)
+    return {"header": list(grid[0]), "columns": columns}
+
+
+def test_a_range_sent_by_columns_reads_as_the_same_range_sent_by_rows():
+    grid = [["size", "kind", "weight"], [1.0, " a ", 2.5], [None, None, None], [3.0, None, None], [4.5, "b", 7.0]]
+    by_rows, by_columns = cells.read_sheet_table(grid), cells.read_sheet_table(column_form(grid, numbers=(0, 2)))
+    assert list(by_columns.columns) == ["size", "kind", "weight"]
+    assert by_columns.data_rows.tolist() == by_rows.data_rows.tolist() == [0, 2, 3] and by_columns.n_rows == 4
+    for name in by_rows.columns:
+        assert by_columns.values(name).dtype == by_rows.values(name).dtype
+        assert by_columns.values(name).tolist() == pytest.approx(by_rows.values(name).tolist(), nan_ok=True)
+    every = np.ones(3, dtype=bool)
+    assert cells.fingerprint(by_columns, ["size", "kind", "weight"], every) == cells.fingerprint(by_rows, ["size", "kind", "weight"], every)
+    assert cells.content_key(column_form(grid, (0,))) == cells.content_key(column_form(grid, (0,))) != cells.content_key(column_form(grid, (2,)))
+
+
+def test_a_range_sent_by_columns_gets_the_messages_a_range_sent_by_rows_gets():
+    bad = [["a", "b"], [1.0, "x"], [2.0, True], [3.0, [1, 2]]]
+    with pytest.raises(InputError) as by_rows:
+        cells.read_sheet_table(bad)
+    with pytest.raises(InputError) as by_columns:
+        cells.read_sheet_table(column_form(bad, numbers=(0,)))
+    expected = "row 4, column 2 of the table range holds a list of values rather than one value; pass a plain range of cells"
+    assert str(by_columns.value) == str(by_rows.value) == expected
+    with pytest.raises(InputError, match="two columns named 'a'"):
+        cells.read_sheet_table({"header": ["a", "a"], "columns": [[1.0], [2.0]]})
+    with pytest.raises(InputError, match="header but no data rows"):
+        cells.read_sheet_table({"header": ["a"], "columns": [[None]]})
+
+
+@pytest.mark.parametrize(
+    ("form", "words"),
+    [
+        ({"header": ["a"], "rows": [[1.0]]}, "not a table by columns"),
+        ({"header": ["a", "b"], "columns": [[1.0]]}, "header has 2 names but 1 columns came"),
+        ({"header": ["a", "b"], "columns": [[1.0], [1.0, 2.0]]}, "different numbers of cells"),
+        ({"header": ["a"], "columns": [{"numbers": "not base64!"}]}, "column 1 of the table came neither as a list of cells nor as numbers"),
+        ({"header": ["a"], "columns": [{"numbers": base64.b64encode(b"12345").decode()}]}, "neither as a list of cells nor as numbers"),
+        ({"header": ["a"], "columns": [7]}, "neither as a list of cells nor as numbers"),
+        ({"header": [f"c{j}" for j in range(16_385)], "columns": [[1.0]] * 16_385}, "16,385 columns, more than the 16,384"),
+    ],
+)
+def test_a_malformed_table_by_columns_is_refused_with_what_to_send(form, words):
+    with pytest.raises(SheetnetError, match=words):
+        cells.read_sheet_table(form)
+
+
+def test_the_cell_functions_answer_a_table_by_columns_as_they_answer_it_by_rows():
+    from sheetnet import functions
+
+    rng = np.random.default_rng(5)
+    grid: list[list[object]] = [["x1", "x2", "shade", "y"]]
+    for i in range(80):
+        x1, x2 = float(rng.normal()), float(rng.normal())
+        grid.append([x1, x2, "dark" if i % 3 else "light", x1 - 2 * x2 + (0.5 if i % 3 else 0.0)])
+    grid[7] = [None, None, None, None]  # a blank row: a blank answer
+    by_columns = column_form(grid, numbers=(0, 1, 3))
+    model = functions.train(grid, "y", "3", "seed=1; epochs=30")
+    trained_by_columns = functions.train(by_columns, "y", "3", "seed=1; epochs=30")
+    assert functions.predict(trained_by_columns, grid) == functions.predict(model, grid)  # the same network
+    assert functions.predict(model, by_columns) == functions.predict(model, grid)
+    assert functions.predict(model, by_columns)[7] == [""]
+    assert functions.data_unchanged(model, by_columns) and functions.data_unchanged(trained_by_columns, grid)  # the same fingerprint
+    grid[3][0] = 9.5
+    assert not functions.data_unchanged(model, column_form(grid, numbers=(0, 1, 3)))

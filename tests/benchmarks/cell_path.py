@@ -12,7 +12,8 @@ y = sin(x1) + x2 * x3 (seeded), given as the 2-D list of cells a spreadsheet han
   the float array with the same layers and seed.
 - PREDICT over HTTP: a server in its own process (as the add-in and the Calc extension meet it),
   beside the direct call, with the parts of the request measured alone in this process: reading
-  the JSON body, the cell function, writing the answer.
+  the JSON body, the cell function, writing the answer; the table sent as rows of cells, and by
+  columns (`cells.COLUMN_FORM`: each column of numbers as base64 doubles).
 - The header: reading a range two data rows tall and 16,384, 40,000 or 100,000 columns wide, and SPLIT on the
   widest range the cell functions take (16,384 columns, a worksheet's width).
 """
@@ -20,6 +21,7 @@ y = sin(x1) + x2 * x3 (seeded), given as the 2-D list of cells a spreadsheet han
 from __future__ import annotations
 
 import argparse
+import base64
 import os
 import socket
 import statistics
@@ -87,6 +89,12 @@ def train_rows(calls: int) -> None:
     print(f"| fresh | {ms(cell)} | {ms(engine)} | {cell / engine:.2f}x |", flush=True)
 
 
+def by_columns(data: list[list[Any]]) -> dict[str, Any]:
+    """The range in `cells.COLUMN_FORM`: every column here holds numbers, so each goes as base64 doubles."""
+    numbers = np.array(data[1:], dtype="<f8")
+    return {"header": data[0], "columns": [{"numbers": base64.b64encode(numbers[:, j].tobytes()).decode("ascii")} for j in range(numbers.shape[1])]}
+
+
 def free_port() -> int:
     with socket.socket() as probe:
         probe.bind(("127.0.0.1", 0))
@@ -118,21 +126,23 @@ def http_rows(model: list[list[Any]], calls: int) -> None:
         print("|---|---|---|---|---|---|---|")
         headers = {"Authorization": f"Bearer {TOKEN}", "content-type": "application/json"}
         with httpx.Client(base_url=f"http://127.0.0.1:{port}", headers=headers, timeout=60) as client:
-            for rows in (1, 10_000):
+            for rows, form in ((1, "rows"), (10_000, "rows"), (1, "columns"), (10_000, "columns")):
                 data = table(rows, seed=1)
-                body = orjson.dumps({"args": [model, data]})  # encoded once, as a client holding the range would
+                sent = data if form == "rows" else by_columns(data)
+                body = orjson.dumps({"args": [model, sent]})  # encoded once, as a client holding the range would
 
                 def over_http() -> Any:
                     return orjson.loads(client.post("/v1/functions/SHEETNET.PREDICT", content=body).raise_for_status().content)
 
                 over_http()
-                answer = {"result": functions.predict(model, data)}
+                answer = {"result": functions.predict(model, sent)}
+                assert answer["result"] == functions.predict(model, data) and over_http()["result"] == answer["result"]
                 count = calls if rows == 1 else max(15, calls // 20)
                 http, direct, parse, write = side_by_side(
-                    count, over_http, lambda: functions.predict(model, data), lambda: orjson.loads(body), lambda: orjson.dumps(answer)
+                    count, over_http, lambda: functions.predict(model, sent), lambda: orjson.loads(body), lambda: orjson.dumps(answer)
                 )
                 rest = http - direct - parse - write
-                print(f"| {rows:,} | {ms(http)} | {ms(direct)} | {http / direct:.1f}x | {ms(parse)} | {ms(write)} | {ms(rest)} |", flush=True)
+                print(f"| {rows:,} by {form} | {ms(http)} | {ms(direct)} | {http / direct:.1f}x | {ms(parse)} | {ms(write)} | {ms(rest)} |", flush=True)
     finally:
         process.terminate()
         process.wait(10)
