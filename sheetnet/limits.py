@@ -123,6 +123,10 @@ def range_shape(cells: Any) -> tuple[int, int]:
     shape = getattr(cells, "shape", None)
     if isinstance(shape, tuple) and all(isinstance(n, int) for n in shape):
         return (shape[0] if shape else 1), (shape[1] if len(shape) > 1 else 1)
+    if isinstance(cells, dict):  # a table sent by columns (`sheetnet.cells.COLUMN_FORM`)
+        from .cells import column_form_shape  # here, not on top: cells imports this module
+
+        return column_form_shape(cells)
     if not isinstance(cells, (list, tuple)):
         return 1, 1
     widest = 1
