@@ -4,8 +4,8 @@ The graph is built with the `onnx` package's helper API, in float64 (double)
 throughout, so onnxruntime gives the model's own predictions to about 1e-15.
 
 Inputs: one per input column of the model, in training order, named as the
-column, shape (rows, 1): ``double`` for a numeric column (scaled in the
-graph with the training mean and scale), ``string`` for a category column,
+column, shape (rows, 1): ``double`` for a numeric column (its scaling folded
+into the first layer, as `Model.predict` does), ``string`` for a category column,
 holding each cell's category text as sheetnet reads it (trimmed; whole numbers
 without '.0'; `onnx_inputs` builds them from any table `predict` takes).
 
@@ -92,10 +92,9 @@ def to_onnx(model: Model) -> Any:
     g = _Graph(onnx)
     inputs, parts, known = [], [], []
     for spec in model.preparation.inputs:
-        if isinstance(spec, NumericInput):
+        if isinstance(spec, NumericInput):  # taken raw: its scaling is folded into the first layer, as predict does
             inputs.append(onnx.helper.make_tensor_value_info(spec.name, TensorProto.DOUBLE, ["rows", 1]))
-            centred = g.node("Sub", [spec.name, g.constant("mean", np.array([spec.mean]))], "centred")
-            parts.append(g.node("Div", [centred, g.constant("scale", np.array([spec.scale]))], "scaled"))
+            parts.append(spec.name)
         else:
             assert isinstance(spec, CategoryInput)
             inputs.append(onnx.helper.make_tensor_value_info(spec.name, TensorProto.STRING, ["rows", 1]))
@@ -104,7 +103,7 @@ def to_onnx(model: Model) -> Any:
             parts.append(g.node("Cast", [matches], "one_hot", to=TensorProto.DOUBLE))
             known.append(_row_max(g, parts[-1]))  # 1 when the cell is a known category, 0 when it matched none
     layer_input = parts[0] if len(parts) == 1 else g.node("Concat", parts, "inputs", axis=1)
-    members = [_member(g, layer_input, layers, model) for layers in (model.weights(i) for i in range(len(model.members)))]
+    members = [_member(g, layer_input, _folded(model, model.weights(i)), model) for i in range(len(model.members))]
     if len(members) == 1:
         mean_output = members[0]
     else:  # onnxruntime has no double kernel for Mean
@@ -131,12 +130,30 @@ def _row_max(g: _Graph, one_hot: str) -> str:
     return g.node("ReduceMax", [one_hot, axes], "known", keepdims=0)
 
 
+def _folded(model: Model, layers: list[tuple[np.ndarray, np.ndarray]]) -> list[tuple[np.ndarray, np.ndarray]]:
+    """The layers taking raw numbers and, for regression, giving values in the target's units.
+
+    First layer: ``((x - mean) / scale) @ W + b == x @ (W / scale) + (b - (mean / scale) @ W)``, one-hot rows as they are.
+    """
+    mean, scale = np.zeros(model.preparation.width), np.ones(model.preparation.width)
+    at = 0
+    for spec in model.preparation.inputs:
+        if isinstance(spec, NumericInput):
+            mean[at], scale[at] = spec.mean, spec.scale
+        at += spec.width
+    (w, b), rest = layers[0], layers[1:]
+    folded = [(w / scale[:, None], b - (mean / scale) @ w), *rest]
+    if model.task == "regression":  # values = z * scale + mean, in the last layer's weights
+        w_last, b_last = folded[-1]
+        folded[-1] = (w_last * model.target.scale, b_last * model.target.scale + model.target.mean)
+    return folded
+
+
 def _member(g: _Graph, rows: str, layers: list[tuple[np.ndarray, np.ndarray]], model: Model) -> str:
     """One network's output layer after its head: values, a probability, or class probabilities."""
     a = rows
     for w, b in layers:
-        product = g.node("MatMul", [a, g.constant("W", np.array(w, dtype=np.float64))], "product")
-        z = g.node("Add", [product, g.constant("b", np.array(b, dtype=np.float64))], "z")
+        z = g.node("Gemm", [a, g.constant("W", np.array(w, dtype=np.float64)), g.constant("b", np.array(b, dtype=np.float64))], "z")
         op = ONNX_ACTIVATIONS[model.activation]
         a = g.node(op, [z], model.activation) if op else z
     if model.task == "regression":
@@ -150,9 +167,7 @@ def _outputs(g: _Graph, model: Model, output: str, TensorProto: Any) -> list[Any
     make = g.onnx.helper.make_tensor_value_info
     flat = g.constant("flat", np.array([-1], dtype=np.int64)) if model.task != "multiclass" else ""
     if model.task == "regression":
-        values = g.node("Add", [g.node("Mul", [output, g.constant("target_scale", np.array([model.target.scale]))], "unscaled"),
-                                g.constant("target_mean", np.array([model.target.mean]))], "values")
-        g.node("Reshape", [values, flat], "prediction", output="prediction")
+        g.node("Reshape", [output, flat], "prediction", output="prediction")  # the target's scaling is folded into the last layer
         return [make("prediction", TensorProto.DOUBLE, ["rows"])]
     if model.task == "binary":
         first = g.node("Sub", [g.constant("one", np.array([[1.0]])), output], "first_class")
