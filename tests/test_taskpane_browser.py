@@ -19,6 +19,7 @@ from local_server import serving
 
 from sheetnet import functions, server, service
 from sheetnet.placements import column_letters
+from sheetnet.registry import REGISTRY
 
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
 playwright = pytest.importorskip("playwright.sync_api", reason="Playwright is not installed (pip install playwright)")
@@ -32,6 +33,16 @@ STAND_IN = Path(__file__).with_name("office_standin.js")
 LINK_LABEL = '=HYPERLINK("http://x","y")'  # a class label that a spreadsheet would run as a formula
 FORMULA_LIKE_CATEGORY = "=1+1"  # a category of a text input, likewise
 VISIBILITY = {"visible": "Visible", "hidden": "Hidden", "veryHidden": "VeryHidden"}  # Office.js's spelling
+
+
+HOSTILE = '<img src=x onerror="window.sheetnetPwned = 1">'  # a column name that would run as markup
+
+
+def _policy_refusals(page):
+    """Console reports of the content policy refusing something, collected while the page runs."""
+    seen = []
+    page.on("console", lambda message: seen.append(message.text) if "Content Security Policy" in message.text else None)
+    return seen
 
 
 def same_title(a, b):
@@ -49,7 +60,7 @@ def base_url(app):
         yield address
 
 
-def test_the_pane_trains_a_model_and_shows_its_metrics(base_url, tmp_path):
+def test_the_pane_trains_a_model_and_shows_its_metrics(app, base_url, tmp_path):
     from matplotlib.image import imread
 
     lots = sheetnet_demo.coffee_lot_grades(rows=200, seed=6).drop(columns="lot")
@@ -57,9 +68,10 @@ def test_the_pane_trains_a_model_and_shows_its_metrics(base_url, tmp_path):
     with playwright.sync_playwright() as driver:
         browser = driver.chromium.launch(executable_path=CHROMIUM, args=FLAGS)
         page = browser.new_page(viewport={"width": 900, "height": 1300})
+        refused = _policy_refusals(page)
         page.route("https://**/*", lambda route: route.abort())  # no outside network: Office's script fails fast
         page.goto(f"{base_url}/addin/taskpane.html#token={TOKEN}")
-        page.wait_for_function("document.getElementById('connection').textContent === 'connected'", timeout=20000)
+        page.wait_for_function("() => document.getElementById('connection').textContent === 'connected'", timeout=20000)
         assert page.inner_text("#models") == "none yet"
         assert "Not inside Excel" in page.inner_text("#mode-note")
         page.fill("#table-text", csv)
@@ -73,11 +85,14 @@ def test_the_pane_trains_a_model_and_shows_its_metrics(base_url, tmp_path):
         assert "accuracy" in metrics and "stopped by" in metrics
         assert "lots" in page.inner_text("#models") and "grade" in page.inner_text("#models")
         assert page.inner_text("#message") == "model lots trained"
-        assert page.locator("#curve polyline").count() == 2  # training and validation loss
+        job = [j for j in app.state.jobs.jobs() if j.name == "lots"][-1]
+        lines = 1 + any(point[2] is not None for point in job.curve)  # training loss, and validation loss when trained with one
+        assert page.locator("#curve polyline").count() == lines
         assert float(page.get_attribute("#progress-bar", "value")) == 100
         shot = tmp_path / "pane.png"
         page.screenshot(path=str(shot), full_page=True)
         browser.close()
+    assert refused == []  # the page's own script and styles run under its content policy
     image = (imread(shot)[..., :3] * 255).round()
     assert image.shape[0] > 600 and image.shape[1] >= 900
     blue = np.all(np.abs(image - TRAINING_BLUE) < 12, axis=-1)
@@ -137,7 +152,7 @@ def test_the_pane_inside_excel_stores_exactly_the_services_placements(app, base_
         page.route("https://**/*", lambda route: route.abort())
         page.route(OFFICE_SCRIPT, lambda route: route.fulfill(body=STAND_IN.read_text(), content_type="text/javascript"))
         page.goto(f"{base_url}/addin/taskpane.html#token={TOKEN}")
-        page.wait_for_function("document.getElementById('connection').textContent === 'connected'", timeout=20000)
+        page.wait_for_function("() => document.getElementById('connection').textContent === 'connected'", timeout=20000)
         assert "Select the table" in page.inner_text("#mode-note") and page.is_hidden("#table-from-text")
         assert page.input_value("#hidden") == "4"  # the same default as every other door
         page.evaluate("seed => sheetnetStandIn.seed(seed)", seed)
@@ -146,7 +161,8 @@ def test_the_pane_inside_excel_stores_exactly_the_services_placements(app, base_
         page.fill("#model-name", "lots")
         page.fill("#settings", "epochs=200")
         page.click("#train")
-        ended = "(m => m.textContent.startsWith('model lots') || m.className === 'error')(document.getElementById('message'))"
+        # functions, not expressions: the page's content policy refuses Playwright's eval of an expression
+        ended = "() => document.getElementById('message').textContent.startsWith('model lots') || document.getElementById('message').className === 'error'"
         page.wait_for_function(ended, timeout=90000)  # stored, or an error the pane shows
         message = page.inner_text("#message")
         after = page.evaluate("sheetnetStandIn.snapshot()")
@@ -160,15 +176,49 @@ def test_the_pane_inside_excel_stores_exactly_the_services_placements(app, base_
     assert json.loads(json.dumps(after)) == expected
     assert message == f"model lots stored in the workbook under the name lots, with {len(placements['names']) - 1} named constants for native formulas"
     # what that equality means, spelled out
-    assert [(s["name"], s["visibility"]) for s in after["sheets"]] == [("Lots", "Visible"), ("Notes", "Visible"), ("sheetnet_lots", "VeryHidden")]
+    shown = [(s["name"], s["visibility"]) for s in after["sheets"]]
+    assert shown[:2] == [("Lots", "Visible"), ("Notes", "Visible")] and ("sheetnet_lots", "VeryHidden") in shown[2:]
+    assert len(shown) == 2 + len(placements["sheets"])  # the old model sheet replaced, the user's kept first
     defined = {n["name"] for n in after["names"]}
     assert {"rates", "snf_other_m1_b1", "lots", "snf_lots_classes", "snf_lots_cats5", "snf_lots_m1_W1n"} <= defined
     assert "Lots" not in defined and len(defined) == 2 + len(placements["names"])
-    model_cells = after["sheets"][2]["cells"]
+    model_cells = next(sheet["cells"] for sheet in after["sheets"] if sheet["name"] == "sheetnet_lots")
     assert model_cells["A1"] == {"kind": "text", "value": "sheetnet model block", "numberFormat": "@"}
     for text in (LINK_LABEL, FORMULA_LIKE_CATEGORY):  # in the block and in a native-formula constant, as text
         landed = [cell for cell in model_cells.values() if cell.get("value") == text]
         assert len(landed) >= 2 and all(c["kind"] == "text" and c["numberFormat"] == "@" for c in landed), text
     assert not any(cell["kind"] == "formula" for cell in model_cells.values())
     assert "-4-" in dict(functions.about(job.result))["layers"]  # the pane's default hidden layer
-    assert set(associated) == {"SPLIT", "TRAIN", "PREDICT", "SCORE", "EXPLAIN", "ABOUT", "LAGS"}
+    assert set(associated) == {entry.name.split(".", 1)[1] for entry in REGISTRY}
+
+
+def test_names_from_data_show_as_text_and_run_nothing(app, base_url):
+    lots = sheetnet_demo.coffee_lot_grades(rows=60, seed=2).drop(columns="lot").rename(columns={"grade": HOSTILE})
+    table = [list(lots.columns)] + lots.astype(object).values.tolist()
+    job = app.state.jobs.submit("hostile_target", [table, HOSTILE, "3", "epochs=30"])
+    assert job.finished.wait(60) and job.state == "done", job.message
+    csv = "\n".join([",".join(lots.columns)] + [",".join(str(v) for v in row) for row in lots.itertuples(index=False)])
+    with playwright.sync_playwright() as driver:
+        browser = driver.chromium.launch(executable_path=CHROMIUM, args=FLAGS)
+        page = browser.new_page()
+        errors = []
+        page.on("pageerror", lambda error: errors.append(str(error)))
+        page.route("https://**/*", lambda route: route.abort())
+        response = page.goto(f"{base_url}/addin/taskpane.html#token={TOKEN}")
+        page.wait_for_function("() => document.getElementById('connection').textContent === 'connected'", timeout=20000)
+        listed = page.inner_text("#models")
+        assert f"hostile_target: {HOSTILE}," in listed  # the name as the characters it is
+        # a failing training whose message quotes the name: the message is text too
+        page.fill("#table-text", csv)
+        page.fill("#target", HOSTILE + " (missing)")
+        page.fill("#model-name", "second")
+        page.click("#train")
+        page.wait_for_function("() => document.getElementById('message').className === 'error'", timeout=30000)
+        message = page.inner_text("#message")
+        images = page.locator("img").count()
+        pwned = page.evaluate("window.sheetnetPwned === undefined ? null : window.sheetnetPwned")
+        policy = response.headers.get("content-security-policy", "")
+        browser.close()
+    assert HOSTILE in message and "no column" in message
+    assert images == 0 and pwned is None and errors == []
+    assert "script-src 'self' https://appsforoffice.microsoft.com" in policy and "object-src 'none'" in policy

@@ -152,6 +152,7 @@ test("every registry function gives in the runtime what the Python call gives", 
     ABOUT: [model, table],
     LAGS: [table.map((row) => [row[2]]), "1,3"],
     GROUPS: [model, table, "process", split],
+    SEARCH: [table, "grade", [["hidden"], [2], [4]], "ignore=lot; epochs=40", 2],
   };
   const ids = metadata.functions.map((f) => f.id);
   assert.deepEqual(Object.keys(calls).filter((id) => ids.includes(id)).sort(), [...ids].sort(), "a registry function has no case here");
@@ -238,9 +239,9 @@ test("a TRAIN formula in value preview starts no training", async () => {
 });
 
 test("cancelling a TRAIN cell aborts the request and stops the server's job", async () => {
-  const table = await python(["table", "400", "3"]);
+  const table = await python(["table", "400", "3"])  // a training that runs until cancelled: no decay search, tiny steps;
   const made = runtime();
-  const running = made.calculate("TRAIN", [table, "grade", "16,16", "ignore=lot; epochs=100000; patience=100000"]);
+  const running = made.calculate("TRAIN", [table, "grade", "16,16", "ignore=lot; algorithm=gd; rate=0.0001; gradient_threshold=0; decay=0; epochs=1000000; patience=100000"]);
   let jobId = null;
   for (let i = 0; i < 200 && jobId === null; i++) {
     await new Promise((resolve) => setTimeout(resolve, 50));
