@@ -32,7 +32,7 @@ from cryptography.exceptions import InvalidSignature
 from cryptography.hazmat.primitives import serialization
 from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey, Ed25519PublicKey
 
-from .block import BlockSignature, block_signature, key_id_of, with_signature
+from .block import BlockError, BlockSignature, block_signature, key_id_of, with_signature
 from .errors import InputError
 
 SIGNING_KEY_HEADING = "sheetnet signing key"
@@ -121,9 +121,15 @@ def _public_of(private: bytes) -> bytes:
 
 
 def sign_block(cells: Any, key: SigningKey) -> list[list[Any]]:
-    """The block with a signature by ``key`` over every other row (an older signature is replaced).
-    Raises `BlockError` for a block that is damaged or of a format before 3."""
-    message, _ = block_signature(cells)
+    """The block with a signature by ``key`` over every other row (an older, valid signature is replaced).
+    Raises `BlockError` for a block that is damaged, of a format before 3, or changed after it was signed
+    (signing it would vouch for a change nobody can account for)."""
+    message, found = block_signature(cells)
+    if found is not None and check_signature(cells, ()).state == "wrong":
+        raise BlockError(
+            f"this model was changed after the key {found.key_id} signed it, so signing it again would vouch for that change; "
+            "train it again (or get the signed original) and sign that"
+        )
     signature = Ed25519PrivateKey.from_private_bytes(key.private).sign(message)
     return with_signature(cells, BlockSignature(key.key_id, key.public, signature))
 

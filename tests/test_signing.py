@@ -107,6 +107,9 @@ def test_a_forged_block_with_edited_weights_is_wrongly_signed_or_unsigned():
     assert check_signature(stripped, [ALICE.public_key()]).state == "unsigned"
     # signing the forgery with another key makes it signed by a key the reader does not trust
     assert check_signature(sign_block(stripped, MALLORY), [ALICE.public_key()]).state == "unknown"
+    # and nobody signs over a signature that no longer fits: that would vouch for the edit
+    with pytest.raises(BlockError, match=f"changed after the key {ALICE.key_id} signed it, so signing it again would vouch"):
+        sign_block(forged, ALICE)
 
 
 def test_no_single_cell_edit_of_a_signed_block_stays_trusted_even_resealed():
