@@ -141,6 +141,39 @@ class DecayChoice:
     losses: tuple[float, ...]  # one per `DECAY_CHOICES`, in its order
 
 
+def fold_loss(
+    inputs: np.ndarray,
+    outputs: np.ndarray,
+    sizes: tuple[int, ...],
+    activation: str,
+    head: str,
+    settings: dict[str, Any],
+    plan: Plan,
+    theta: np.ndarray,
+    train_rows: np.ndarray,
+    test_rows: np.ndarray,
+    decay: float,
+    seed: int,
+) -> float:
+    """Best mean loss on ``test_rows`` of a network trained on ``train_rows`` with ``decay``, stopping early on the test rows.
+
+    Infinite when training diverged: a decay whose steps blow up is never kept.
+    """
+    dtype = np.float32 if plan.dtype == "float32" else np.float64
+    optimizer = optimizers.OPTIMIZERS[plan.algorithm]
+    train = network.Objective(
+        sizes, activation, head, inputs[train_rows], outputs[train_rows], decay, dtype,
+        batch_rows=plan.batch_rows if optimizer.mini_batches else None,
+    )
+    check = network.Objective(sizes, activation, head, inputs[test_rows], outputs[test_rows], 0.0, dtype)
+    monitor = Monitor(_stopping_rules(settings), check.data_loss)
+    chosen = {**settings, "rate": plan.rate, "batch": plan.batch_rows}
+    with network.one_blas_thread():
+        _, reason = optimizers.run(plan.algorithm, train, theta, monitor, np.random.default_rng(seed), chosen)
+    curve = np.asarray(monitor.validation_curve)
+    return float(curve.min()) if reason != "diverged" and np.isfinite(curve).all() else np.inf
+
+
 def choose_decay(
     inputs: np.ndarray,
     outputs: np.ndarray,
@@ -156,30 +189,22 @@ def choose_decay(
     """Pick the weight decay by ``plan.folds``-fold cross-validation on the training rows.
 
     Every decay of `DECAY_CHOICES` is trained on each fold's other rows from the
-    same starting weights ``theta``, watching the fold's rows for early stopping;
-    the decay with the lowest mean best validation loss (weighted by fold rows) wins.
+    same starting weights ``theta``, watching the fold's rows for early stopping
+    (`fold_loss`); the decay with the lowest mean best validation loss (weighted
+    by fold rows) wins, the smaller decay on a tie. The fold fits are
+    independent jobs, run where `sheetnet.parallel.run_jobs` finds them fastest.
     """
     folds = _inner_folds(len(inputs), plan.folds, rng, labels)
-    dtype = np.float32 if plan.dtype == "float32" else np.float64
-    optimizer = optimizers.OPTIMIZERS[plan.algorithm]
-    chosen = {**settings, "rate": plan.rate, "batch": plan.batch_rows}
-    fold_rng_seed = int(rng.integers(2**32))
-    losses = []
-    for decay in DECAY_CHOICES:
-        total = 0.0
-        for train_rows, test_rows in folds:
-            train = network.Objective(
-                sizes, activation, head, inputs[train_rows], outputs[train_rows], decay, dtype,
-                batch_rows=plan.batch_rows if optimizer.mini_batches else None,
-            )
-            check = network.Objective(sizes, activation, head, inputs[test_rows], outputs[test_rows], 0.0, dtype)
-            monitor = Monitor(_stopping_rules(settings), check.data_loss)
-            _, reason = optimizers.run(plan.algorithm, train, theta, monitor, np.random.default_rng(fold_rng_seed), chosen)
-            curve = np.asarray(monitor.validation_curve)
-            usable = reason != "diverged" and np.isfinite(curve).all()  # a decay whose steps blow up is never kept
-            total += (float(curve.min()) if usable else np.inf) * len(test_rows) / len(inputs)
-        losses.append(total)
-    return DecayChoice(DECAY_CHOICES[int(np.argmin(losses))], tuple(losses))
+    seed = int(rng.integers(2**32))
+    jobs = [
+        (inputs, outputs, sizes, activation, head, settings, plan, theta, train_rows, test_rows, decay, seed)
+        for decay in DECAY_CHOICES
+        for train_rows, test_rows in folds
+    ]
+    losses = np.array(run_jobs(fold_loss, jobs, settings["workers"], "decay folds")).reshape(len(DECAY_CHOICES), len(folds))
+    shares = np.array([len(test_rows) for _, test_rows in folds]) / len(inputs)
+    mean_losses = losses @ shares
+    return DecayChoice(DECAY_CHOICES[int(np.argmin(mean_losses))], tuple(float(v) for v in mean_losses))
 
 
 def train_member(
@@ -277,8 +302,7 @@ def fit(
     if plan.decay is None:  # after the members' seeds, so choosing the decay leaves them as they were
         tuning = np.random.default_rng(root.spawn(1)[0])
         start = network.initial_parameters(sizes, resolved["activation"], tuning)
-        with network.one_blas_thread():
-            choice = choose_decay(inputs, outputs, labels, sizes, resolved["activation"], target.head, resolved, plan, start, tuning)
+        choice = choose_decay(inputs, outputs, labels, sizes, resolved["activation"], target.head, resolved, plan, start, tuning)
         plan = dataclasses.replace(plan, decay=choice.decay)
     args = (inputs, outputs, labels, sizes, resolved["activation"], target.head, resolved, plan)
     if len(seeds) == 1:  # one network: here, with its progress per epoch
