@@ -142,6 +142,7 @@ def run_train(args: argparse.Namespace, out: TextIO) -> int:
     book = open_book(args.book)
     check_storable(book, args.name, args.replace)
     check_can_save(book)  # a read-only or open workbook is refused before training, not after
+    replaced_signature = _signer_of(book, args.name)
     table = read_range(book, args.table)
     request = service.TrainRequest(table, args.target, args.hidden, _settings_text(args.set), args.holdout, args.mode, args.seed, args.table)
     bar = ProgressLine(f"training {args.name}")
@@ -156,6 +157,8 @@ def run_train(args: argparse.Namespace, out: TextIO) -> int:
     results_sheet(book, service.results_sheet_name(args.name), service.training_results(args.name, args.table, table, trained, answer, about))
     _saved(book, out)
     out.write(f"model {args.name} stored under the defined name {args.name}\n")
+    if replaced_signature:
+        out.write(f"note: {_UNSIGNED_AGAIN.format(name=args.name, key=replaced_signature, book=args.book)}\n")
     summary = dict((r[0], r[1]) for r in about[1:])
     out.write(f"  task {summary['task']}; network {summary['layers']}, {summary['algorithm']}, ")
     out.write(f"stopped by '{summary['stopped by']}' after {summary['epochs']} epochs\n")
@@ -167,6 +170,24 @@ def run_train(args: argparse.Namespace, out: TextIO) -> int:
         _print_rows(holdout, out)
     out.write(f"{CAUTION}\n")
     return 0
+
+
+_UNSIGNED_AGAIN = "the model it replaced was signed by the key {key}; the new block is unsigned until you sign it (sheetnet sign {book} --model {name})"
+
+
+def _signer_of(book: Any, name: str) -> str:
+    """The key id that signed the model stored as ``name`` now, or '' (no such model, unsigned, or damaged)."""
+    from .signing import check_signature
+    from .workbook import defined_name, model_names, read_model
+
+    found = defined_name(book, name)
+    if found is None or found not in model_names(book):
+        return ""
+    try:
+        signature = check_signature(read_model(book, found), ())
+    except SheetnetError:
+        return ""
+    return signature.key_id if signature.state != "wrong" else ""
 
 
 def run_predict(args: argparse.Namespace, out: TextIO) -> int:
@@ -480,6 +501,7 @@ def run_refresh(args: argparse.Namespace, out: TextIO) -> int:
             raise InputError(f"the workbook has no model named '{args.model}'" + (f"; its models are: {', '.join(names)}" if names else ""))
         names = [found]
     outcomes = [service.refresh_model(name, read_model(book, name), lambda address: read_range(book, address), args.dry_run) for name in names]
+    signers = {o.name: _signer_of(book, o.name) for o in outcomes if o.trained is not None}
     for outcome in outcomes:
         if outcome.trained is not None and outcome.table is not None:
             block, table = outcome.trained.block, outcome.table
@@ -493,6 +515,8 @@ def run_refresh(args: argparse.Namespace, out: TextIO) -> int:
     for outcome in outcomes:
         detail = f": {outcome.message}" if outcome.message else ""
         out.write(f"{labels[outcome.state]} {outcome.name}{detail}\n")
+        if signers.get(outcome.name):
+            out.write(f"  note: {_UNSIGNED_AGAIN.format(name=outcome.name, key=signers[outcome.name], book=args.book)}\n")
     if any(o.trained is not None for o in outcomes):
         _saved(book, out)
     elif not outcomes:

@@ -1,5 +1,6 @@
 """The demo workbook, checked with openpyxl: scenarios, hidden models, predictions, charts."""
 
+import re
 import zipfile
 
 import numpy as np
@@ -71,7 +72,47 @@ def test_charts_are_in_the_workbook(demo):
     path, _ = demo
     with zipfile.ZipFile(path) as package:
         charts = [n for n in package.namelist() if n.startswith("xl/charts/chart")]
-    assert len(charts) == 4  # a training curve per scenario and predicted against actual for the forecast
+    # per scenario a training curve, importance bars, partial dependence and residuals or calibration;
+    # predicted against actual for the forecast
+    assert len(charts) == 3 * 4 + 1
+    with zipfile.ZipFile(path) as package:
+        scatter = [package.read(n).decode() for n in charts if b"scatterChart" in package.read(n)]
+    # markers LibreOffice draws: a circle with its own fill (without one, the points are invisible there)
+    with_points = [x for x in scatter if re.search(r'symbol val="circle"', x)]
+    assert len(with_points) == 4  # predicted against actual, residuals, two calibration curves
+    for chart in with_points:
+        assert re.search(r'symbol val="circle"\s*/><(c:)?size val="6"\s*/><(c:)?spPr><a:solidFill>', chart), chart[:200]
+
+
+def test_metrics_carry_error_bars_words_and_number_formats(demo):
+    path, results = demo
+    book = openpyxl.load_workbook(path)
+    sheet = book["Shipments"]
+    found = {sheet.cell(r, c).value: (r, c) for r in range(1, 60) for c in range(1, sheet.max_column + 1) if sheet.cell(r, c).value == "holdout metric"}
+    row, column = found["holdout metric"]
+    assert [sheet.cell(row, column + j).value for j in range(5)] == ["holdout metric", "value", "low (90 %)", "high (90 %)", "in words"]
+    metrics = {sheet.cell(r, column).value: r for r in range(row + 1, row + 20)}
+    accuracy = metrics["accuracy"]
+    assert sheet.cell(accuracy, column + 1).number_format == "0.0%" and sheet.cell(metrics["log_loss"], column + 1).number_format == "0.000"
+    low, value, high = (sheet.cell(accuracy, column + j).value for j in (2, 1, 3))
+    assert low <= value <= high and sheet.cell(accuracy, column + 4).value.startswith("Accuracy ")
+    assert "percentile bootstrap" in sheet.cell(metrics["error bars"], column + 1).value
+    for scenario in ("shipments_model", "parcels_model", "coffee_model"):
+        card = book[f"sn card {scenario}"]
+        assert card.sheet_state == "visible" and card["A2"].value == f"Model card: {scenario}"
+    parcels = next(r for r in results if r.scenario.sheet == "Parcels")
+    assert parcels.half_width is not None and parcels.half_width > 0 and parcels.residual_pairs
+    coffee = next(r for r in results if r.scenario.sheet == "Coffee")
+    assert coffee.reliability and sum(b[2] for b in coffee.reliability) == coffee.metrics["rows"]
+
+
+def test_pictures_of_every_scenario(demo, tmp_path):
+    from sheetnet.demo_workbook import draw_pictures
+
+    _, results = demo
+    drawn = [p.name for result in results for p in draw_pictures(result, tmp_path / result.scenario.sheet.lower())]
+    assert "parcels-residuals.png" in drawn and "coffee-calibration.png" in drawn and "shipments-importance.png" in drawn
+    assert sum(name.endswith("-dependence.png") for name in drawn) == 3
 
 
 def test_the_demo_data_come_from_the_seeded_generators():
