@@ -470,3 +470,20 @@ def test_a_workbook_of_signed_models_saved_by_libreoffice_calc_still_checks_as_t
     saved = recalculate([path], tmp_path / "calc")[0]  # opened, computed and saved again by Calc, as .xlsx
     assert cli.main(["check", str(saved), "--keys", keys]) == 0
     assert "ok      grades: intact; signed by the trusted key 'alice'" in capsys.readouterr().out
+
+
+def test_retraining_a_signed_model_says_the_new_block_is_unsigned(signed_book, capsys):
+    path, keys = signed_book
+    alice = keyring.signing_key("alice", Path(keys))
+    assert cli.main(["train", str(path), "--table", "Lots!A1:G81", "--target", "grade", "--name", "grades", "--hidden", "3",
+                     "--set", "ignore=lot", "--set", "epochs=20", "--replace"]) == 0
+    assert f"note: the model it replaced was signed by the key {alice.key_id}; the new block is unsigned until you sign it" in capsys.readouterr().out
+    assert check_signature(read_model(open_book(path), "grades"), []).state == "unsigned"
+    assert cli.main(["sign", str(path), "--keys", keys, "--model", "grades"]) == 0
+    book = openpyxl.load_workbook(path)
+    book["Lots"]["B2"].value = book["Lots"]["B2"].value + 1.5  # the data changed: refresh retrains
+    book.save(path)
+    capsys.readouterr()
+    assert cli.main(["refresh", str(path), "--model", "grades"]) == 0
+    out = capsys.readouterr().out
+    assert "retrained grades" in out and f"  note: the model it replaced was signed by the key {alice.key_id}" in out
