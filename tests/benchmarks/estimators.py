@@ -62,6 +62,17 @@ def main() -> None:
             for step, (a, b) in (("fit", (fit_wrapped, fit_direct)), ("predict", (predict_wrapped, predict_direct))):
                 print(f"{kind:6} {task:10} {step:8} {a:12.4f} {b:10.4f} {a / b:6.2f}")
             onnx_line(kind, task, model, X, options.repeats)
+            checks = median_of(lambda: (wrapped._check_target(wrapped._target(target)), wrapped._table(X, reset=True)), 5 * options.repeats)
+            print(f"{kind:6} {task:10} {'checks':8} {checks:12.5f} {'':10} {checks / fit_direct:6.3f}   (the estimator's own reading and checks before fit, against fit)")
+
+
+def median_of(action, repeats: int) -> float:
+    times = []
+    for _ in range(repeats):
+        start = time.perf_counter()
+        action()
+        times.append(time.perf_counter() - start)
+    return statistics.median(times)
 
 
 def onnx_line(kind: str, task: str, model: sheetnet.Model, X: object, repeats: int) -> None:
