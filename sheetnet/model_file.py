@@ -75,9 +75,17 @@ def save(model: Model, path: str | os.PathLike[str], info: BlockInfo | None = No
     written whole or not at all, and an existing file is replaced only when it
     is itself a model file.
     """
+    return save_block(encode_block(model, info or default_info(model)), path)
+
+
+def save_block(block: list[list[Any]], path: str | os.PathLike[str]) -> Path:
+    """Write a model block as it is (one read from a workbook, a signed one) to ``path`` as a model file; returns the path.
+
+    The block is decoded first, so a damaged block is refused here rather than when the file is loaded.
+    """
+    decode_block(block)
     target = Path(path)
-    text = file_text(encode_block(model, info or default_info(model)))
-    data = text.encode("utf-8")
+    data = file_text(block).encode("utf-8")
     if len(data) > MAX_FILE_BYTES:
         raise ModelFileError(
             f"the model would take {len(data):,} bytes as a file, more than the {MAX_FILE_BYTES:,} a model file may hold; "
@@ -110,7 +118,12 @@ def load(path: str | os.PathLike[str]) -> Model:
 
 def load_with_info(path: str | os.PathLike[str]) -> tuple[Model, BlockInfo]:
     """The model of a model file and what its block records besides it."""
-    return decode_block(block_of(_read_bytes(Path(path))))
+    return decode_block(load_block(path))
+
+
+def load_block(path: str | os.PathLike[str]) -> list[list[Any]]:
+    """The block rows of a model file, checked as plain cells but not decoded (to check a signature, or to store it in a workbook)."""
+    return block_of(_read_bytes(Path(path)))
 
 
 def block_of(data: bytes) -> list[list[Any]]:

@@ -197,3 +197,16 @@ def test_random_damage_to_a_file_is_always_refused_in_words(trained, tmp_path):
             np.testing.assert_array_equal(loaded.predict_proba(frame), sheetnet.load(_file_with(tmp_path, _saved_text(model))).predict_proba(frame))
             outcomes["loaded"] += 1
     assert outcomes["refused"] > 250
+
+
+def test_a_block_is_saved_as_it_is_and_read_back_row_for_row(trained, tmp_path):
+    model, frame = trained
+    block = encode_block(model, model_file.default_info(model))
+    path = model_file.save_block(block, tmp_path / "as_is.json")
+    rows = model_file.load_block(path)
+    assert [row + [""] * (len(block[0]) - len(row)) for row in rows] == block  # the same cells, trailing blanks put back
+    damaged = [list(row) for row in block]
+    damaged[3][1] = "another target"
+    with pytest.raises(BlockError, match="changed after training"):
+        model_file.save_block(damaged, tmp_path / "damaged.json")
+    assert not (tmp_path / "damaged.json").exists()
