@@ -23,9 +23,14 @@ from .block import MAGIC, decode_block
 from .cells import MARKER
 from .errors import InputError, SheetnetError
 from .placements import Placements, column_letters, same_title
-from .xl_udfs import from_excel
+from .xl_udfs import READ_OPTIONS, from_excel
 
 VERY_HIDDEN = 2  # Excel's xlSheetVeryHidden
+
+
+def _cells(area: Any) -> list[list[Any]]:
+    """A range's values as rows, error cells as their codes (``#N/A``), as the functions read them."""
+    return from_excel(area.options(ndim=2, **READ_OPTIONS).value)
 
 
 def _caller(book: Any) -> Any:
@@ -112,7 +117,7 @@ def _read(book: Any, address: str) -> list[list[Any]]:
     sheet_name = sheet_name.strip()
     if sheet_name.startswith("'") and sheet_name.endswith("'"):
         sheet_name = sheet_name[1:-1].replace("''", "'")
-    return from_excel(book.sheets[sheet_name].range(cells).options(ndim=2).value)
+    return _cells(book.sheets[sheet_name].range(cells))
 
 
 def _summary(name: str, block: list[list[Any]]) -> str:
@@ -129,7 +134,7 @@ def train_selection(target: str, name: str, hidden: Any = service.DEFAULT_HIDDEN
     try:
         service.check_model_name(name)
         selection = book.selection
-        table = from_excel(selection.options(ndim=2).value)
+        table = _cells(selection)
         address = f"'{selection.sheet.name}'!{selection.address}"
         trained = service.train_model(service.TrainRequest(table, target, hidden, settings, holdout, mode, seed, address))
         apply_placements(book, service.model_placements(name, trained.block, [n.name for n in book.names]))
@@ -143,7 +148,7 @@ def refresh_models(book: Any = None, dry_run: bool = False) -> str:
     book = _caller(book)
     outcomes = []
     for name in _model_names(book):
-        block = from_excel(book.names[name].refers_to_range.options(ndim=2).value)
+        block = _cells(book.names[name].refers_to_range)
         outcome = service.refresh_model(name, block, lambda address: _read(book, address), dry_run)
         if outcome.trained is not None:
             apply_placements(book, service.model_placements(name, outcome.trained.block, [n.name for n in book.names]))
@@ -168,14 +173,14 @@ def export_formulas(name: str, to: str, output: str = "value", book: Any = None)
         stored = _stored_name(book, name)
         if stored is None:
             raise InputError(f"the workbook has no model named '{name}'")
-        block = from_excel(book.names[stored].refers_to_range.options(ndim=2).value)
+        block = _cells(book.names[stored].refers_to_range)
         _, info = decode_block(block)
         if info.source is None:
             raise InputError(f"model {stored} does not record the range it was trained on; train it with train_selection first")
         sheet_name, cells = info.source[0].rsplit("!", 1)
         sheet_name = sheet_name.strip("'")
         source = book.sheets[sheet_name].range(cells)
-        grid = from_excel(source.options(ndim=2).value)
+        grid = _cells(source)
         data_rows = [i for i, row in enumerate(grid[1:], start=1) if any(v not in (None, "") for v in row)]
         target_sheet, target_cell = to.rsplit("!", 1) if "!" in to else (book.sheets.active.name, to)
         corner = book.sheets[target_sheet.strip("'")].range(target_cell)

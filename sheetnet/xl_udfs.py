@@ -5,6 +5,10 @@ the registry's bridge name (``SHEETNET_TRAIN``: Excel user-defined functions
 cannot contain dots), with the registry's arguments, help texts and 2-D range
 arguments. Answers are 2-D lists, which Excel shows as dynamic arrays; a
 failure is one readable ``#SHEETNET!`` cell, never an exception in Excel.
+Every argument is read with xlwings' ``err_to_str`` option (new in xlwings
+0.28): error cells arrive as their codes (``#N/A``), which sheetnet names in
+its messages, instead of xlwings' default ``None``, which would read as a
+blank (and with ``blank_rows=skip`` drop the row without a word).
 
 Uses only xlwings' open-source UDF decorators (``xw.func``, ``xw.arg``,
 ``xw.ret``). Point the workbook's ``xlwings.conf`` sheet at this module with
@@ -21,6 +25,8 @@ import xlwings as xw
 
 from .cells import Cells, message_cell
 from .registry import REGISTRY, CellFunction
+
+READ_OPTIONS: dict[str, Any] = {"err_to_str": True}  # how every door of this bridge reads cells
 
 
 def from_excel(value: Any) -> Any:
@@ -63,11 +69,14 @@ def _wrapper(entry: CellFunction) -> Callable[..., list[list[Any]]]:
     udf.sheetnet_udf = {  # type: ignore[attr-defined]
         "name": entry.bridge_name,
         "category": "sheetnet",
-        "args": [{"name": a.name, "optional": a.optional, "ndim": 2 if a.kind == "range" else None, "doc": a.help} for a in entry.arguments],
+        "args": [
+            {"name": a.name, "optional": a.optional, "ndim": 2 if a.kind == "range" else None, "doc": a.help, **READ_OPTIONS}
+            for a in entry.arguments
+        ],
     }
     decorated: Callable[..., list[list[Any]]] = udf
     for argument in reversed(entry.arguments):
-        options = {"ndim": 2} if argument.kind == "range" else {}
+        options = {"ndim": 2, **READ_OPTIONS} if argument.kind == "range" else dict(READ_OPTIONS)
         decorated = xw.arg(argument.name, doc=argument.help, **options)(decorated)
     return xw.func(category="sheetnet")(decorated)  # a 2-D list answer spills as a dynamic array
 

@@ -1,9 +1,12 @@
 """A small in-memory stand-in for the parts of xlwings' Book/Sheet/Range API that sheetnet's macros use.
 
 Limits (what it does not do): it evaluates no formula (array formulas are stored as text), knows no
-Excel types beyond numbers, texts, booleans and blanks, does not spill, has no recalculation, events,
+Excel types beyond numbers, texts, booleans, blanks and error values (`CellError`), does not spill, has no recalculation, events,
 COM or AppleScript, and parses only A1-style addresses ("B2", "A1:G301", with or without $).
 It exists so the macro layer can be driven on Linux, where no Excel runs.
+
+Error cells read as xlwings documents them (``Range.options`` docstring, xlwings 0.28 and later):
+``None`` by default, their code such as ``#N/A`` with ``options(err_to_str=True)``.
 """
 
 from __future__ import annotations
@@ -43,17 +46,33 @@ def _as_typed(value: Any) -> Any:
         return value
 
 
+class CellError:
+    """An error value held by a cell (what a formula such as =NA() leaves), like #N/A."""
+
+    def __init__(self, code: str) -> None:
+        self.code = code
+
+
+def _read(value: Any, err_to_str: bool) -> Any:
+    if isinstance(value, CellError):
+        return value.code if err_to_str else None
+    return value
+
+
 class Rows:
     def __init__(self, count: int) -> None:
         self.count = count
 
 
 class Range:
-    def __init__(self, sheet: "Sheet", row: int, column: int, height: int = 1, width: int = 1, ndim: int | None = None) -> None:
+    def __init__(
+        self, sheet: "Sheet", row: int, column: int, height: int = 1, width: int = 1, ndim: int | None = None, err_to_str: bool = False
+    ) -> None:
         self.sheet, self.row, self.column, self.height, self.width, self.ndim = sheet, row, column, height, width, ndim
+        self.err_to_str = err_to_str
 
-    def options(self, ndim: int | None = None, **_: Any) -> "Range":
-        return Range(self.sheet, self.row, self.column, self.height, self.width, ndim)
+    def options(self, ndim: int | None = None, err_to_str: bool = False, **_: Any) -> "Range":
+        return Range(self.sheet, self.row, self.column, self.height, self.width, ndim, err_to_str)
 
     @property
     def address(self) -> str:
@@ -67,7 +86,8 @@ class Range:
 
     @property
     def value(self) -> Any:
-        grid = [[self.sheet.cells.get((self.row + i, self.column + j)) for j in range(self.width)] for i in range(self.height)]
+        cells = self.sheet.cells
+        grid = [[_read(cells.get((self.row + i, self.column + j)), self.err_to_str) for j in range(self.width)] for i in range(self.height)]
         if self.ndim == 2:
             return grid
         if self.height == 1 and self.width == 1:
