@@ -13,7 +13,7 @@ from .errors import LengthMismatchError, SplitError
 from .metrics import classification_metrics, regression_metrics
 from .model import Model
 from .parallel import run_jobs
-from .preparation import fit_target, numbers_of, read_table, read_target
+from .preparation import fit_preparation, fit_target, numbers_of, read_table, read_target
 from .splits import grouped_folds, holdout_mask, k_folds, ordered_folds
 from .training import fit
 
@@ -122,15 +122,47 @@ def make_folds(
             raise SplitError(f"groups were given with fold mode {mode}; use mode grouped (or auto) with groups, or leave the groups out")
         if len(groups) != n:
             raise LengthMismatchError(f"{len(groups)} group labels but {n} rows; give one group label per row")
-        return "grouped", grouped_folds(groups, k, seed)
+        folds = grouped_folds(groups, k, seed)
+        _check_fold_classes(folds, _class_labels(y, task), "grouped")
+        return "grouped", folds
     if mode == "grouped":
         raise SplitError("grouped folds need the groups: one label per row (like a customer or store column), given as groups=")
     if mode == "ordered":
-        return "ordered", ordered_folds(n, k)
+        folds = ordered_folds(n, k)
+        _check_fold_classes(folds, _class_labels(y, task), "ordered")
+        return "ordered", folds
     labels = _class_labels(y, task) if mode in ("auto", "stratified") else None
     if mode == "stratified" and labels is None:
         raise SplitError("stratified folds are for targets learned as classes; this target is learned as numbers, so use mode random")
     return ("random" if labels is None else "stratified"), k_folds(n, k, seed, labels)
+
+
+def _check_fold_classes(folds: list[tuple[np.ndarray, np.ndarray]], labels: np.ndarray | None, mode: str) -> None:
+    """Ordered and grouped folds cannot spread classes evenly: refuse folds that would train on one class,
+    or test a class their training rows never had, with the fold's rows in words (not a row inside the fold)."""
+    if labels is None:
+        return
+    for number, (train_rows, test_rows) in enumerate(folds, start=1):
+        seen = set(labels[train_rows].tolist())
+        where = f"{mode} fold {number} of {len(folds)} trains on {len(train_rows)} rows and tests {len(test_rows)}"
+        if len(seen) < 2:
+            raise SplitError(f"{where}, but its training rows hold a single class; use fewer folds, or random or stratified folds")
+        if set(labels[test_rows].tolist()) - seen:
+            raise SplitError(
+                f"{where}, and they hold a class its training rows never had; use fewer folds, or random or stratified folds"
+                + (", or move rows of that class earlier" if mode == "ordered" else "")
+            )
+
+
+def check_rows(X: Any, y: Any, task: str = "auto", categories: Sequence[str] = ()) -> None:
+    """Check every cell of ``X`` and ``y`` once on all rows, so that a bad cell is named at its row in the
+    whole table rather than at its row inside a fold. Raises what `fit` raises."""
+    table = read_table(X)
+    target = read_target(y)
+    if len(target) != table.n_rows:
+        raise LengthMismatchError(f"the inputs have {table.n_rows} rows but the target has {len(target)}; give one target value per input row")
+    fit_preparation(table, categories).transform_columns(table.columns)
+    fit_target(target, task).encode(target)
 
 
 def fit_and_score_fold(
@@ -177,6 +209,7 @@ def cross_validate(
     >>> result = cross_validate(X, y, k=5, mode="ordered")   # doctest: +SKIP
     >>> result["mean"]["rmse"], result["spread"]["rmse"]      # doctest: +SKIP
     """
+    check_rows(X, y, settings.get("task", "auto"), settings.get("categories", ()))
     used, folds = make_folds(y, k, seed, mode, groups, settings.get("task", "auto"))
     inner = dict(settings, workers=1)  # the cores go to the folds, not to repeats inside them
     jobs = [(X, y, train_rows, test_rows, hidden, seed, inner) for train_rows, test_rows in folds]

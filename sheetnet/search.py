@@ -29,7 +29,7 @@ import numpy as np
 
 from .cell_text import cell_in_words
 from .errors import SettingError
-from .evaluation import fit_and_score_fold, make_folds
+from .evaluation import check_rows, fit_and_score_fold, make_folds
 from .parallel import run_jobs
 from .preparation import fit_target, planned_width, read_table, read_target
 from .settings import resolve_settings
@@ -214,6 +214,7 @@ def search(
         kind = "numbers" if learned.task == "regression" else "classes"
         fitting = [m for m in HIGHER_IS_BETTER if (m in REGRESSION_METRICS) == (learned.task == "regression")]
         raise SettingError(f"metric {metric} does not fit a target learned as {kind}; choose one of: {', '.join(fitting)}")
+    check_rows(X, y, resolved[0]["task"], categories)
     used, folds = make_folds(y, k, seed, mode, groups, resolved[0]["task"])
     width = planned_width(table, categories)
     jobs = []

@@ -113,7 +113,7 @@ def test_ordered_cross_validation_trains_each_fold_on_the_earlier_rows_only(rng)
 
 def test_grouped_folds_never_split_a_group(rng):
     groups = rng.choice([f"store {i}" for i in range(13)], size=300)
-    folds = make_folds(np.zeros(300), k=5, groups=groups, seed=3)[1]
+    folds = make_folds(np.arange(300.0), k=5, groups=groups, seed=3)[1]
     for train_rows, test_rows in folds:
         assert not set(groups[train_rows]) & set(groups[test_rows])
     assert sorted(np.concatenate([te for _, te in folds]).tolist()) == list(range(300))
@@ -151,3 +151,24 @@ def test_importance_columns_give_the_same_answer_in_processes(rng):
     here = sheetnet.permutation_importance(model, X, y, repeats=3, seed=4, workers=1)
     there = sheetnet.permutation_importance(model, X, y, repeats=3, seed=4, workers=2)
     assert here == there
+
+
+def test_ordered_and_grouped_folds_refuse_classes_a_fold_cannot_learn():
+    X = np.arange(120.0).reshape(-1, 1)
+    late = np.where(np.arange(120) % 2 == 0, "a", "b")
+    late[110:] = "c"  # a class that only the last rows have
+    with pytest.raises(sheetnet.SheetnetError, match="ordered fold 3 of 3 trains on 90 rows and tests 30, and they hold a class its training rows never had"):
+        sheetnet.cross_validate(X, late, k=3, mode="ordered", hidden=(2,), workers=1)
+    with pytest.raises(sheetnet.SheetnetError, match="ordered fold 1 of 3 trains on 30 rows and tests 30, but its training rows hold a single class"):
+        sheetnet.cross_validate(X, np.where(np.arange(120) < 50, "a", "b"), k=3, mode="ordered", hidden=(2,), workers=1)
+    one_group_one_class = np.repeat(["p", "q", "r", "s"], 30)
+    labels = np.where(one_group_one_class == "s", "rare", np.where(np.arange(120) % 2 == 0, "x", "y"))
+    with pytest.raises(sheetnet.SheetnetError, match="grouped fold .* a class its training rows never had"):
+        sheetnet.cross_validate(X, labels, k=4, groups=one_group_one_class, hidden=(2,), workers=1)
+
+
+def test_a_bad_cell_is_named_at_its_row_in_the_whole_table_not_in_a_fold():
+    X = np.arange(120.0).reshape(-1, 1).astype(object)
+    X[97, 0] = "lots"
+    with pytest.raises(sheetnet.SheetnetError, match="row 98"):
+        sheetnet.cross_validate(X, np.arange(120.0), k=3, hidden=(2,), workers=1)
