@@ -353,9 +353,12 @@ def fingerprint(table: SheetTable, columns: Sequence[str], rows: np.ndarray) -> 
 
 
 def _number_texts(values: np.ndarray) -> bytes:
-    """Floats as `block._canonical` writes them (15 significant digits, -0 as 0, blanks as nan), each ended by \\x1f."""
-    plain = np.where(values == 0, 0.0, values).tolist()
-    return (("%.15g\x1f" * len(plain)) % tuple(plain)).encode("ascii")
+    """Floats as `block._canonical` writes them ('%.15g', -0 as 0, blanks as nan), each ended by \\x1f, in one
+    formatting call; a column of whole numbers below 1e15, which '%.15g' writes as their digits, through '%d' (faster)."""
+    plain = np.where(values == 0, 0.0, values)
+    if ((np.abs(plain) < 1e15) & (plain == np.trunc(plain))).all():  # False for nan and the infinities
+        return (("%d\x1f" * len(plain)) % tuple(plain.astype(np.int64).tolist())).encode("ascii")
+    return (("%.15g\x1f" * len(plain)) % tuple(plain.tolist())).encode("ascii")
 
 
 def _number_text(value: float | int) -> str:

@@ -85,16 +85,17 @@ def test_the_fingerprint_is_the_blocks_table_fingerprint_of_the_columns_as_read(
     numbers = [*TRICKY_NUMBERS, *rng.normal(size=40).tolist(), *(rng.normal(size=20) * 1e-9).tolist(), *(rng.normal(size=20) * 1e20).tolist()]
     rows = len(numbers)
     texts = ["a", " b ", None, True, 3, 2.5, 10**400, np.float64(0.25), datetime.date(2026, 12, 2), "", -0.0, np.int64(7)]
-    grid = [["n", "with blanks", "cells"]] + [
-        [numbers[i], None if i % 5 == 0 else numbers[(i * 7) % rows], texts[i % len(texts)]] for i in range(rows)
+    wholes = [0, -0.0, 1, -3, 2**40, 999_999_999_999_999, -999_999_999_999_999, 12.0]  # written through '%d'
+    grid = [["n", "with blanks", "cells", "whole"]] + [
+        [numbers[i], None if i % 5 == 0 else numbers[(i * 7) % rows], texts[i % len(texts)], wholes[i % len(wholes)]] for i in range(rows)
     ]
     table = cells.read_sheet_table(grid)
     assert table.values("n").dtype == np.float64 and table.values("cells").dtype == object
-    names = ["n", "with blanks", "cells"]
+    names = ["n", "with blanks", "cells", "whole"]
     for used in (np.ones(rows, dtype=bool), np.arange(rows) % 3 != 0):
         expected = table_fingerprint([table.frame.loc[used, name].tolist() for name in names])  # the way blocks have stored it
         assert cells.fingerprint(table, names, used) == expected
-    assert cells.fingerprint(table, ["cells", "n"], np.ones(rows, dtype=bool)) != cells.fingerprint(table, names[::2], np.ones(rows, dtype=bool))
+    assert cells.fingerprint(table, ["cells", "n"], np.ones(rows, dtype=bool)) != cells.fingerprint(table, ["n", "cells"], np.ones(rows, dtype=bool))
 
 
 def test_the_fingerprint_of_a_known_table_stays_the_same():
