@@ -42,7 +42,7 @@ MAX_NUMBER = 1e100  # larger magnitudes are refused: their squares (for the scal
 MAX_RANGE_ROWS = 1_048_576  # rows of one range: the tallest worksheet
 MAX_RANGE_COLUMNS = 16_384  # columns of one range: the widest worksheet
 MAX_RANGE_CELLS = 2_000_000  # cells of one range (rows x columns)
-MAX_ANSWER_CELLS = 2_000_000  # cells one cell function answers
+MAX_ANSWER_CELLS = 4_000_000  # cells one cell function answers: the largest range's rows with a few answer columns
 MAX_LAGS = 1_000  # lags one SHEETNET.LAGS call makes
 
 # --- one request to the local server -------------------------------------------------------------
@@ -190,20 +190,25 @@ def json_size(raw: bytes) -> tuple[int, int]:
     >>> _outside_texts(rb'["a,[b", "c\\", "d\",["]')  # the texts hide their commas and brackets
     (2, 1)
     """
-    lists, commas = raw.count(b"["), raw.count(b",")
+    commas, lists = _outside_texts(raw, texts_skipped=False)
     if (commas + lists > MAX_REQUEST_VALUES or lists > MAX_REQUEST_LISTS) and b'"' in raw:
         commas, lists = _outside_texts(raw)
     return commas + lists, lists
 
 
-def _outside_texts(raw: bytes) -> tuple[int, int]:
-    """Commas and opening brackets outside JSON texts."""
-    if b"\\" in raw:  # escaped backslashes first, so that every backslash left escapes the character after it
+def _outside_texts(raw: bytes, texts_skipped: bool = True) -> tuple[int, int]:
+    """Commas and opening brackets (outside JSON texts, or everywhere), a chunk at a time (NumPy counts
+    bytes several times faster than ``bytes.count``)."""
+    if texts_skipped and b"\\" in raw:  # escaped backslashes first, so that every backslash left escapes the character after it
         raw = raw.replace(b"\\\\", b"").replace(b'\\"', b"")
     data = np.frombuffer(raw, dtype=np.uint8)
     commas = lists = parity = 0
     for start in range(0, len(data), _CHUNK):
         chunk = data[start:start + _CHUNK]
+        if not texts_skipped:
+            commas += int(np.count_nonzero(chunk == ord(",")))
+            lists += int(np.count_nonzero(chunk == ord("[")))
+            continue
         quotes = chunk == ord('"')
         outside = ((np.cumsum(quotes, dtype=np.uint8) + parity) & 1) == 0  # parity wraps harmlessly at 256
         commas += int(np.count_nonzero((chunk == ord(",")) & outside))

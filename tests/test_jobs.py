@@ -116,7 +116,7 @@ def test_a_running_job_can_be_cancelled():
     rng = np.random.default_rng(0)
     big = [["a", "b", "c", "y"]] + [[*map(float, rng.normal(size=3)), float(rng.normal())] for _ in range(3000)]
     board = JobBoard()
-    job = board.submit("long", [big, "y", "16", "epochs=100000; patience=100000; validation_share=0"])
+    job = board.submit("long", [big, "y", "16", "algorithm=adam; decay=0; epochs=100000; patience=100000; validation_share=0"])
     for _ in range(WAIT * 20):
         if job.epoch >= 2 or job.finished.wait(0.05):
             break

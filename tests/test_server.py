@@ -70,6 +70,7 @@ def test_every_function_over_http_equals_the_python_call(client, table):
         "SHEETNET.ABOUT": (model, table),
         "SHEETNET.LAGS": ([row[1:2] for row in table], 3),
         "SHEETNET.GROUPS": (model, table, "packaging", split),
+        "SHEETNET.SEARCH": (table, "spoiled", [["hidden"], [2], [3]], "epochs=20", 3),
     }
     assert set(calls) == {f.name for f in REGISTRY}
     for name, args in calls.items():
@@ -314,7 +315,8 @@ def test_every_error_answer_has_one_shape_and_plain_words(client, base_url):
 def test_a_training_job_can_be_cancelled(client):
     rng = np.random.default_rng(0)
     big = [["a", "b", "c", "y"]] + [[*map(float, rng.normal(size=3)), float(rng.normal())] for _ in range(20000)]
-    job = client.post("/v1/jobs", json={"name": "long", "args": [big, "y", "64,64", "epochs=100000; patience=100000; validation_share=0"]}).json()
+    endless = "algorithm=adam; decay=0; epochs=100000; patience=100000; validation_share=0"
+    job = client.post("/v1/jobs", json={"name": "long", "args": [big, "y", "64,64", endless]}).json()
     time.sleep(1.0)
     assert client.delete(f"/v1/jobs/{job['id']}").json()["state"] in ("cancelling", "cancelled")
     for _ in range(200):

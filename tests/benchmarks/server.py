@@ -6,7 +6,9 @@ A server is started in-process on 127.0.0.1 (uvicorn, one worker thread pool); a
 predicts 1 row and 10,000 rows; medians and 95th percentiles of both paths are printed. The HTTP
 time includes sending the encoded request (encoded once beforehand) and decoding the answer.
 The same model's placements (POST /v1/placements, what the task pane asks before storing a model)
-are timed the same way beside `service.model_placements`.
+are timed the same way beside `service.model_placements`. Last, what the request budget costs: counting
+the cells and rows of the 10,000-row body on its bytes (`limits.check_request_body`, done for every
+body before it is parsed) beside parsing it.
 """
 
 from __future__ import annotations
@@ -24,7 +26,7 @@ import orjson
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # the tests' server helper
 from local_server import serving  # noqa: E402
 
-from sheetnet import functions, server, service  # noqa: E402
+from sheetnet import functions, limits, server, service  # noqa: E402
 
 TOKEN = "bench-token-0123456789abcdef"
 
@@ -81,6 +83,11 @@ def measure(base: str, calls: int) -> None:
         http = timings(placements_call, calls)
         direct = timings(lambda: service.model_placements("model", model, names).to_json(), calls)
         print(f"| placements ({len(model)}-row block) | {http[0] * 1e3:.2f} | {http[1] * 1e3:.2f} | {direct[0] * 1e3:.2f} | {direct[1] * 1e3:.2f} | {http[0] / direct[0]:.1f}x |", flush=True)
+    body = orjson.dumps({"args": [model, table(10_000, seed=1)]})
+    counted = timings(lambda: limits.check_request_body(body), calls)
+    parsed = timings(lambda: orjson.loads(body), calls)
+    print(f"\nbudget check of the 10,000-row body ({len(body) / 1e6:.1f} MB): median {counted[0] * 1e3:.2f} ms, "
+          f"parsing it {parsed[0] * 1e3:.2f} ms ({counted[0] / parsed[0]:.2f}x)", flush=True)
 
 
 if __name__ == "__main__":
