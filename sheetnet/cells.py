@@ -334,7 +334,7 @@ def _plain(value: Any, depth: int = 0) -> bool:
         return all(_plain(v, depth + 1) for v in value)  # the columns of a COLUMN_FORM object
     if not kinds <= _PLAIN_CELLS | _SEQUENCES:
         return False
-    rows = [row for row in value if type(row) in _SEQUENCES]
+    rows = value if kinds <= _SEQUENCES else [row for row in value if type(row) in _SEQUENCES]
     return set(map(type, itertools.chain.from_iterable(rows))) <= _PLAIN_CELLS
 
 
