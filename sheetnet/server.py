@@ -16,8 +16,9 @@ to a cell function's refusal, is JSON ``{"detail": TEXT}`` built by
 - ``POST /v1/functions/{name}`` with ``{"args": [...]}``: ``{"result": [[...]]}``. Runs off the
   event loop; identical requests under way at the same time are computed once.
 - ``POST /v1/jobs`` with ``{"name": MODEL, "args": [TRAIN's arguments], "existing_names": [...]}``: a
-  training job (`sheetnet.jobs`), with ``GET /v1/jobs/{id}`` for progress (epoch, losses, curve; when
-  done the block, and the placements if ``existing_names`` was given) and ``DELETE /v1/jobs/{id}`` to cancel.
+  training job (`sheetnet.jobs`; 429 with ``Retry-After`` when as many are training and waiting as the
+  board takes), with ``GET /v1/jobs/{id}`` for progress (waiting or not, epoch, losses, curve; when done the
+  block, and the placements if ``existing_names`` was given) and ``DELETE /v1/jobs/{id}`` to cancel.
 - ``POST /v1/placements`` with ``{"name": MODEL, "block": [[...]], "existing_names": [...]}``: what a
   door writes to store the model (`sheetnet.service.model_placements`, as JSON).
 - ``GET /v1/models``: the models this server trained, with their summaries.
