@@ -18,11 +18,13 @@ generated from sheetnet's registry when the extension is built.
   name to the first free ``modelN``.
 """
 
+import base64
 import json
 import math
 import os
 import socket
 import ssl
+import struct
 import subprocess
 import time
 import urllib.error
@@ -198,6 +200,22 @@ def argument_in(value, kind):
     return cell_in(value)
 
 
+def table_in(value):
+    """A table range by columns (the server's column form, sheetnet.cells.COLUMN_FORM): a column of numbers
+    and blanks as base64 doubles (blanks as NaN), which JSON carries as one text and the server reads with no
+    work per cell; any other column as its cells. The server reads it exactly like the same range by rows."""
+    header = [cell_in(v) for v in value[0]] if value else []
+    columns = []
+    for j in range(len(header)):
+        cells = [row[j] if j < len(row) else None for row in value[1:]]
+        if all(isinstance(v, float) or v is None or v == "" for v in cells):
+            numbers = [v if isinstance(v, float) and math.isfinite(v) else math.nan for v in cells]
+            columns.append({"numbers": base64.b64encode(struct.pack(f"<{len(numbers)}d", *numbers)).decode("ascii")})
+        else:
+            columns.append([cell_in(v) for v in cells])
+    return {"header": header, "columns": columns}
+
+
 def cell_out(value):
     """A JSON value as a Calc cell: numbers as doubles (Calc shows booleans as 0 and refuses big integers),
     blanks as empty text (a None would show #N/A)."""
@@ -228,7 +246,7 @@ def message(text):
 
 def run_function(method, args):
     entry = FUNCTIONS[method]
-    values = [argument_in(v, a["kind"]) for v, a in zip(args, entry["arguments"])]
+    values = [table_in(v) if a["name"] == "table" and isinstance(v, tuple) and v else argument_in(v, a["kind"]) for v, a in zip(args, entry["arguments"])]
     while values and values[-1] is None:  # left-out optional arguments
         values.pop()
     try:
