@@ -172,7 +172,7 @@ Each column holds the cells below the header, one per data row, either as a list
 column of numbers, as ``{"numbers": TEXT}``: the numbers as IEEE 754 doubles in little-endian byte
 order (8 bytes each), written as base64 text, a blank cell as NaN. It reads exactly like the same
 range given as rows (the same table, the same messages, rows and columns counted the same way),
-but a column of numbers costs no cell-by-cell work: 10,000 rows arrive in microseconds.
+but a column of numbers costs no work per cell (one base64 decoding, no JSON numbers to parse).
 """
 
 
