@@ -243,16 +243,18 @@ def test_slow_sockets_are_closed_within_the_timeouts():
     with serving(app, **server.server_options(header_timeout=1.0)) as base:
         port = int(base.rsplit(":", 1)[1])
         sockets = []
-        for _ in range(50):  # headers that never end: a byte now and then
+        for k in range(50):  # headers that never end (a byte now and then), and connections that never say a word
             sock = socket.create_connection(("127.0.0.1", port), timeout=10)
-            sock.sendall(b"GET /v1/functions HTTP/1.1\r\nHost: 127.0.0.1\r\n")
+            if k % 5:
+                sock.sendall(b"GET /v1/functions HTTP/1.1\r\nHost: 127.0.0.1\r\n")
             sockets.append(sock)
         started = time.monotonic()
         for _ in range(3):
             time.sleep(0.3)
-            for sock in sockets:
+            for k, sock in enumerate(sockets):
                 try:
-                    sock.sendall(b"X")
+                    if k % 5:
+                        sock.sendall(b"X")
                 except OSError:
                     pass
         closed_after = []
