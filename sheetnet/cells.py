@@ -30,13 +30,13 @@ import pandas as pd
 from .block import _canonical
 from .cell_text import ERROR_VALUES, cell_in_words
 from .errors import BadValueError, InputError, SettingError, UnknownColumnError
-from .limits import MAX_LAYERS, check_ranges
+from .limits import MAX_LAYERS, MAX_RANGE_CELLS, check_ranges
 
 Cell = float | int | bool | str | None
 Cells = list[list[Cell]]
 
 MARKER = "#SHEETNET!"  # starts every message a cell function returns instead of an answer
-MAX_CELLS = 2_000_000  # larger ranges are refused before any work starts
+MAX_CELLS = MAX_RANGE_CELLS  # larger ranges are refused before any work starts (the budget's number, sheetnet.limits)
 NUMBER_TYPES = frozenset({float, int, type(None), np.float64, np.float32, np.int64, np.int32})
 CELL_TYPES = NUMBER_TYPES | {bool, str, np.bool_, np.str_}
 CELL_TYPE_FAMILIES = (int, float, str, datetime.date, datetime.time, np.number, np.bool_)  # subclasses too (pandas Timestamp)
