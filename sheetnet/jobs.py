@@ -10,8 +10,8 @@ Bounds (the numbers live in `sheetnet.limits`): at most ``max_running`` jobs
 train at once, each in a thread of its own, and at most ``max_waiting`` more
 wait their turn in the order they came (a waiting job reads ``state: running``
 with ``waiting: true``, so callers that poll until the state changes need not
-know about waiting); beyond that `BoardFull` (the server answers 429 with
-``Retry-After``). At most ``kept_finished`` finished jobs holding at most
+know about waiting), and together they hold at most ``max_table_cells`` cells
+of tables; beyond that `BoardFull` (the server answers 429 with ``Retry-After``). At most ``kept_finished`` finished jobs holding at most
 ``kept_cells`` cells of model blocks are remembered, and ``kept_models`` models
 listed (the oldest are forgotten first), so memory stays bounded however many
 requests arrive. Cancelling wins over finishing: a job whose cancel was
@@ -42,7 +42,7 @@ from typing import Any, Callable, Iterable, Sequence
 from . import functions, service
 from .cells import Cells
 from .errors import SheetnetError
-from .limits import KEPT_JOB_CELLS, KEPT_JOBS, KEPT_MODELS, MAX_RUNNING_JOBS, MAX_WAITING_JOBS
+from .limits import KEPT_JOB_CELLS, KEPT_JOBS, KEPT_MODELS, MAX_JOB_TABLE_CELLS, MAX_RUNNING_JOBS, MAX_WAITING_JOBS, range_shape
 from .progress import reporting_to
 from .registry import BY_NAME
 from .stopping import ProgressCallback
@@ -106,6 +106,7 @@ class Job:
     state: str = "running"
     waiting: bool = True
     cells: int = 0  # cells of the model block it holds
+    table_cells: int = 0  # cells of the table (and split) it holds until it ends
     epoch: int = 0
     epochs: int = 0
     training_loss: float | None = None
@@ -187,11 +188,14 @@ class JobBoard:
         trainer: Trainer = functions.train_block,
         max_waiting: int = MAX_WAITING_JOBS,
         kept_cells: int = KEPT_JOB_CELLS,
+        max_table_cells: int = MAX_JOB_TABLE_CELLS,
     ) -> None:
         if max_running < 1 or min(kept_finished, kept_models, max_waiting, kept_cells) < 0:
             raise ValueError("max_running must be at least 1; kept_finished, kept_models, max_waiting and kept_cells at least 0")
         self.max_running, self.max_waiting = max_running, max_waiting
         self.kept_finished, self.kept_models, self.kept_cells = kept_finished, kept_models, kept_cells
+        self.max_table_cells = max_table_cells
+        self._table_cells = 0  # held by the running and waiting jobs
         self.trainer = trainer
         self._jobs: OrderedDict[str, Job] = OrderedDict()  # in the order submitted
         self._queue: deque[tuple[Job, list[Any]]] = deque()  # accepted, waiting for a trainer
@@ -212,6 +216,7 @@ class JobBoard:
         if split is not None:
             _check_split_request(split, padded)
         job = Job(uuid.uuid4().hex, name, names, split=split)
+        job.table_cells = sum(rows * columns for rows, columns in map(range_shape, (padded[0], padded[4])))
         with self._lock:
             if self._trainers + len(self._queue) >= self.max_running + self.max_waiting:
                 waiting = f" and {len(self._queue)} are waiting" if self._queue else ""
@@ -219,6 +224,13 @@ class JobBoard:
                     f"{self._trainers} models are training{waiting} already, the most this server takes at once; "
                     f"wait for one to finish (try again in {RETRY_AFTER_SECONDS} seconds) or cancel one"
                 )
+            if self._table_cells and self._table_cells + job.table_cells > self.max_table_cells:
+                raise BoardFull(
+                    f"the training jobs under way hold {self._table_cells:,} cells of tables already, and this one would add "
+                    f"{job.table_cells:,}: more than the {self.max_table_cells:,} this server holds at once; "
+                    f"wait for one to finish (try again in {RETRY_AFTER_SECONDS} seconds) or cancel one"
+                )
+            self._table_cells += job.table_cells
             self._jobs[job.id] = job
             self._queue.append((job, padded))
             self._forget_old_jobs()
@@ -248,6 +260,7 @@ class JobBoard:
                 return "cancelling"
             self._queue = deque(entry for entry in self._queue if entry[0] is not job)
             job.message, job.state = "the training was cancelled", "cancelled"
+            self._table_cells -= job.table_cells
             self._forget_old_jobs()
         job.finished.set()
         return job.state
@@ -350,5 +363,6 @@ class JobBoard:
             job.result, job.placements, job.message = result, placements, message
             job.cells = sum(len(row) for row in result) if result else 0
             job.state = state
+            self._table_cells -= job.table_cells
             self._forget_old_jobs()
         job.finished.set()

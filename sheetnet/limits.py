@@ -57,6 +57,7 @@ BODY_TIMEOUT = 60.0  # seconds a caller has to send a request's body, once its h
 # --- training jobs on the local server (`sheetnet.jobs`) -----------------------------------------
 MAX_RUNNING_JOBS = 2  # trainings at the same time (each holds its table and a thread)
 MAX_WAITING_JOBS = 8  # jobs accepted to start when one of the running ends
+MAX_JOB_TABLE_CELLS = 10_000_000  # cells of the tables that running and waiting jobs hold, in all
 KEPT_JOBS = 100  # finished jobs remembered for their callers
 KEPT_JOB_CELLS = 5_000_000  # cells of the model blocks the remembered jobs hold, in all
 KEPT_MODELS = 100  # trained models listed by GET /v1/models

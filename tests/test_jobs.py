@@ -266,3 +266,19 @@ def test_a_bad_holdout_request_is_refused_before_any_job_exists(args, split, wor
     with pytest.raises(JobRequestError, match=words):
         board.submit("m", args, split=SplitRequest(*split))
     assert board.jobs() == []
+
+
+def test_the_tables_held_by_jobs_under_way_are_bounded(table):
+    block = functions.train(table, "spoiled", "2", "epochs=5")
+    gate = Gate(block)
+    cells = len(table) * len(table[0])
+    board = JobBoard(max_running=1, max_waiting=5, max_table_cells=2 * cells + 1, trainer=gate)
+    first, second = board.submit("one", [table, "spoiled"]), board.submit("two", [table, "spoiled"])
+    with pytest.raises(BoardFull, match=rf"^the training jobs under way hold {2 * cells:,} cells of tables already, and this one would add {cells:,}"):
+        board.submit("three", [table, "spoiled"])
+    assert board.cancel(second.id) == "cancelled"  # a cancelled waiting job lets its table go
+    third = board.submit("three", [table, "spoiled"])
+    gate.release.set()
+    assert _finish(first)["state"] == _finish(third)["state"] == "done"
+    for i in range(5):  # every job lets its table go at its end
+        assert board.submit(f"m{i}x", [table, "spoiled"]).finished.wait(WAIT)
