@@ -216,7 +216,7 @@ class JobBoard:
         if split is not None:
             _check_split_request(split, padded)
         job = Job(uuid.uuid4().hex, name, names, split=split)
-        job.table_cells = sum(rows * columns for rows, columns in map(range_shape, (padded[0], padded[4])))
+        job.table_cells = sum(rows * columns for rows, columns in map(range_shape, (a for a in (padded[0], padded[4]) if a is not None)))
         with self._lock:
             if self._trainers + len(self._queue) >= self.max_running + self.max_waiting:
                 waiting = f" and {len(self._queue)} are waiting" if self._queue else ""
