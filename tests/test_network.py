@@ -142,3 +142,33 @@ def test_initial_weights_follow_the_glorot_bound(activation, rng):
         assert np.abs(w).max() <= bound
         assert np.abs(w).max() > 0.8 * bound
     assert not b1.any()
+
+
+@pytest.mark.parametrize("batch_rows", [None, 7])  # columns (full batch) and rows (mini-batches)
+def test_shuffles_keep_inputs_and_targets_together(batch_rows, rng):
+    sizes = (2, 3, 1)
+    X = np.column_stack([np.arange(30.0), -np.arange(30.0)])
+    Y = np.arange(30.0)[:, None] * 10
+    objective = network.Objective(sizes, "tanh", "squared_error", X, Y, decay=0.0, batch_rows=batch_rows)
+    theta = rng.normal(size=network.parameter_count(sizes))
+    before = objective(theta)[0]
+    seen = set()
+    for _ in range(3):  # the spare buffers swap with the current ones each time
+        objective.shuffle(rng)
+        rows = objective._inputs(0, 30)  # (inputs, rows)
+        targets = objective._targets(0, 30)
+        np.testing.assert_array_equal(rows[1], -rows[0])
+        np.testing.assert_array_equal(targets[0], rows[0] * 10)
+        assert sorted(rows[0]) == list(range(30))
+        seen.add(tuple(rows[0]))
+    assert len(seen) == 3  # really reordered
+    assert objective(theta)[0] == pytest.approx(before, rel=1e-12)  # the same rows, so the same mean loss
+
+
+def test_prediction_in_blocks_equals_row_by_row(rng):
+    sizes = (4, 6, 3)
+    params = network.unpack(rng.normal(size=network.parameter_count(sizes)), sizes)
+    X = rng.normal(size=(network.PREDICT_CHUNK_ROWS * 2 + 5, 4))  # several blocks, BLAS pinned to one thread
+    whole = network.forward_layers(params, "relu", "cross_entropy", X)
+    rows = np.vstack([network.forward_layers(params, "relu", "cross_entropy", X[i:i + 1]) for i in range(0, len(X), 97)])
+    np.testing.assert_allclose(whole[::97], rows, rtol=1e-12)
