@@ -20,6 +20,8 @@ import itertools
 import marshal
 import math
 import re
+import threading
+from collections import OrderedDict
 from dataclasses import dataclass
 from types import SimpleNamespace
 from typing import Any, Callable, Sequence
@@ -346,10 +348,44 @@ def fingerprint(table: SheetTable, columns: Sequence[str], rows: np.ndarray) -> 
         values = table.values(name)[rows]
         digest.update(b"\x1e")
         if values.dtype.kind == "f":
-            digest.update(_number_texts(values))
+            digest.update(_kept_number_texts(values))
         else:
             digest.update(b"".join(_canonical(v.item() if isinstance(v, np.generic) else v).encode("utf-8") + b"\x1f" for v in values))
     return digest.hexdigest()
+
+
+NUMBER_TEXTS_KEPT = 64 * 2**20  # bytes of number texts kept, so that a table fingerprinted again (ABOUT on every
+KEPT_FROM_ROWS = 1_000  # recalculation, TRAIN with other settings) finds its longer columns written already
+_kept_texts: OrderedDict[bytes, bytes] = OrderedDict()
+_kept_size = [0]
+_kept_lock = threading.Lock()  # the server runs cell functions in several threads
+
+
+def forget_number_texts() -> None:
+    """Drop the kept number texts (for measurements of a table never seen, and for tests)."""
+    with _kept_lock:
+        _kept_texts.clear()
+        _kept_size[0] = 0
+
+
+def _kept_number_texts(values: np.ndarray) -> bytes:
+    """`_number_texts`, kept by the column's bytes (equal bytes, equal texts; a NaN with other bits only misses)."""
+    if len(values) < KEPT_FROM_ROWS:
+        return _number_texts(values)
+    key = hashlib.sha256(np.ascontiguousarray(values).tobytes()).digest()
+    with _kept_lock:
+        found = _kept_texts.get(key)
+        if found is not None:
+            _kept_texts.move_to_end(key)
+            return found
+    texts = _number_texts(values)
+    with _kept_lock:
+        if key not in _kept_texts:
+            _kept_texts[key] = texts
+            _kept_size[0] += len(texts)
+        while _kept_size[0] > NUMBER_TEXTS_KEPT and _kept_texts:
+            _kept_size[0] -= len(_kept_texts.popitem(last=False)[1])
+    return texts
 
 
 def _number_texts(values: np.ndarray) -> bytes:

@@ -194,3 +194,26 @@ def test_the_cell_functions_answer_a_table_by_columns_as_they_answer_it_by_rows(
     assert functions.data_unchanged(model, by_columns) and functions.data_unchanged(trained_by_columns, grid)  # the same fingerprint
     grid[3][0] = 9.5
     assert not functions.data_unchanged(model, column_form(grid, numbers=(0, 1, 3)))
+
+
+def test_number_texts_are_kept_within_their_bound_and_give_the_same_fingerprint(monkeypatch):
+    rng = np.random.default_rng(8)
+    grid = [["a", "b"]] + [[float(x), float(y)] for x, y in rng.normal(size=(3_000, 2))]
+    table = cells.read_sheet_table(grid)
+    every = np.ones(3_000, dtype=bool)
+    expected = table_fingerprint([table.frame[name].tolist() for name in ("a", "b")])
+    cells.forget_number_texts()
+    assert cells.fingerprint(table, ["a", "b"], every) == expected  # written
+    assert cells.fingerprint(table, ["a", "b"], every) == expected  # kept
+    assert len(cells._kept_texts) == 2 and cells._kept_size[0] == sum(map(len, cells._kept_texts.values()))
+    monkeypatch.setattr(cells, "NUMBER_TEXTS_KEPT", cells._kept_size[0] + 10)  # room for these two columns, not a third
+    other = cells.read_sheet_table([["c"]] + [[float(x)] for x in rng.normal(size=3_000)])
+    assert cells.fingerprint(other, ["c"], every) == table_fingerprint([other.frame["c"].tolist()])
+    def key(values: np.ndarray) -> bytes:
+        return hashlib.sha256(values.tobytes()).digest()
+
+    assert list(cells._kept_texts)[-1] == key(other.values("c")) and key(table.values("a")) not in cells._kept_texts  # the oldest went
+    assert cells._kept_size[0] <= cells.NUMBER_TEXTS_KEPT and cells._kept_size[0] == sum(map(len, cells._kept_texts.values()))
+    assert cells.fingerprint(table, ["a", "b"], every) == expected
+    cells.forget_number_texts()
+    assert not cells._kept_texts and cells._kept_size[0] == 0
