@@ -275,7 +275,7 @@ class TokenGate:
             await refusal(scope, receive, send)
             return
         if not public and not hmac.compare_digest(headers.get(b"authorization", b""), self.expected):
-            refusal = error_response(401, "missing or wrong access token; send the header 'Authorization: Bearer TOKEN' printed by sheetnet serve")
+            refusal = error_response(401, "missing or wrong access token; send the header 'Authorization: Bearer TOKEN' printed by sheetnet serve", CLOSE)
             await refusal(scope, receive, send)
             return
         if headers.get(b"origin") != self.origin:
@@ -298,8 +298,9 @@ class TokenGate:
 def guarded_protocol(header_timeout: float = HEADER_TIMEOUT) -> type:
     """uvicorn's HTTP/1.1 protocol (h11) closing a connection whose request headers take longer than
     ``header_timeout`` seconds to arrive, counted from the connection (or the end of the previous answer)
-    to the end of the headers: a caller trickling bytes cannot hold sockets open. (uvicorn itself times
-    out only idle kept-alive connections; the body's own time limit is `RequestBudget`'s.)"""
+    to the end of the headers, and one answered before its request's body was in (a refusal): a caller
+    trickling bytes cannot hold sockets open. (uvicorn itself times out only idle kept-alive connections;
+    the body's own time limit is `RequestBudget`'s.)"""
     import h11
     from uvicorn.protocols.http.h11_impl import H11Protocol
 
@@ -317,7 +318,11 @@ def guarded_protocol(header_timeout: float = HEADER_TIMEOUT) -> type:
 
         def on_response_complete(self) -> None:
             super().on_response_complete()
-            if not self.transport.is_closing() and self.conn.their_state is h11.IDLE:
+            if self.transport.is_closing():
+                return
+            if self.conn.their_state is h11.SEND_BODY:  # answered before its body came in: reading on would only feed a trickle
+                self.transport.close()
+            elif self.conn.their_state is h11.IDLE:
                 self._start_header_clock()
 
         def connection_lost(self, exc: Exception | None) -> None:

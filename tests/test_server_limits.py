@@ -325,3 +325,22 @@ def test_bodies_beyond_what_is_held_at_once_get_503_with_retry_after():
         large = client.post("/v1/functions/SHEETNET.LAGS", json={"args": [[["s"]] + [[i] for i in range(500)], 1]})
         assert large.status_code == 503 and large.headers["retry-after"] == "1"
         assert client.post("/v1/functions/SHEETNET.LAGS", json={"args": [[["s"], [1], [2]], 1]}).status_code == 200  # released
+
+
+def test_a_refusal_sent_before_the_body_ends_the_connection(live):
+    port = int(live.rsplit(":", 1)[1])
+    with socket.create_connection(("127.0.0.1", port), timeout=10) as sock:  # no token: 401 at once, then the socket is closed
+        sock.sendall(f"POST /v1/functions/SHEETNET.LAGS HTTP/1.1\r\nHost: 127.0.0.1:{port}\r\nContent-Length: {MB}\r\n\r\n".encode())
+        received = b""
+        started = time.monotonic()
+        try:
+            while time.monotonic() - started < 5:
+                sock.sendall(b"x" * 100)  # a trickle of body that the server would otherwise read and drop for ever
+                chunk = sock.recv(4096)
+                if not chunk:
+                    break
+                received += chunk
+                time.sleep(0.1)
+        except OSError:
+            pass
+        assert received.startswith(b"HTTP/1.1 401 ") and time.monotonic() - started < 5
