@@ -110,7 +110,7 @@ def test_progress_of_folds_importance_and_search():
     seen = []
     with reporting_to(lambda what, done, total: seen.append((what, done, total))):
         sheetnet.cross_validate(X, y, k=3, hidden=(2,), workers=1, epochs=20)
-        model = sheetnet.fit(X, y, hidden=(2,), repeats=2, workers=1, epochs=20)
+        model = sheetnet.fit(X, y, hidden=(2,), repeats=2, workers=1, epochs=20, decay=1e-4)  # a given decay: no inner folds
         sheetnet.permutation_importance(model, X, y, repeats=2, workers=1)
         sheetnet.search(X, y, [Candidate((2,)), Candidate((3,))], k=2, workers=1, epochs=20)
     assert seen == (
