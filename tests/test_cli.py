@@ -23,10 +23,11 @@ def test_demo_writes_the_workbook_and_reports_every_scenario(capsys, tmp_path):
     naive = float(out.split("naive RMSE (same as this week)")[1].split()[0])
     assert forecast < naive
     drawn = sorted(p.name for p in (tmp_path / "pictures").iterdir())
-    assert drawn == [
-        "1-shipments-confusion.png", "1-shipments-training.png",
-        "2-parcels-predicted.png", "2-parcels-training.png",
-        "3-coffee-confusion.png", "3-coffee-training.png",
+    assert drawn == [  # classifiers: calibration and confusion; the regression: predicted against actual and residuals
+        "1-shipments-calibration.png", "1-shipments-confusion.png", "1-shipments-dependence.png", "1-shipments-importance.png",
+        "1-shipments-training.png",
+        "2-parcels-dependence.png", "2-parcels-importance.png", "2-parcels-predicted.png", "2-parcels-residuals.png", "2-parcels-training.png",
+        "3-coffee-calibration.png", "3-coffee-confusion.png", "3-coffee-dependence.png", "3-coffee-importance.png", "3-coffee-training.png",
     ]
     assert book.exists()
 
