@@ -7,7 +7,8 @@ shared machine; medians are printed with their ratio. The table is invented: ten
 y = sin(x1) + x2 * x3 (seeded), given as the 2-D list of cells a spreadsheet hands over.
 
 - PREDICT through `functions.predict` beside `Model.predict` on the same numbers as a float array,
-  at 1 and 10,000 rows, and how much of PREDICT is reading the range (`cells.read_sheet_table`).
+  at 1 and 10,000 rows, how much of PREDICT is reading the range (`cells.read_sheet_table`), and
+  the xlwings function (`xl_udfs`: the cells converted in and the answer out as in Excel).
 - TRAIN at 10,000 rows: a cache hit, and a fresh TRAIN (`functions.train_block`) beside `fit` on
   the float array with the same layers and seed, for a table never seen and for one seen before
   (TRAIN with other settings, ABOUT: the fingerprint's number texts are kept).
@@ -35,7 +36,7 @@ import httpx
 import numpy as np
 import orjson
 
-from sheetnet import cells, functions
+from sheetnet import cells, functions, xl_udfs
 from sheetnet.block import decode_block
 from sheetnet.training import fit
 
@@ -66,15 +67,21 @@ def ms(seconds: float) -> str:
 
 def predict_rows(model: list[list[Any]], calls: int) -> None:
     decoded, _ = decode_block(model)
-    print("| PREDICT rows | cell function (ms) | Model.predict (ms) | ratio | difference (µs) | reading the range (ms) | reading / PREDICT |")
-    print("|---|---|---|---|---|---|---|")
+    through_excel = xl_udfs.UDFS["SHEETNET_PREDICT"]  # the xlwings function: cells converted in, the answer out
+    print("| PREDICT rows | cell function (ms) | Model.predict (ms) | ratio | difference (µs) | reading the range (ms) | reading / PREDICT | xlwings function (ms) |")
+    print("|---|---|---|---|---|---|---|---|")
     for rows in (1, 10_000):
         data = table(rows, seed=1)
         matrix = np.array([row[:10] for row in data[1:]], dtype=np.float64)
         functions.predict(model, data)  # the model block decoded once, as in a recalculating sheet
         count = calls if rows == 1 else max(15, calls // 20)
-        cell, engine, reading = side_by_side(count, lambda: functions.predict(model, data), lambda: decoded.predict(matrix), lambda: cells.read_sheet_table(data))
-        print(f"| {rows:,} | {ms(cell)} | {ms(engine)} | {cell / engine:.1f}x | {(cell - engine) * 1e6:.0f} | {ms(reading)} | {reading / cell:.0%} |", flush=True)
+        cell, engine, reading, excel = side_by_side(
+            count, lambda: functions.predict(model, data), lambda: decoded.predict(matrix), lambda: cells.read_sheet_table(data), lambda: through_excel(model, data)
+        )
+        print(
+            f"| {rows:,} | {ms(cell)} | {ms(engine)} | {cell / engine:.1f}x | {(cell - engine) * 1e6:.0f} | {ms(reading)} | {reading / cell:.0%} | {ms(excel)} |",
+            flush=True,
+        )
 
 
 def train_rows(calls: int) -> None:
