@@ -118,8 +118,8 @@ def range_shape(cells: Any) -> tuple[int, int]:
 
     >>> range_shape([["a", "b"], [1, 2], [3]])
     (3, 2)
-    >>> range_shape([1, 2, 3]), range_shape(7)
-    ((3, 1), (1, 1))
+    >>> range_shape([1, 2, 3]), range_shape(["long text", "x"]), range_shape(7)
+    ((3, 1), (2, 1), (1, 1))
     """
     shape = getattr(cells, "shape", None)
     if isinstance(shape, tuple) and all(isinstance(n, int) for n in shape):
@@ -130,6 +130,8 @@ def range_shape(cells: Any) -> tuple[int, int]:
         return column_form_shape(cells)
     if not isinstance(cells, (list, tuple)):
         return 1, 1
+    if cells and set(map(type, cells)) <= {list, tuple}:  # the usual case, every row a list: passes in C
+        return len(cells), max(1, max(map(len, cells)))
     widest = 1
     for row in cells:
         if isinstance(row, (list, tuple)) and len(row) > widest:
