@@ -43,6 +43,8 @@ ADDIN_TYPES = {
 }
 # TRAIN runs as a server job (progress, cancelling); every other function is one request
 JOB_FUNCTIONS = frozenset({"SHEETNET.TRAIN"})
+# trainings never start from the formula value preview (the bar's preview of a formula being typed)
+NOT_IN_PREVIEW = frozenset({"SHEETNET.TRAIN", "SHEETNET.SEARCH"})
 # the arguments that take one of a few words: (function, argument) -> (enum id, [(word, tooltip)])
 CHOICES: dict[tuple[str, str], tuple[str, tuple[tuple[str, str], ...]]] = {
     ("SHEETNET.SPLIT", "mode"): (
@@ -109,7 +111,7 @@ def functions_metadata() -> dict[str, Any]:
 
 def functions_script() -> str:
     """The custom-functions script: each function forwards its arguments to the server."""
-    table = {e.name: {"arguments": len(e.arguments), "job": e.name in JOB_FUNCTIONS} for e in REGISTRY}
+    table = {e.name: {"arguments": len(e.arguments), "job": e.name in JOB_FUNCTIONS, "preview": e.name not in NOT_IN_PREVIEW} for e in REGISTRY}
     associations = "\n".join(
         f'  CustomFunctions.associate("{function_id(e)}", (...args) => callSheetnet("{e.name}", args));' for e in REGISTRY
     )

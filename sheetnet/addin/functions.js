@@ -13,7 +13,7 @@
 //   as its code ("#N/A"), which sheetnet names in its messages.
 // - TRAIN is cancelable: Excel calls invocation.onCanceled when the cell is edited, its inputs change
 //   or the user recalculates; the request is aborted and the server's training job cancelled.
-//   In formula value preview (invocation.isInValuePreview) no training starts.
+//   In formula value preview (invocation.isInValuePreview) no training starts (TRAIN, SEARCH).
 const SHEETNET_BASE = "%SHEETNET_BASE%";
 const SHEETNET_FUNCTIONS = %SHEETNET_FUNCTIONS%;
 const SHEETNET_MARKER = "#SHEETNET!";
@@ -115,9 +115,6 @@ function sheetnetJobName(invocation) {
 }
 
 async function sheetnetTrain(values, invocation, token) {
-  if (invocation && invocation.isInValuePreview) {
-    throw sheetnetCellError("n/a", "a training starts when the formula is entered, not in the formula preview");
-  }
   const stop = new AbortController();
   let jobId = null;
   const cancelJob = () => {
@@ -149,6 +146,9 @@ async function callSheetnet(name, args) {
   } catch (error) {
     if (error instanceof SheetnetRefusal) throw sheetnetCellError("value", error.message);
     throw error;
+  }
+  if (!SHEETNET_FUNCTIONS[name].preview && invocation && invocation.isInValuePreview) {
+    throw sheetnetCellError("n/a", "a training starts when the formula is entered, not in the formula preview");
   }
   const token = sheetnetToken();
   if (!token) {

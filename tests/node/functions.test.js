@@ -229,13 +229,17 @@ test("no token, a wrong token and no server are #N/A errors that say what to do"
   assert.deepEqual(gone, { error: "#N/A", message: `the sheetnet server at ${base} did not answer; start it with sheetnet serve` });
 });
 
-test("a TRAIN formula in value preview starts no training", async () => {
+test("a TRAIN or SEARCH formula in value preview starts no training", async () => {
   const table = await python(["table", "40", "2"]);
   const made = runtime();
   const cell = await made.calculate("TRAIN", [table, "grade"], { preview: true }).done;
   assert.equal(cell.error, "#N/A");
   assert.match(cell.message, /preview/);
+  const search = await made.calculate("SEARCH", [table, "grade"], { preview: true }).done;
+  assert.equal(search.error, "#N/A");
   assert.equal(made.requests.length, 0);
+  const quick = await made.calculate("LAGS", [[["x"], [1], [2]], 1], { preview: true }).done;
+  assert.ok(quick.values, "a quick function still previews");
 });
 
 test("cancelling a TRAIN cell aborts the request and stops the server's job", async () => {
