@@ -16,6 +16,7 @@ import numpy as np
 import pytest
 import sheetnet_demo
 from local_server import serving
+from openpyxl.utils.cell import column_index_from_string
 
 from sheetnet import functions, server, service
 from sheetnet.placements import column_letters
@@ -188,6 +189,14 @@ def test_the_pane_inside_excel_stores_exactly_the_services_placements(app, base_
         landed = [cell for cell in model_cells.values() if cell.get("value") == text]
         assert len(landed) >= 2 and all(c["kind"] == "text" and c["numberFormat"] == "@" for c in landed), text
     assert not any(cell["kind"] == "formula" for cell in model_cells.values())
+    # every native-formula constant's name covers filled cells: a pane-trained model predicts natively too
+    constants = [n for n in after["names"] if n["name"].startswith("snf_lots_")]
+    assert len(constants) == len(placements["names"]) - 1 and all(n["sheet"] == "sheetnet_lots" for n in constants)
+    for named in constants:
+        corners = named["address"].replace("$", "").split(":")
+        (left, top), (right, bottom) = ((c.rstrip("0123456789"), int(c.lstrip("ABCDEFGHIJKLMNOPQRSTUVWXYZ"))) for c in corners)
+        columns = [column_letters(k) for k in range(column_index_from_string(left), column_index_from_string(right) + 1)]
+        assert all(f"{col}{row}" in model_cells for col in columns for row in range(top, bottom + 1)), named["name"]
     assert "-4-" in dict(functions.about(job.result))["layers"]  # the pane's default hidden layer
     assert set(associated) == {entry.name.split(".", 1)[1] for entry in REGISTRY}
 
