@@ -18,10 +18,12 @@ Where they run:
 - ``workers=None`` (the default): processes only where they pay. On a shared
   2-core machine worker processes were slower than one process in every case
   measured (1.09-1.47x, plus seconds to start the pool), so the first job runs
-  here and is timed; the rest go to processes only if the cores that are
-  really free (affinity and CPU quota, less the load of other programs) would
-  finish them sooner than this process alone, counting the pool's start and
-  two processes slowing each other down.
+  here and is timed, and the cores that are really free are counted meanwhile
+  (the CPUs this process may use, capped by a CPU quota, and how idle the
+  others were while the job ran; the one-minute load average where the
+  kernel's counters cannot be read). The rest go to processes only if those
+  cores would finish them sooner than this process alone, counting the pool's
+  start and two processes slowing each other down.
 
 >>> run_jobs(pow, [(2, 3), (3, 2)], workers=1)
 [8, 9]
@@ -180,6 +182,46 @@ def free_cores(cores: int | None = None, load: float | None = None) -> int:
     return max(1, min(cores, int(cores - busy_elsewhere + 0.5)))
 
 
+def cpu_times() -> dict[int, tuple[int, int]]:
+    """Idle and total clock ticks so far of each CPU this process may run on (empty where /proc/stat is missing)."""
+    allowed = os.sched_getaffinity(0) if hasattr(os, "sched_getaffinity") else set()
+    found: dict[int, tuple[int, int]] = {}
+    try:
+        with open("/proc/stat", encoding="ascii") as handle:
+            for line in handle:
+                name, *fields = line.split()
+                if not name.startswith("cpu") or name == "cpu" or int(name[3:]) not in allowed:
+                    continue
+                ticks = [int(f) for f in fields[:8]]  # user nice system idle iowait irq softirq steal (guest is inside user)
+                found[int(name[3:])] = (ticks[3] + ticks[4], sum(ticks))
+    except (OSError, ValueError, IndexError):
+        return {}
+    return found
+
+
+def free_cores_between(before: dict[int, tuple[int, int]], after: dict[int, tuple[int, int]], cores: int) -> int | None:
+    """Cores free for this run, from the CPUs' idle time while this process ran a job (its own core counts as free
+    to it); None when the interval is too short to tell (under 5 ticks a CPU).
+
+    >>> free_cores_between({0: (0, 0), 1: (0, 0)}, {0: (5, 100), 1: (60, 100)}, 2)  # the other CPU 60 % idle
+    2
+    >>> free_cores_between({0: (0, 0), 1: (0, 0)}, {0: (5, 100), 1: (30, 100)}, 2)  # only 30 % idle
+    1
+    """
+    shares = []
+    for cpu, (idle_after, total_after) in after.items():
+        if cpu not in before:
+            continue
+        idle, total = idle_after - before[cpu][0], total_after - before[cpu][1]
+        if total < 5:
+            return None
+        shares.append(idle / total)
+    if not shares:
+        return None
+    idle_cores = sum(shares) - min(shares)  # the busiest CPU is taken to be the one this process kept busy
+    return max(1, min(cores, int(1 + idle_cores + 0.5)))
+
+
 # --- the choice -----------------------------------------------------------------------------
 
 last_placement: Placement | None = None  # where the latest run went (for benchmarks and tests)
@@ -218,10 +260,10 @@ def placement(jobs: int, workers: int | None) -> Placement:
         return Placement("cluster", min(jobs, cluster_threads(address)), f"cluster at {address}")
     if workers is not None:
         return Placement("processes", min(jobs, workers), f"workers={workers}")
-    free = free_cores()
-    if free < 2:
-        return Placement("here", 1, "fewer than 2 free cores")
-    return Placement("measure", min(jobs - 1, free), f"{free} free cores: time the first job, then decide")
+    cores = usable_cores()
+    if cores < 2:
+        return Placement("here", 1, "one usable core")
+    return Placement("measure", min(jobs - 1, cores), "time the first job and count the free cores meanwhile, then decide")
 
 
 # --- running --------------------------------------------------------------------------------
@@ -273,16 +315,18 @@ def run_jobs(function: Callable[..., Any], jobs: Sequence[tuple[Any, ...]], work
     with run_scope() as reporting:
         done = 0
         if chosen.where == "measure":
-            started = time.perf_counter()
+            ticks, started = cpu_times(), time.perf_counter()
             results[0] = function(*jobs[0])
+            job_seconds, measured = time.perf_counter() - started, free_cores_between(ticks, cpu_times(), chosen.at_once)
             done = 1
             if reporting:
                 report(what, done, len(jobs))
-            job_seconds = time.perf_counter() - started
-            if processes_pay(job_seconds, len(jobs) - 1, chosen.at_once, pool_start_seconds(chosen.at_once)):
-                chosen = Placement("processes", chosen.at_once, f"first job took {job_seconds:.2f} s")
+            free = min(chosen.at_once, measured if measured is not None else free_cores())
+            seen = f"first job {job_seconds:.2f} s, {free} free core{'s' if free > 1 else ''}"
+            if free >= 2 and processes_pay(job_seconds, len(jobs) - 1, free, pool_start_seconds(free)):
+                chosen = Placement("processes", free, seen)
             else:
-                chosen = Placement("here", 1, f"first job took {job_seconds:.2f} s: processes would not pay")
+                chosen = Placement("here", 1, f"{seen}: processes would not pay")
         if chosen.where == "processes":
             done = _run_pool(function, jobs, results, chosen.at_once, what, reporting, done, {"backend": "loky", "inner_max_num_threads": 1})
             _pool_used_at[chosen.at_once] = time.monotonic()

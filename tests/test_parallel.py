@@ -58,14 +58,38 @@ def test_processes_pay_only_when_they_save_more_than_their_start():
     assert not parallel.processes_pay(10.0, 1, 2, 0.0)  # one job left: nothing to share
 
 
-def test_auto_runs_here_when_cores_are_busy(monkeypatch):
-    monkeypatch.setattr(parallel, "free_cores", lambda: 1)
+def _cores(monkeypatch, usable, free_meanwhile):
+    monkeypatch.setattr(parallel, "usable_cores", lambda: usable)
+    monkeypatch.setattr(parallel, "free_cores_between", lambda before, after, cores: free_meanwhile)
+
+
+def test_auto_runs_here_on_one_usable_core(monkeypatch):
+    _cores(monkeypatch, 1, None)
     parallel.run_jobs(seeded_draw, [(s, 3) for s in range(4)])
-    assert parallel.last_placement.where == "here"
+    assert parallel.last_placement == parallel.Placement("here", 1, "one usable core")
+
+
+def test_auto_runs_here_when_the_other_cores_were_busy_during_the_first_job(monkeypatch):
+    _cores(monkeypatch, 2, 1)
+    monkeypatch.setattr(parallel, "POOL_START_SECONDS", 0.0)
+    monkeypatch.setattr(parallel, "CONTENTION", 0.0)  # processes would pay, were a core free
+    parallel.run_jobs(seeded_draw, [(s, 3) for s in range(4)])
+    assert parallel.last_placement.where == "here" and "1 free core:" in parallel.last_placement.reason
+
+
+def test_free_cores_are_counted_from_idle_time_while_the_first_job_ran():
+    before = {0: (100, 1000), 1: (200, 1000), 2: (300, 1000)}
+    # cpu 0 ran our job (2 % idle), cpu 1 was 90 % idle, cpu 2 was 50 % idle: 1 + 1.4 cores
+    after = {0: (102, 1100), 1: (290, 1100), 2: (350, 1100)}
+    assert parallel.free_cores_between(before, after, 3) == 2
+    assert parallel.free_cores_between(before, {0: (101, 1002), 1: (201, 1002), 2: (301, 1002)}, 3) is None  # too short to tell
+    assert parallel.free_cores_between({}, {}, 2) is None
+    found = parallel.cpu_times()
+    assert all(0 <= idle <= total for idle, total in found.values())
 
 
 def test_auto_keeps_small_jobs_here_even_with_free_cores(monkeypatch):
-    monkeypatch.setattr(parallel, "free_cores", lambda: 2)
+    _cores(monkeypatch, 2, 2)
     monkeypatch.setattr(parallel, "_pool_used_at", {})
     found = parallel.run_jobs(seeded_draw, [(s, 3) for s in range(4)])
     assert parallel.last_placement.where == "here" and "would not pay" in parallel.last_placement.reason
@@ -73,7 +97,7 @@ def test_auto_keeps_small_jobs_here_even_with_free_cores(monkeypatch):
 
 
 def test_auto_sends_long_jobs_to_processes_when_they_pay(monkeypatch):
-    monkeypatch.setattr(parallel, "free_cores", lambda: 2)
+    _cores(monkeypatch, 2, 2)
     monkeypatch.setattr(parallel, "POOL_START_SECONDS", 0.0)
     monkeypatch.setattr(parallel, "POOL_REUSE_SECONDS", 0.0)
     monkeypatch.setattr(parallel, "CONTENTION", 0.0)  # as if processes were free: any measured job pays

@@ -8,7 +8,8 @@ machine slows every way alike), medians and ratios against one process:
 
 - search: the default 12 candidates x 5 folds on a 10,000-row table;
 - repeats: one fit of 4 networks (issue 14's case);
-- folds: 5-fold cross-validation of one network.
+- folds: 5-fold cross-validation of one network;
+- repeats long: 8 networks of 1,000 epochs each (no early stop), jobs long enough for processes to pay.
 
 Ways: ``one process`` (workers=1), ``2 processes`` (workers=2, whether or
 not they pay), ``cluster`` (a distributed.LocalCluster on loopback, 2 worker
@@ -63,6 +64,8 @@ def main() -> None:
         "search 12x5": lambda workers: sheetnet.search(X, y, k=5, workers=workers),
         "repeats 4": lambda workers: sheetnet.fit(X, y, hidden=(8,), repeats=4, workers=workers),
         "folds 5": lambda workers: sheetnet.cross_validate(X, y, k=5, hidden=(8,), workers=workers),
+        # long jobs (about 2 s each: 1,000 epochs, no early stop), where processes can repay their start
+        "repeats 8 long": lambda workers: sheetnet.fit(X, y, hidden=(16,), repeats=8, epochs=1000, patience=100_000, tolerance=0.0, decay=0.01, workers=workers),
     }
     ways = {"one process": 1, "2 processes": 2, "auto": None}
 
@@ -99,7 +102,7 @@ def main() -> None:
                     raise SystemExit(f"{case}: the cluster gave different results from one process")
         print(f"  round {round_number + 1} done (load {os.getloadavg()[0]:.2f})")
 
-    print(f"\n{'case':<12} {'way':<12} {'median s':>9} {'ratio to one process':>21}   rounds (s)")
+    print(f"\n{'case':<14} {'way':<12} {'median s':>9} {'ratio to one process':>21}   rounds (s)")
     for case in cases:
         base = statistics.median(times[(case, "one process")])
         for way in ("one process", "2 processes", "cluster", "auto"):
@@ -107,8 +110,8 @@ def main() -> None:
                 continue
             values = times[(case, way)]
             median = statistics.median(values)
-            print(f"{case:<12} {way:<12} {median:>9.2f} {median / base:>21.2f}   {' '.join(f'{v:.2f}' for v in values)}")
-        print(f"{'':<12} auto chose: {reasons.get(case, '?')}")
+            print(f"{case:<14} {way:<12} {median:>9.2f} {median / base:>21.2f}   {' '.join(f'{v:.2f}' for v in values)}")
+        print(f"{'':<14} auto chose: {reasons.get(case, '?')}")
     print("\nevery way gave results identical to one process (checked to the last bit)")
     parallel.close_clusters()
     client.close()
