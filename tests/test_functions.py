@@ -285,7 +285,8 @@ def test_predict_interval_is_the_prediction_plus_minus_the_holdout_quantile(week
     for row in answer[1:]:
         assert row[1] == pytest.approx(row[0] - quantile, abs=1e-9) and row[2] == pytest.approx(row[0] + quantile, abs=1e-9)
         assert row[3] <= row[4]
-    inside = [answer[i][1] <= weeks[i][-1] <= answer[i][2] for i in held]
+    # inside means |actual - predicted| <= quantile; a row on the edge may land a rounding step outside pred + q
+    inside = [answer[i][1] - 1e-9 <= weeks[i][-1] <= answer[i][2] + 1e-9 for i in held]
     assert sum(inside) == int(np.ceil((len(held) + 1) * 0.8))  # the holdout rows themselves, by construction
     about = dict(map(tuple, cellfn.about(block)[1:]))
     assert "80 %" in about["prediction interval"] and f"{len(held)} holdout rows" in about["prediction interval"]

@@ -43,7 +43,7 @@ def _decoded(model):
 
 def test_a_decoded_long_regression_curve_is_drawn_at_its_stored_epochs(tmp_path, rng):
     X = rng.normal(size=(60, 2))
-    fresh = sheetnet.fit(X, X[:, 0] - X[:, 1], hidden=(3,), epochs=400, validation_share=0, patience=400, tolerance=0.0, gradient_threshold=0.0)
+    fresh = sheetnet.fit(X, X[:, 0] - X[:, 1], hidden=(3,), epochs=400, decay=1e-4, validation_share=0, patience=400, tolerance=0.0, gradient_threshold=0.0)
     member = _decoded(fresh).members[0]
     assert fresh.epochs == 400 and len(member.training_curve) == 200  # the block keeps 200 of the 400 points
     assert member.training_epochs[0] == 1 and member.training_epochs[-1] == 400
@@ -75,7 +75,7 @@ def test_a_decoded_classifier_draws_its_validation_curve_at_its_stored_epochs(tm
 
 def test_writing_a_decoded_model_again_keeps_its_curve_epochs(rng):
     X = rng.normal(size=(60, 2))
-    fresh = sheetnet.fit(X, X[:, 0], hidden=(2,), epochs=333, validation_share=0, patience=400, tolerance=0.0, gradient_threshold=0.0)
+    fresh = sheetnet.fit(X, X[:, 0], hidden=(2,), epochs=333, decay=1e-4, validation_share=0, patience=400, tolerance=0.0, gradient_threshold=0.0)
     once = _decoded(fresh).members[0]
     twice = _decoded(_decoded(fresh)).members[0]
     assert once.training_epochs[-1] == 333 and len(once.training_epochs) == 200

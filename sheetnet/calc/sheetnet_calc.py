@@ -532,8 +532,11 @@ def store_model(doc, selection, options, ask=None, progress=None):
     if not placements:
         raise ServerProblem(str(view.get("message") or "the server sent no placements for the model; restart sheetnet serve"))
     apply_placements(doc, placements)
-    sheets = ", ".join(plan["title"] for plan in placements.get("sheets", []))
-    return f"model {name} ({target}) stored on the hidden sheet {sheets} under the defined name {name}"
+    plans = placements.get("sheets", [])
+    hidden = ", ".join(plan["title"] for plan in plans if plan.get("visibility") != "visible")
+    shown = ", ".join(plan["title"] for plan in plans if plan.get("visibility") == "visible")
+    card = f"; its card is on the sheet {shown}" if shown else ""
+    return f"model {name} ({target}) stored on the hidden sheet {hidden} under the defined name {name}{card}"
 
 
 class StoreCommand(unohelper.Base, XInitialization, XDispatchProvider, XNotifyingDispatch, XServiceInfo):
