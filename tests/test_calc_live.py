@@ -252,5 +252,7 @@ def test_an_oversized_model_area_works_through_iferror(live: dict[str, Any]) -> 
 def test_store_command_without_options_takes_the_last_column_and_a_free_name(live: dict[str, Any]) -> None:
     book, office = live["book"], live["office"]
     done = office.call("store_command", doc=book.doc, sheet=SHEET, address="A1:D40", url=STORE_COMMAND)
-    assert done["result"] == "model model1 (loaves) stored on the hidden sheet sheetnet_model1 under the defined name model1; its card is on the sheet sn card model1", done
+    assert done["result"] == (
+        "model model1 (loaves) stored on the hidden sheet sheetnet_model1 under the defined name model1; its card is on the sheet sn card model1"
+    ), done
     assert ["sheetnet_model1", False] in office.call("sheets", doc=book.doc)
