@@ -13,13 +13,21 @@ from .errors import LengthMismatchError, SplitError
 from .metrics import classification_metrics, regression_metrics
 from .model import Model
 from .parallel import run_jobs
-from .preparation import fit_preparation, fit_target, numbers_of, read_table, read_target
+from .preparation import RawTable, fit_preparation, fit_target, numbers_of, read_table, read_target
 from .splits import grouped_folds, holdout_mask, k_folds, ordered_folds
 from .training import fit
 
 
 def take_rows(data: Any, rows: np.ndarray) -> Any:
-    """The given rows (indices or a boolean mask) of a table or target, keeping its type."""
+    """The given rows (indices or a boolean mask) of a table.
+
+    A pandas object or a NumPy array keeps its type. Every other container
+    `read_table` takes (a polars table, a list of rows, an object with
+    ``__array__``) is read by it once and its rows come back as a
+    `RawTable`, which `fit`, `score` and `predict` read as they read the
+    original; what `read_table` refuses (a sparse matrix) is refused here with
+    the same message. For a target use `take_target`.
+    """
     rows = np.flatnonzero(rows) if np.asarray(rows).dtype == bool else np.asarray(rows)
     try:
         import pandas as pd
@@ -30,8 +38,26 @@ def take_rows(data: Any, rows: np.ndarray) -> Any:
         pass
     if isinstance(data, np.ndarray):
         return data[rows]
-    listed = list(data)
-    return [listed[i] for i in rows]
+    table = read_table(data)
+    return RawTable(table.names, tuple(column[rows] for column in table.columns), table.named, len(rows), table.marked_categories)
+
+
+def read_once(X: Any, y: Any) -> tuple[Any, np.ndarray]:
+    """``X`` and ``y`` as the fold jobs take them: a pandas table or NumPy array as it is, any other table read by
+    `read_table` once (so a job neither reads it again nor needs its library), the target read by `read_target`."""
+    try:
+        import pandas as pd
+
+        keep = isinstance(X, (pd.DataFrame, pd.Series, np.ndarray))
+    except ImportError:  # pragma: no cover
+        keep = isinstance(X, np.ndarray)
+    return (X if keep else read_table(X)), read_target(y)
+
+
+def take_target(y: Any, rows: np.ndarray) -> np.ndarray:
+    """The given rows (indices or a boolean mask) of a target, read by `read_target` (any container it takes)."""
+    rows = np.flatnonzero(rows) if np.asarray(rows).dtype == bool else np.asarray(rows)
+    return read_target(y)[rows]
 
 
 def score(model: Model, X: Any, y: Any) -> dict[str, Any]:
@@ -90,8 +116,8 @@ def holdout_evaluation(
         mode = auto_split_mode(y, settings.get("task", "auto"))
     labels = _class_labels(y, settings.get("task", "auto")) if mode == "stratified" else None
     held = holdout_mask(n, share, seed, mode, labels)
-    model = fit(take_rows(X, ~held), take_rows(y, ~held), hidden, seed, **settings)
-    return HoldoutResult(model, held, score(model, take_rows(X, held), take_rows(y, held)))
+    model = fit(take_rows(X, ~held), take_target(y, ~held), hidden, seed, **settings)
+    return HoldoutResult(model, held, score(model, take_rows(X, held), take_target(y, held)))
 
 
 FOLD_MODES = ("auto", "random", "stratified", "ordered", "grouped")
@@ -169,8 +195,8 @@ def fit_and_score_fold(
     X: Any, y: Any, train_rows: np.ndarray, test_rows: np.ndarray, hidden: Any, seed: int, settings: dict[str, Any]
 ) -> dict[str, Any]:
     """Train on ``train_rows``, score on ``test_rows``: one fold, a job `sheetnet.parallel` can run anywhere."""
-    model = fit(take_rows(X, train_rows), take_rows(y, train_rows), hidden, seed, **settings)
-    return score(model, take_rows(X, test_rows), take_rows(y, test_rows))
+    model = fit(take_rows(X, train_rows), take_target(y, train_rows), hidden, seed, **settings)
+    return score(model, take_rows(X, test_rows), take_target(y, test_rows))
 
 
 def summarise_folds(scores: Sequence[dict[str, Any]]) -> tuple[dict[str, float], dict[str, float]]:
@@ -212,6 +238,7 @@ def cross_validate(
     check_rows(X, y, settings.get("task", "auto"), settings.get("categories", ()))
     used, folds = make_folds(y, k, seed, mode, groups, settings.get("task", "auto"))
     inner = dict(settings, workers=1)  # the cores go to the folds, not to repeats inside them
+    X, y = read_once(X, y)
     jobs = [(X, y, train_rows, test_rows, hidden, seed, inner) for train_rows, test_rows in folds]
     scores = run_jobs(fit_and_score_fold, jobs, workers, "folds")
     mean, spread = summarise_folds(scores)

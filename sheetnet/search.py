@@ -29,7 +29,7 @@ import numpy as np
 
 from .cell_text import cell_in_words
 from .errors import SettingError
-from .evaluation import check_rows, fit_and_score_fold, make_folds
+from .evaluation import check_rows, fit_and_score_fold, make_folds, read_once
 from .parallel import run_jobs
 from .preparation import fit_target, planned_width, read_table, read_target
 from .settings import resolve_settings
@@ -217,6 +217,7 @@ def search(
     check_rows(X, y, resolved[0]["task"], categories)
     used, folds = make_folds(y, k, seed, mode, groups, resolved[0]["task"])
     width = planned_width(table, categories)
+    X, y = read_once(X, y)
     jobs = []
     for candidate in chosen_candidates:
         own = dict(candidate.settings(settings), workers=1, categories=categories)  # the cores go to the candidates' folds

@@ -172,3 +172,70 @@ def test_a_bad_cell_is_named_at_its_row_in_the_whole_table_not_in_a_fold():
     X[97, 0] = "lots"
     with pytest.raises(sheetnet.SheetnetError, match="row 98"):
         sheetnet.cross_validate(X, np.arange(120.0), k=3, hidden=(2,), workers=1)
+
+
+def _mixed_table(rng, rows=90):
+    import pandas as pd
+
+    frame = pd.DataFrame({
+        "size": rng.normal(size=rows),
+        "age": rng.integers(0, 40, size=rows).astype(np.float64),
+        "region": rng.choice(["north", "south", "east"], size=rows),
+    })
+    y = 2.0 * frame["size"] + (frame["region"] == "east") * 1.5 + 0.1 * rng.normal(size=rows)
+    return frame, y
+
+
+def test_folds_and_the_holdout_of_a_polars_table_equal_those_of_the_same_pandas_table(rng):
+    pl = pytest.importorskip("polars")  # in the dev extra
+    frame, y = _mixed_table(rng)
+    table = pl.DataFrame({name: frame[name].tolist() for name in frame.columns})
+    target = pl.Series("y", y.tolist())
+    settings = dict(hidden=(2,), epochs=25, decay=1e-4, workers=1)
+    for mode in ("random", "ordered"):
+        from_pandas = sheetnet.cross_validate(frame, y, k=3, mode=mode, **settings)
+        from_polars = sheetnet.cross_validate(table, target, k=3, mode=mode, **settings)
+        assert from_polars["rows"] == from_pandas["rows"] == ([(60, 30)] * 3 if mode == "random" else [(22, 23), (45, 23), (68, 22)])
+        assert from_polars["folds"] == from_pandas["folds"]  # every metric of every fold, to the last bit
+    groups = np.repeat(np.arange(9), 10)
+    assert sheetnet.cross_validate(table, target, k=3, groups=groups, **settings)["folds"] == \
+        sheetnet.cross_validate(frame, y, k=3, groups=groups, **settings)["folds"]
+    held_pandas = sheetnet.holdout_evaluation(frame, y, share=0.3, seed=4, hidden=(2,), epochs=25, decay=1e-4)
+    held_polars = sheetnet.holdout_evaluation(table, target, share=0.3, seed=4, hidden=(2,), epochs=25, decay=1e-4)
+    np.testing.assert_array_equal(held_polars.holdout, held_pandas.holdout)
+    assert held_polars.holdout.sum() == 27
+    np.testing.assert_array_equal(held_polars.model.members[0].theta, held_pandas.model.members[0].theta)
+    assert held_polars.metrics == held_pandas.metrics
+    assert held_polars.model.input_names == ("size", "age", "region")  # names kept, not x1..x3
+
+
+class _ArrayOnly:
+    """A table that only converts itself with __array__ (as an array of another library would)."""
+
+    def __init__(self, array):
+        self._array = array
+
+    def __array__(self, dtype=None, copy=None):
+        return self._array if dtype is None else self._array.astype(dtype)
+
+
+def test_folds_of_lists_and_array_like_tables_equal_those_of_the_array(rng):
+    X, y = _signal_and_noise(rng, 60)
+    settings = dict(k=3, hidden=(2,), epochs=20, decay=1e-4, workers=1)
+    from_lists = sheetnet.cross_validate(X.tolist(), y.tolist(), **settings)["folds"]
+    assert sheetnet.cross_validate(_ArrayOnly(X), _ArrayOnly(y), **settings)["folds"] == from_lists
+    # A float array predicts through the model's folded-scaling fast path, which may round the last bit differently
+    from_array = sheetnet.cross_validate(X, y, **settings)["folds"]
+    for listed, array in zip(from_lists, from_array):
+        assert listed == {name: pytest.approx(value, rel=1e-12) if value is not None else None for name, value in array.items()}
+    picked = sheetnet.take_rows(_ArrayOnly(X), np.array([4, 0]))
+    np.testing.assert_array_equal(np.column_stack(picked.columns), X[[4, 0]])
+
+
+def test_a_sparse_table_is_refused_by_holdout_and_folds_in_words(rng):
+    from scipy import sparse
+
+    X = sparse.csr_matrix(rng.normal(size=(40, 2)))
+    for run in (lambda: sheetnet.holdout_evaluation(X, np.arange(40.0)), lambda: sheetnet.cross_validate(X, np.arange(40.0), k=2)):
+        with pytest.raises(sheetnet.SheetnetError, match="the inputs are a sparse matrix \\(40 by 2\\).*X.toarray\\(\\)"):
+            run()
