@@ -76,6 +76,16 @@ class BlockInfo:
     group_column: str | None = None
     group_metrics: Mapping[str, Mapping[str, float]] = field(default_factory=dict)
 
+    def __reduce__(self) -> tuple[Any, ...]:
+        """Pickled (and deep-copied) as its fields, read-only mappings as plain dicts; `_rebuilt_info` makes them read-only again."""
+        read_only = tuple(name for name, value in vars(self).items() if isinstance(value, MappingProxyType))
+        return (_rebuilt_info, ({name: dict(value) if name in read_only else value for name, value in vars(self).items()}, read_only))
+
+
+def _rebuilt_info(values: dict[str, Any], read_only: tuple[str, ...]) -> BlockInfo:
+    arguments: dict[str, Any] = {name: MappingProxyType(value) if name in read_only else value for name, value in values.items()}
+    return BlockInfo(**arguments)
+
 
 @dataclass(frozen=True)
 class Record:

@@ -67,6 +67,28 @@ def test_a_model_never_freezes_the_array_it_was_given(trained):
     assert theta.flags.writeable and not member.theta.flags.writeable
 
 
+def test_the_info_a_block_records_copies_by_pickle_joblib_and_deepcopy_and_stays_read_only(trained):
+    model, _ = trained
+    info = BlockInfo(
+        "late", "2026-12-01T09:00:00Z", "sheetnet 0.1.0", "ab" * 32, 48, 12, {"accuracy": 0.75},
+        source=("Orders!A1:C61", 0.2, "stratified", 0), given={"hidden": "3", "epochs": 40},
+        metric_intervals={"accuracy": (0.6, 0.9)}, error_bars=(0.9, 200, 0),
+        group_column="weekday", group_metrics={"mon": {"accuracy": 0.8, "rows": 5.0}},
+    )
+    block = encode_block(model, info)
+    _, read = decode_block(block)  # decoding gives the arguments as given, intervals and group metrics read-only
+    for how, copied in _copies(read).items():
+        assert copied == read and copied is not read, how
+        assert copied.given == {"hidden": "3", "epochs": 40} and copied.group_metrics == {"mon": {"accuracy": 0.8, "rows": 5.0}}
+        for mapping in (copied.given, copied.metric_intervals, copied.group_metrics):
+            with pytest.raises(TypeError):
+                mapping["epochs"] = 1  # type: ignore[index]
+        with pytest.raises(AttributeError):
+            copied.target = "other"  # type: ignore[misc]
+        assert copied.holdout_metrics == {"accuracy": 0.75} and type(copied.holdout_metrics) is dict  # a plain dict stays one
+        assert encode_block(model, copied) == block, how  # the copy writes the very same block
+
+
 # --- model files --------------------------------------------------------------------------------
 
 def test_a_saved_model_loads_as_the_block_a_workbook_would_give_back(trained, tmp_path):
