@@ -36,9 +36,12 @@ PERCENT_METRICS = frozenset({
     "mape", "accuracy", "balanced_accuracy", "precision", "recall", "positive_rate", "actual_positive_rate",
     "true_positive_rate", "false_positive_rate",
 })  # shares people read as percentages
-PERCENT_FORMAT = "0.0%"  # cell number formats
+PERCENT_FORMAT = "0.0%"  # Excel's codes of the formats below (the demo's openpyxl cells)
 METRIC_FORMAT = "0.000"
 PROBABILITY_FORMAT = "0.000"
+PERCENT = "percent1"  # our names of them (`sheetnet.placements.NUMBER_FORMATS`), for placements
+METRIC = "decimal3"
+PROBABILITY = "decimal3"
 
 
 def metric_label(name: str) -> str:
@@ -66,5 +69,10 @@ def metric_in_words(name: str, value: Any) -> str:
 
 
 def number_format(name: str) -> str:
-    """The cell number format of a metric's value."""
+    """Our number format (a `sheetnet.placements.NUMBER_FORMATS` name) of a metric's value."""
+    return PERCENT if name in PERCENT_METRICS else METRIC
+
+
+def excel_format(name: str) -> str:
+    """Excel's code of a metric's number format: ``0.0%`` for shares, ``0.000`` for the rest."""
     return PERCENT_FORMAT if name in PERCENT_METRICS else METRIC_FORMAT

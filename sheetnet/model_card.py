@@ -3,19 +3,22 @@
 Pure: built from a model block alone, so every door writes the same card
 (`sheetnet.service.model_placements` places it on the visible sheet
 ``sn card NAME`` each time a model is stored). Rows are ``[item, value,
-note]``; section titles have a blank value. Numbers people read as shares
-are written as percentages in words ("Accuracy 85 %"), with the identifiers
-(``accuracy``) beside them for code.
+note]``; section titles have a blank value. A metric's value is a number in
+its number format (a `Shown`: shares such as accuracy show as 85.0%, others
+at three decimals), its interval in words and its identifier (``accuracy``)
+in the note beside it for code.
 """
 
 from __future__ import annotations
 
+import math
 from typing import Any
 
 from .block import BlockInfo, decode_block
 from .groups import GAP_CAUTION
-from .labels import metric_label, percent_in_words, value_in_words
+from .labels import metric_label, number_format, percent_in_words, value_in_words
 from .model import Model
+from .placements import Shown
 from .preparation import NumericInput
 
 NOT_STATED = "not stated: add the setting intended_use=... (what decisions the model supports, for whom) when training"
@@ -85,11 +88,11 @@ def _metric_rows(model: Model, info: BlockInfo) -> list[list[Any]]:
     rows: list[list[Any]] = []
     bars = info.error_bars
     for key, value in info.holdout_metrics.items():
-        shown = value_in_words(key, value)
+        note = key
         if key in info.metric_intervals and bars is not None:
             low, high = info.metric_intervals[key]
-            shown += f" ({percent_in_words(bars[0])} interval {value_in_words(key, low)} to {value_in_words(key, high)})"
-        rows.append([metric_label(key), shown, key])
+            note = f"{percent_in_words(bars[0])} interval {value_in_words(key, low)} to {value_in_words(key, high)} ({key})"
+        rows.append([metric_label(key), _number(key, value), note])
     if bars is not None:
         rows.append(["error bars", f"percentile bootstrap over the holdout rows, {bars[1]} resamples, seed {bars[2]}", ""])
     conformal = info.conformal
@@ -115,11 +118,18 @@ def _group_rows(model: Model, info: BlockInfo) -> list[list[Any]]:
         defined = [(values[m], label) for label, values in info.group_metrics.items() if m in values]
         if len(defined) >= 2:
             (high, top), (low, bottom) = max(defined), min(defined)
-            rows.append([f"largest gap: {metric_label(m)}", value_in_words(m, high - low), f"{top} against {bottom}"])
+            rows.append([f"largest gap: {metric_label(m)}", _number(m, high - low), f"{top} against {bottom}"])
     is_input = info.group_column in model.input_names
     rows.append(["group column", "an input of the model" if is_input else "not an input of the model", ""])
     rows.append(["caution", GAP_CAUTION, ""])
     return rows
+
+
+def _number(metric: str, value: Any) -> Any:
+    """A metric's value as a number in its format (shares as percentages); anything else as it is."""
+    if isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(float(value)):
+        return Shown(float(value), number_format(metric))
+    return value
 
 
 def _metric_order(name: str) -> int:

@@ -6,8 +6,12 @@ model (charts, pivot tables, newer conditional formats, web extensions...).
 So sheetnet never rewrites the user's parts: `write_package` copies every
 part it does not own byte for byte and only
 
-- generates the worksheet parts of its own sheets (inline strings and style 0,
-  so the shared strings and the styles stay as they were);
+- generates the worksheet parts of its own sheets (inline strings, so the shared
+  strings stay as they were; style 0 except for cells given a number format and
+  columns given a width, see `add_number_formats`);
+- adds to ``xl/styles.xml``, as text, one number format and one cell format per
+  format code sheetnet's sheets use (appended, so every existing style index keeps
+  its meaning), and only when they use one;
 - edits, as text, the few shared parts that list sheets and names:
   ``xl/workbook.xml`` (the ``<sheet>`` entries, ``<definedNames>``), the
   workbook's relationships and ``[Content_Types].xml``; a text edit leaves every
@@ -283,8 +287,10 @@ def formula_cell(text: str, array: bool) -> Cell:
 Grid = dict[tuple[int, int], Cell]
 
 
-def worksheet_xml(cells: Grid) -> bytes:
-    """A whole worksheet part of sheetnet's own: rows in order, cells in order."""
+def worksheet_xml(cells: Grid, styles: dict[tuple[int, int], int] | None = None, widths: dict[int, float] | None = None) -> bytes:
+    """A whole worksheet part of sheetnet's own: column widths, then rows in order, cells in order;
+    ``styles`` gives the cell format index of a cell that has one."""
+    styles = styles or {}
     rows: dict[int, list[tuple[int, Cell]]] = {}
     for (row, column), cell in cells.items():
         rows.setdefault(row, []).append((column, cell))
@@ -297,10 +303,15 @@ def worksheet_xml(cells: Grid) -> bytes:
         left = min(c for row in rows.values() for c, _ in row)
         right = max(c for row in rows.values() for c, _ in row)
         out.append(f'<dimension ref="{column_letters(left)}{top}:{column_letters(right)}{bottom}"/>')
+    if widths:
+        out.append("<cols>" + "".join(f'<col min="{c}" max="{c}" width="{w:.4g}" customWidth="1"/>' for c, w in sorted(widths.items())) + "</cols>")
     out.append("<sheetData>")
     for row in sorted(rows):
         out.append(f'<row r="{row}">')
-        out.extend(cell.xml("", f"{column_letters(column)}{row}") for column, cell in sorted(rows[row], key=lambda pair: pair[0]))
+        out.extend(
+            cell.xml("", f"{column_letters(column)}{row}", str(styles[(row, column)]) if (row, column) in styles else None)
+            for column, cell in sorted(rows[row], key=lambda pair: pair[0])
+        )
         out.append("</row>")
     out.append("</sheetData></worksheet>")
     return "".join(out).encode("utf-8")
@@ -425,6 +436,8 @@ class SheetEntry:
     dropped: bool = False
     generated: Grid | None = None  # a sheet of sheetnet's, written afresh
     inserted: Grid = field(default_factory=dict)  # cells added to a user's sheet
+    formats: dict[tuple[int, int], str] = field(default_factory=dict)  # a sheet of sheetnet's: cell -> Excel format code
+    widths: dict[int, float] = field(default_factory=dict)  # a sheet of sheetnet's: column -> width in characters
 
 
 @dataclass
@@ -541,6 +554,7 @@ class WorkbookParts:
                 raise PackageError(f"the workbook already has a sheet named '{plan.title}'; rename it")
             if revived is not None:  # the same sheet of ours again: keep its place, id and part
                 revived.dropped, revived.title, revived.visibility, revived.generated = False, plan.title, plan.visibility, {}
+                revived.formats, revived.widths = {}, {}
             else:
                 entry = SheetEntry(plan.title, self._free_part(), None, self._free_sheet_id(), self._free_rel_id(), True, plan.visibility, generated={})
                 self.sheets.append(entry)
@@ -557,6 +571,12 @@ class WorkbookParts:
                 for j, text in enumerate(row):
                     where = (formulas.top + i, formulas.left + j)
                     grid[where] = formula_cell(text, formulas.array)
+        for style in placements.formats:
+            entry = self._own_sheet(style.sheet)
+            code = style.code("excel")
+            entry.formats.update({(r, c): code for r in range(style.top, style.bottom + 1) for c in range(style.left, style.right + 1)})
+        for width in placements.widths:
+            self._own_sheet(width.sheet).widths[width.column] = width.characters
         for placed in placements.names:
             for name in self.names:
                 if not name.local and not name.dropped and name.name.casefold() == placed.name.casefold():
@@ -570,6 +590,16 @@ class WorkbookParts:
         if not entry.is_worksheet:
             raise PackageError(f"'{entry.title}' is not a sheet of cells; name a range on a worksheet")
         return entry.inserted
+
+    def _own_sheet(self, title: str) -> SheetEntry:
+        entry = self.sheet(title)
+        assert entry.generated is not None, title  # internal: formats and widths go only on sheets the placements create
+        return entry
+
+    def styles_part(self) -> str | None:
+        """The workbook's styles part, when its relationships name one that exists."""
+        found = [part for kind, part in self.rel_targets.values() if kind == REL_NS + "/styles"]
+        return found[0] if found and self.package.has(found[0]) else None
 
     def _check_droppable(self, entry: SheetEntry) -> None:
         if entry.generated is not None or entry.original is None:
@@ -736,6 +766,49 @@ def _calc_chain_sheet_ids(xml: str) -> set[int]:
     return ids
 
 
+def add_number_formats(xml: str, codes: Iterable[str], label: str) -> tuple[str, dict[str, int]]:
+    """The styles part with a cell format (``<xf>``) appended to ``cellXfs`` for each format code, and
+    the code's ``<numFmt>`` added unless it has one; returns the new text and each code's cell format index.
+    Appending keeps every index the workbook's cells use; all else in the part is left as it was."""
+    p = namespace_prefix(xml, MAIN_NS)
+    if p is None:
+        raise PackageError(f"the styles of {label} are not written the usual way, so sheetnet cannot add number formats; {RESAVE}")
+    q = re.escape(p)
+    formats = re.search(rf"<{q}numFmts(\s[^>]*?)?(?:/>|>(.*?)</{q}numFmts\s*>)", xml, re.DOTALL)
+    existing = {} if formats is None else {
+        unescape(a.get("formatCode", "")): int(a["numFmtId"])
+        for a in (attributes(m.group("attrs") or "") for m in element_pattern(p, "numFmt").finditer(formats.group(2) or ""))
+        if a.get("numFmtId", "").isdigit()
+    }
+    next_id = max([163, *existing.values()]) + 1  # 164 is the first id of a workbook's own formats
+    added = []
+    ids: dict[str, int] = {}
+    for code in codes:
+        if code not in existing:
+            existing[code] = next_id
+            added.append(f'<{p}numFmt numFmtId="{next_id}" formatCode="{escape(code, quote=True)}"/>')
+            next_id += 1
+        ids[code] = existing[code]
+    cell_formats = re.search(rf"<{q}cellXfs(\s[^>]*?)?(?:/>|>(.*?)</{q}cellXfs\s*>)", xml, re.DOTALL)
+    if cell_formats is None:
+        raise PackageError(f"the styles of {label} list no cell formats, so they are damaged; {RESAVE}")
+    count = len(element_pattern(p, "xf").findall(cell_formats.group(2) or ""))
+    index = {code: count + i for i, code in enumerate(ids)}
+    new_xfs = "".join(f'<{p}xf numFmtId="{ids[code]}" fontId="0" fillId="0" borderId="0" xfId="0" applyNumberFormat="1"/>' for code in ids)
+    xfs = f'<{p}cellXfs count="{count + len(ids)}">{cell_formats.group(2) or ""}{new_xfs}</{p}cellXfs>'
+    xml = xml[:cell_formats.start()] + xfs + xml[cell_formats.end():]
+    if added:
+        if formats is not None:
+            total = len(element_pattern(p, "numFmt").findall(formats.group(2) or "")) + len(added)
+            xml = xml[:formats.start()] + f'<{p}numFmts count="{total}">{formats.group(2) or ""}{"".join(added)}</{p}numFmts>' + xml[formats.end():]
+        else:
+            sheet = re.search(rf"<{q}styleSheet(\s[^>]*?)?>", xml)
+            if sheet is None:
+                raise PackageError(f"the styles of {label} are damaged; {RESAVE}")
+            xml = xml[:sheet.end()] + f'<{p}numFmts count="{len(added)}">{"".join(added)}</{p}numFmts>' + xml[sheet.end():]
+    return xml, index
+
+
 def write_package(package: Package, parts: Iterable[Placements], out: BinaryIO) -> list[str]:
     """Apply ``parts`` in order and write the new package to ``out``; returns the parts sheetnet wrote or removed.
 
@@ -746,6 +819,12 @@ def write_package(package: Package, parts: Iterable[Placements], out: BinaryIO) 
     replaced: dict[str, bytes] = {}
     removed: set[str] = set()
     touched_ids: set[int] = set()
+    codes = sorted({code for entry in book.sheets if not entry.dropped and entry.generated is not None for code in entry.formats.values()})
+    style_index: dict[str, int] = {}
+    styles = book.styles_part() if codes else None
+    if styles is not None:  # a workbook without a styles part keeps its numbers in the default format
+        text, style_index = add_number_formats(package.text(styles), codes, package.label)
+        replaced[styles] = text.encode("utf-8")
     for entry in book.sheets:
         if entry.original is not None and (entry.dropped or entry.generated is not None):
             touched_ids.add(entry.sheet_id)
@@ -755,7 +834,8 @@ def write_package(package: Package, parts: Iterable[Placements], out: BinaryIO) 
                 removed.add(_rels_path(entry.part))
             continue
         if entry.generated is not None:
-            replaced[entry.part] = worksheet_xml(entry.generated)
+            cell_styles = {where: style_index[code] for where, code in entry.formats.items() if code in style_index and where in entry.generated}
+            replaced[entry.part] = worksheet_xml(entry.generated, cell_styles, entry.widths)
             if entry.original is not None:
                 removed.add(_rels_path(entry.part))
         elif entry.inserted:

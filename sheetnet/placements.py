@@ -8,8 +8,16 @@ extension) only applies a `Placements` value in order:
    (both compared case-insensitively, as spreadsheets compare them);
 2. create each sheet in ``sheets`` (after the user's sheets, with its visibility);
 3. write each `CellBlock` (a string is always text, never a formula, even when
-   it starts with ``=``), then each `FormulaBlock` (the only way a formula is written);
+   it starts with ``=``), then each `FormulaBlock` (the only way a formula is written),
+   then each `FormatPlacement` (a number format of ours, `NUMBER_FORMATS`, on a
+   rectangle) and each `ColumnWidth`; formats and widths go only on sheets listed in
+   ``sheets`` (sheetnet never restyles a user's sheet);
 4. define each name in ``names`` at workbook level.
+
+Before step 1 a door reads A1 of every sheet in ``drop_sheets`` that exists and
+refuses the whole request, with `not_ours_message`, unless A1 holds one of
+`OWNED_MARKS` (what sheetnet writes in A1 of each sheet of its own): nothing of a
+user's is replaced. The file door does so in `sheetnet.service.check_owned_sheet`.
 
 `Placements.to_json` / `placements_from_json` carry the same value to the
 task pane and the Calc extension, which run no sheetnet code.
@@ -24,6 +32,29 @@ from typing import Any, Iterable, Literal
 Visibility = Literal["visible", "hidden", "veryHidden"]
 Value = float | int | bool | str | None  # None: leave the cell blank
 VISIBILITIES = ("visible", "hidden", "veryHidden")
+# what A1 of a sheet sheetnet writes holds: a model sheet's block starts with the first, a visible sheet with the second
+OWNED_MARKS = ("sheetnet model block", "sheetnet results")
+NOT_OURS = "the workbook has a sheet '{title}' that sheetnet did not write; rename that sheet or choose another model name"
+
+# Number formats under names of our own, and each host's code for them. Excel's codes (openpyxl, xlwings'
+# Range.number_format, Office.js' Range.numberFormat) are written in the en-US syntax whatever the user's locale;
+# Calc's are looked up in its en-US locale (NumberFormats.queryKey), where dates are spelled in capitals.
+NUMBER_FORMATS: dict[str, dict[str, str]] = {
+    "percent0": {"excel": "0%", "calc": "0%"},
+    "percent1": {"excel": "0.0%", "calc": "0.0%"},
+    "decimal1": {"excel": "0.0", "calc": "0.0"},
+    "decimal2": {"excel": "0.00", "calc": "0.00"},
+    "decimal3": {"excel": "0.000", "calc": "0.000"},
+    "decimal4": {"excel": "0.0000", "calc": "0.0000"},
+    "integer": {"excel": "0", "calc": "0"},
+    "date": {"excel": "yyyy-mm-dd", "calc": "YYYY-MM-DD"},
+}
+HOSTS = ("excel", "calc")
+
+
+def not_ours_message(title: str) -> str:
+    """The one refusal every door gives for a sheet it would replace that sheetnet did not write."""
+    return NOT_OURS.format(title=title)
 
 
 def column_letters(number: int) -> str:
@@ -83,6 +114,34 @@ class FormulaBlock:
 
 
 @dataclass(frozen=True)
+class FormatPlacement:
+    """One of our number formats (a key of `NUMBER_FORMATS`) on the rectangle (top, left) to (bottom, right)."""
+
+    sheet: str
+    top: int
+    left: int
+    bottom: int
+    right: int
+    format: str
+
+    def __post_init__(self) -> None:
+        assert self.format in NUMBER_FORMATS, self.format  # internal: the service names only formats of ours
+
+    def code(self, host: str) -> str:
+        """The host's format code: ``percent1`` is ``0.0%`` in Excel and in Calc."""
+        return NUMBER_FORMATS[self.format][host]
+
+
+@dataclass(frozen=True)
+class ColumnWidth:
+    """A column's width in characters of the default font (Excel's unit; each door converts)."""
+
+    sheet: str
+    column: int
+    characters: float
+
+
+@dataclass(frozen=True)
 class NamePlacement:
     """A workbook-level defined name for the rectangle (top, left) to (bottom, right)."""
 
@@ -111,6 +170,8 @@ class Placements:
     cells: tuple[CellBlock, ...] = ()
     formulas: tuple[FormulaBlock, ...] = ()
     names: tuple[NamePlacement, ...] = ()
+    formats: tuple[FormatPlacement, ...] = ()
+    widths: tuple[ColumnWidth, ...] = ()
 
     def __add__(self, other: "Placements") -> "Placements":
         return Placements(
@@ -120,6 +181,8 @@ class Placements:
             self.cells + other.cells,
             self.formulas + other.formulas,
             self.names + other.names,
+            self.formats + other.formats,
+            self.widths + other.widths,
         )
 
     @property
@@ -140,6 +203,14 @@ class Placements:
                 {"name": n.name, "sheet": n.sheet, "top": n.top, "left": n.left, "bottom": n.bottom, "right": n.right, "reference": n.reference}
                 for n in self.names
             ],
+            "formats": [
+                {"sheet": f.sheet, "top": f.top, "left": f.left, "bottom": f.bottom, "right": f.right, "format": f.format,
+                 **{host: f.code(host) for host in HOSTS}}
+                for f in self.formats
+            ],
+            "widths": [{"sheet": w.sheet, "column": w.column, "characters": w.characters} for w in self.widths],
+            "owned_marks": list(OWNED_MARKS),
+            "not_ours": NOT_OURS,  # '{title}' stands for the sheet's title
         }
 
 
@@ -152,12 +223,45 @@ def placements_from_json(data: dict[str, Any]) -> Placements:
         tuple(CellBlock(c["sheet"], c["top"], c["left"], tuple(tuple(r) for r in c["values"])) for c in data.get("cells", ())),
         tuple(FormulaBlock(f["sheet"], f["top"], f["left"], tuple(tuple(r) for r in f["formulas"]), f["array"]) for f in data.get("formulas", ())),
         tuple(NamePlacement(n["name"], n["sheet"], n["top"], n["left"], n["bottom"], n["right"]) for n in data.get("names", ())),
+        tuple(FormatPlacement(f["sheet"], f["top"], f["left"], f["bottom"], f["right"], f["format"]) for f in data.get("formats", ())),
+        tuple(ColumnWidth(w["sheet"], w["column"], w["characters"]) for w in data.get("widths", ())),
     )
 
 
+@dataclass(frozen=True)
+class Shown:
+    """A number to be shown with one of our formats, inside rows handed to `formatted_block`:
+    ``Shown(0.853, "percent1")`` is the number 0.853 in a cell that shows 85.3%."""
+
+    value: float | int
+    format: str
+
+
 def cell_block(sheet: str, top: int, left: int, rows: Iterable[Iterable[Any]]) -> CellBlock:
-    """A `CellBlock` from rows of cell values; ``''`` becomes a blank."""
-    return CellBlock(sheet, top, left, tuple(tuple(None if v == "" else v for v in row) for row in rows))
+    """A `CellBlock` from rows of cell values; ``''`` becomes a blank, a `Shown` its number."""
+    return CellBlock(sheet, top, left, tuple(tuple(_plain(v) for v in row) for row in rows))
+
+
+def _plain(value: Any) -> Value:
+    if isinstance(value, Shown):
+        return value.value
+    return None if value == "" else value
+
+
+def block_formats(sheet: str, top: int, left: int, rows: Iterable[Iterable[Any]]) -> tuple[FormatPlacement, ...]:
+    """The formats of the `Shown` cells in ``rows`` placed from (top, left), a column's run of
+    neighbouring cells with the same format as one rectangle (so a door sets it once)."""
+    runs: dict[int, list[list[Any]]] = {}  # column -> [first row, last row, format] runs
+    for i, row in enumerate(rows):
+        for j, value in enumerate(row):
+            if not isinstance(value, Shown):
+                continue
+            column_runs = runs.setdefault(left + j, [])
+            if column_runs and column_runs[-1][1] == top + i - 1 and column_runs[-1][2] == value.format:
+                column_runs[-1][1] = top + i
+            else:
+                column_runs.append([top + i, top + i, value.format])
+    return tuple(FormatPlacement(sheet, first, column, last, column, name) for column, found in sorted(runs.items()) for first, last, name in found)
 
 
 @dataclass

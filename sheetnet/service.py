@@ -25,10 +25,11 @@ from .block import WIDTH, decode_block
 from .cells import parse_settings
 from .errors import InputError, SettingError, SheetnetError
 from .formulas import formula_constants
-from .placements import CellBlock, FormulaBlock, NamePlacement, SheetPlan, quote_sheet
+from .placements import OWNED_MARKS, CellBlock, ColumnWidth, FormulaBlock, NamePlacement, SheetPlan, Shown, block_formats, quote_sheet
 from .placements import Placements as Placements  # re-exported: doors build placements through the service
 from .placements import cell_block as cell_block
 from .placements import column_letters as column_letters
+from .placements import not_ours_message as not_ours_message
 from .placements import same_title as same_title
 from .stopping import ProgressCallback
 
@@ -36,7 +37,9 @@ MODEL_SHEET_PREFIX = "sheetnet_"
 RESULTS_SHEET_PREFIX = "sn "
 SHEET_TITLE_LIMIT = 31  # characters, a spreadsheet's limit for a sheet name
 CONSTANTS_COLUMN = WIDTH + 2  # native-formula constants start two columns right of the block
-OWNED_MARK = "sheetnet results"  # first cell of every visible sheet sheetnet writes
+OWNED_MARK = OWNED_MARKS[1]  # first cell of every visible sheet sheetnet writes
+WIDEST_COLUMN = 48  # characters; a longer text runs on into the empty cells to its right
+NARROWEST_COLUMN = 6
 NAME_PATTERN = re.compile(r"^[A-Za-z_][A-Za-z0-9_.]{0,200}$")
 ADDRESS_LIKE = re.compile(r"^([A-Za-z]{1,3}[0-9]+|[Rr][0-9]*[Cc]?[0-9]*|[Cc][0-9]*)$")
 # what follows a model's prefix in its constants' names (see `formulas.formula_constants`)
@@ -115,13 +118,16 @@ def model_placements(name: str, block: list[list[Any]], existing_names: Iterable
         names.append(NamePlacement(constant.name, sheet, row, CONSTANTS_COLUMN, row + height - 1, CONSTANTS_COLUMN + width - 1))
         row += height + 1
     card = card_sheet_name(name)
-    cells += [cell_block(card, 1, 1, [[OWNED_MARK]]), cell_block(card, 2, 1, model_card(name, block))]
+    rows = model_card(name, block)
+    cells += [cell_block(card, 1, 1, [[OWNED_MARK]]), cell_block(card, 2, 1, rows)]
     return Placements(
         drop_names=tuple(names_of_model(name, existing_names)),
         drop_sheets=(sheet, card),
         sheets=(SheetPlan(sheet, "veryHidden"), SheetPlan(card, "visible")),
         cells=tuple(cells),
         names=tuple(names),
+        formats=block_formats(card, 2, 1, rows),
+        widths=column_widths(card, [(2, 1, rows)]),
     )
 
 
@@ -132,17 +138,46 @@ def removal_placements(name: str, existing_names: Iterable[str]) -> Placements:
 
 # --- visible sheets of ours and native formulas -------------------------------------------
 
-def check_owned_sheet(title: str, first_cell: Any) -> None:
-    """A visible sheet named ``title`` may be replaced only if sheetnet wrote it (its A1 says so);
-    ``first_cell`` is that sheet's A1 now, or None when there is no such sheet."""
-    if first_cell is not None and first_cell != OWNED_MARK:
-        raise InputError(f"the workbook has a sheet '{title}' that sheetnet did not write; rename that sheet or choose another model name")
+def check_owned_sheet(title: str, first_cell: Any, exists: bool | None = None) -> None:
+    """A sheet named ``title`` may be replaced only if sheetnet wrote it (its A1 holds one of
+    `placements.OWNED_MARKS`); ``first_cell`` is that sheet's A1 now. ``exists`` says whether there is
+    such a sheet (by default: when ``first_cell`` is not None). The message is the one every door gives."""
+    if (first_cell is not None if exists is None else exists) and first_cell not in OWNED_MARKS:
+        raise InputError(not_ours_message(title))
+
+
+def column_widths(title: str, blocks: Iterable[tuple[int, int, list[list[Any]]]]) -> tuple[ColumnWidth, ...]:
+    """Widths that show each column's headers and values: its longest text up to `WIDEST_COLUMN`
+    characters (longer texts, like captions, run on to the right), numbers as their format shows them."""
+    widest: dict[int, int] = {}
+    for top, left, rows in blocks:
+        for row in rows:
+            for j, value in enumerate(row):
+                shown = _shown_length(value)
+                if shown <= WIDEST_COLUMN:
+                    widest[left + j] = max(widest.get(left + j, NARROWEST_COLUMN), shown)
+    return tuple(ColumnWidth(title, column, float(width + 2)) for column, width in sorted(widest.items()))
+
+
+def _shown_length(value: Any) -> int:
+    if isinstance(value, Shown):
+        return 8
+    if isinstance(value, bool) or value is None:
+        return 5 if value is not None else 0
+    if isinstance(value, (int, float)):
+        return min(len(f"{value:.10g}"), 12)
+    return len(str(value))
 
 
 def results_placements(title: str, blocks: Iterable[tuple[int, int, list[list[Any]]]]) -> Placements:
-    """A visible sheet of ours, made afresh: our mark in A1, then each (top, left, rows) block."""
+    """A visible sheet of ours, made afresh: our mark in A1, then each (top, left, rows) block; a
+    `Shown` value is written as its number with its number format; columns as wide as `column_widths`."""
+    blocks = list(blocks)
     cells = [cell_block(title, 1, 1, [[OWNED_MARK]])] + [cell_block(title, top, left, rows) for top, left, rows in blocks]
-    return Placements(drop_sheets=(title,), sheets=(SheetPlan(title, "visible"),), cells=tuple(cells))
+    formats = tuple(f for top, left, rows in blocks for f in block_formats(title, top, left, rows))
+    return Placements(
+        drop_sheets=(title,), sheets=(SheetPlan(title, "visible"),), cells=tuple(cells), formats=formats, widths=column_widths(title, blocks)
+    )
 
 
 def native_formula_placements(
@@ -336,9 +371,45 @@ def training_results(
     _, info = decode_block(trained.block)
     split = trained.split if trained.split is not None else [["split"]] + [["train"] for _ in answer[1:]]
     target_index = [str(c).strip() for c in table[0]].index(info.target)
-    rows = [[i + 2, split[i + 1][0], table[i + 1][target_index], *answer[i + 1]] for i in range(len(answer) - 1)]
+    actual = [table[i + 1][target_index] for i in range(len(answer) - 1)]
+    answer_format = value_format(actual + [v for row in answer[1:] for v in row])
+    rows = [[i + 2, split[i + 1][0], _shown(actual[i], answer_format), *(_shown(v, answer_format) for v in answer[i + 1])] for i in range(len(answer) - 1)]
     caption = f"model {name}: {info.target} predicted from {address}. {CAUTION}"
-    return [(2, 1, [[caption]]), (4, 1, [["table row", split[0][0], f"actual {info.target}", *answer[0]], *rows]), (4, 7, about)]
+    return [(2, 1, [[caption]]), (4, 1, [["table row", split[0][0], f"actual {info.target}", *answer[0]], *rows]), (4, 7, about_shown(about))]
+
+
+def value_format(values: Iterable[Any]) -> str:
+    """The number format of predicted and actual values: whole numbers (class labels) as such, else
+    about four significant digits at the values' typical size (the median of their sizes), at most four decimals."""
+    import math
+
+    numbers = [float(v) for v in values if isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(float(v))]
+    if numbers and all(v.is_integer() for v in numbers):
+        return "integer"
+    sizes = sorted(abs(v) for v in numbers if v != 0)
+    if not sizes:
+        return "decimal2"
+    decimals = min(4, max(0, 3 - math.floor(math.log10(sizes[len(sizes) // 2]))))
+    return "integer" if decimals == 0 else f"decimal{decimals}"
+
+
+def _shown(value: Any, name: str) -> Any:
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        return Shown(value, name)
+    return value
+
+
+def about_shown(about: list[list[Any]]) -> list[list[Any]]:
+    """ABOUT's rows with each holdout metric shown in its number format (shares as percentages)."""
+    from .labels import METRIC_LABELS, number_format
+
+    shown = []
+    for row in about:
+        key = str(row[0]).removeprefix("holdout ")
+        if str(row[0]).startswith("holdout ") and key in METRIC_LABELS and isinstance(row[1], (int, float)):
+            row = [row[0], Shown(row[1], number_format(key)), *row[2:]]
+        shown.append(row)
+    return shown
 
 
 def refresh_summary(outcomes: Iterable[RefreshOutcome]) -> str:

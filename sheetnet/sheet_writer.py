@@ -34,7 +34,8 @@ def _sheet(workbook: Workbook, title: str) -> Worksheet:
 
 
 def apply_to_workbook(workbook: Workbook, placements: Placements) -> None:
-    """Apply in the documented order: drop names and sheets, add sheets, cells, formulas, names."""
+    """Apply in the documented order: drop names and sheets, add sheets, cells, formulas, number formats
+    and column widths, names."""
     dropped = {n.casefold() for n in placements.drop_names}
     for name in [n for n in workbook.defined_names if n.casefold() in dropped]:
         del workbook.defined_names[name]
@@ -57,5 +58,13 @@ def apply_to_workbook(workbook: Workbook, placements: Placements) -> None:
             for j, text in enumerate(row):
                 where = f"{column_letters(formulas.left + j)}{formulas.top + i}"
                 sheet[where] = ArrayFormula(where, text) if formulas.array else text
+    for placed in placements.formats:
+        sheet = _sheet(workbook, placed.sheet)
+        code = placed.code("excel")
+        for row in range(placed.top, placed.bottom + 1):
+            for column in range(placed.left, placed.right + 1):
+                sheet.cell(row, column).number_format = code
+    for width in placements.widths:
+        _sheet(workbook, width.sheet).column_dimensions[column_letters(width.column)].width = width.characters
     for name in placements.names:
         workbook.defined_names[name.name] = DefinedName(name.name, attr_text=name.reference)

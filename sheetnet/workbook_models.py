@@ -30,10 +30,10 @@ def check_storable(book: Book, name: str, replace: bool = False) -> None:
     sheet = service.model_sheet_name(name)
     current = next((s for s in book.formulas.worksheets if service.same_title(s.title, sheet)), None)
     if current is not None and current["A1"].value != MAGIC:
-        raise InputError(f"the workbook has a sheet '{current.title}' that sheetnet did not write; rename that sheet or choose another model name")
+        raise InputError(service.not_ours_message(current.title))
     card = service.card_sheet_name(name)
     current = next((s for s in book.formulas.worksheets if service.same_title(s.title, card)), None)
-    service.check_owned_sheet(card, None if current is None else current["A1"].value)
+    service.check_owned_sheet(card, None if current is None else current["A1"].value, exists=current is not None)
     for other in model_names(book):
         destinations = list(book.formulas.defined_names[other].destinations)
         if not service.same_title(other, name) and destinations and service.same_title(destinations[0][0], sheet):
@@ -51,7 +51,7 @@ def store_model(book: Book, name: str, block: list[list[Any]], replace: bool = F
 def results_sheet(book: Book, title: str, blocks: list[tuple[int, int, list[list[Any]]]]) -> str:
     """Place a visible sheet of ours (refused if the user has a sheet of that name); returns its title."""
     current = next((s for s in book.formulas.worksheets if service.same_title(s.title, title)), None)
-    service.check_owned_sheet(title, None if current is None else current["A1"].value)
+    service.check_owned_sheet(title, None if current is None else current["A1"].value, exists=current is not None)
     book.log.add(service.results_placements(title, blocks))
     return title
 

@@ -80,8 +80,19 @@ def _as_text(value: Any) -> Any:
     return "'" + value if isinstance(value, str) else value
 
 
+def check_replaceable(book: Any, placements: Placements) -> None:
+    """Refuse (`InputError`, the service's words) before anything changes when a sheet the placements
+    drop exists and sheetnet did not write it (its A1 is not one of our marks)."""
+    for title in placements.drop_sheets:
+        for sheet in list(book.sheets):
+            if same_title(sheet.name, title):
+                service.check_owned_sheet(sheet.name, sheet.range("A1").value, exists=True)
+
+
 def apply_placements(book: Any, placements: Placements) -> None:
-    """Apply the service's placements through xlwings, in the documented order."""
+    """Apply the service's placements through xlwings, in the documented order; refused as a whole
+    (`check_replaceable`) when it would replace a sheet of the user's."""
+    check_replaceable(book, placements)
     dropped = {n.casefold() for n in placements.drop_names}
     for defined in list(book.names):
         if defined.name.casefold() in dropped:
@@ -106,6 +117,11 @@ def apply_placements(book: Any, placements: Placements) -> None:
                     cell.formula_array = text
                 else:
                     cell.formula = text
+    for style in placements.formats:  # Range.number_format takes Excel's format code
+        corner = f"{column_letters(style.left)}{style.top}:{column_letters(style.right)}{style.bottom}"
+        sheets[style.sheet.casefold()].range(corner).number_format = style.code("excel")
+    for width in placements.widths:  # Range.column_width is in characters, as the placements give it
+        sheets[width.sheet.casefold()].range(f"{column_letters(width.column)}1").column_width = width.characters
     for name in placements.names:
         book.names.add(name.name, "=" + name.reference)
     for sheet, visibility in created.values():
@@ -133,6 +149,7 @@ def train_selection(target: str, name: str, hidden: Any = service.DEFAULT_HIDDEN
     book = _caller(book)
     try:
         service.check_model_name(name)
+        check_replaceable(book, service.removal_placements(name, []))  # refused before training, not after
         selection = book.selection
         table = _cells(selection)
         address = f"'{selection.sheet.name}'!{selection.address}"
@@ -151,7 +168,10 @@ def refresh_models(book: Any = None, dry_run: bool = False) -> str:
         block = _cells(book.names[name].refers_to_range)
         outcome = service.refresh_model(name, block, lambda address: _read(book, address), dry_run)
         if outcome.trained is not None:
-            apply_placements(book, service.model_placements(name, outcome.trained.block, [n.name for n in book.names]))
+            try:
+                apply_placements(book, service.model_placements(name, outcome.trained.block, [n.name for n in book.names]))
+            except SheetnetError as error:
+                outcome = service.RefreshOutcome(name, "failed", str(error))
         outcomes.append(outcome)
     return _report(book, service.refresh_summary(outcomes))
 
@@ -162,7 +182,10 @@ def remove_model(name: str, book: Any = None) -> str:
     stored = _stored_name(book, name)
     if stored is None:
         return _report(book, f"{MARKER} the workbook has no model named '{name}'")
-    apply_placements(book, service.removal_placements(stored, [n.name for n in book.names]))
+    try:
+        apply_placements(book, service.removal_placements(stored, [n.name for n in book.names]))
+    except SheetnetError as error:
+        return _report(book, f"{MARKER} {error}")
     return _report(book, f"sheetnet: model {stored} removed")
 
 

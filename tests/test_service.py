@@ -131,9 +131,19 @@ def test_every_stored_model_gets_a_card_with_use_data_metrics_groups_limits_and_
     assert card["intended use"][1] == "sorting lots for cupping"
     assert card["training rows"][1] == 72 and card["holdout rows"][1] == 18 and card["source range"][1] == "Data!A1:G91"
     accuracy = card["Accuracy"]
-    assert accuracy[2] == "accuracy" and "%" in accuracy[1] and "90 % interval" in accuracy[1]  # a share shown as a percentage
-    assert "every class with probability" in card["prediction set"][1]
     _, info = decode_block(trained.block)
+    assert accuracy[1] == info.holdout_metrics["accuracy"]  # a number, shown as a percentage by its format
+    assert accuracy[2].startswith("90 % interval") and accuracy[2].endswith("(accuracy)") and "%" in accuracy[2]
+    title = service.card_sheet_name("grades")
+    rows = next(b for b in placements.cells if b.sheet == title and b.top == 2).values
+    at = {(r, c): f.format for f in placements.formats if f.sheet == title for r in range(f.top, f.bottom + 1) for c in range(f.left, f.right + 1)}
+    items = [r[0] for r in rows]
+    assert at[(2 + items.index("Accuracy"), 2)] == "percent1" and at[(2 + items.index("Balanced accuracy"), 2)] == "percent1"
+    assert at[(2 + items.index("Log-loss"), 2)] == "decimal3" and (2 + items.index("training rows"), 2) not in at
+    assert all(isinstance(rows[r - 2][c - 1], float) for r, c in at)  # only numbers get a number format
+    assert placements.to_json()["formats"][0]["excel"] in ("0.0%", "0.000") and placements.to_json()["formats"][0]["calc"]
+    assert placements_from_json(placements.to_json()) == placements
+    assert "every class with probability" in card["prediction set"][1]
     process = [r for r in table[1:] if r[table[0].index("process")] is not None]
     assert info.group_column == "process" and sum(v["rows"] for v in info.group_metrics.values()) == 18 and len(process) == 90
     for label, values in info.group_metrics.items():
@@ -167,3 +177,31 @@ def test_a_users_sheet_named_like_a_card_is_never_replaced(tmp_path, table):
     book.save(tmp_path / "mine.xlsx")
     with pytest.raises(InputError, match="sheet 'sn card grades' that sheetnet did not write"):
         check_storable(open_book(tmp_path / "mine.xlsx"), "grades")
+
+
+def test_the_file_door_writes_number_formats_and_column_widths_and_keeps_the_users_styles(tmp_path, table):
+    import openpyxl
+
+    from sheetnet import cli
+
+    book = openpyxl.Workbook()
+    book.active.title = "Data"
+    for row in table:
+        book.active.append(row)
+    book.active["A1"].number_format = "0.00000"  # the user's own style must keep its meaning
+    book.save(tmp_path / "lots.xlsx")
+    args = ["train", str(tmp_path / "lots.xlsx"), "--table", f"Data!A1:G{len(table)}", "--target", "grade", "--name", "grades",
+            "--set", "ignore=lot", "--set", "epochs=40"]
+    assert cli.main(args) == 0
+    saved = openpyxl.load_workbook(tmp_path / "lots.xlsx")
+    assert saved["Data"]["A1"].number_format == "0.00000"
+    card = saved["sn card grades"]
+    found = {row[0].value: row[1] for row in card.iter_rows(min_row=2, max_col=2)}
+    assert isinstance(found["Accuracy"].value, float) and found["Accuracy"].number_format == "0.0%"
+    assert found["Log-loss"].number_format == "0.000" and found["training rows"].number_format == "General"
+    assert card.column_dimensions["A"].width > len("Balanced accuracy") and card.column_dimensions["A"].customWidth
+    results = saved["sn grades"]
+    about = {row[0].value: row[1] for row in results.iter_rows(min_row=4, min_col=7, max_col=8)}
+    assert about["holdout accuracy"].number_format == "0.0%" and about["holdout log_loss"].number_format == "0.000"
+    assert about["holdout rows"].number_format == "General"
+    assert results.column_dimensions["G"].width >= len("holdout balanced_accuracy 90 % interval")

@@ -14,10 +14,11 @@ import pytest
 import sheetnet_demo
 import xlwings_standin as standin
 
-from sheetnet import cli, functions, xl_macros, xl_udfs
+from sheetnet import cli, functions, service, xl_macros, xl_udfs
 from sheetnet.block import decode_block
 from sheetnet.cells import MARKER
 from sheetnet.formulas import native_formula
+from sheetnet.placements import not_ours_message
 from sheetnet.registry import REGISTRY
 
 
@@ -189,3 +190,32 @@ def test_macros_read_error_cells_as_their_codes(table):
     report = xl_macros.train_selection("grade", "grades", "5", "ignore=lot; blank_rows=skip; epochs=50", book=book)
     assert report.startswith(MARKER) and "#N/A" in report and "row 7 of the table" in report
     assert "grades" not in book.names  # nothing stored from a table with an error in it
+
+
+def test_train_selection_applies_the_cards_number_formats_and_column_widths(table):
+    book = _book(table)
+    xl_macros.train_selection("grade", "grades", "5", "ignore=lot; epochs=50", book=book)
+    card = book.sheets["sn card grades"]
+    rows = {card.cells.get((r, 1)): r for r in range(1, 200)}
+    accuracy = rows["Accuracy"]
+    assert isinstance(card.cells[(accuracy, 2)], float) and card.range(f"B{accuracy}").number_format == "0.0%"  # a number shown as a percentage
+    assert card.range(f"B{rows['Log-loss']}").number_format == "0.000"
+    assert card.range(f"B{rows['training rows']}").number_format == "General"
+    placements = service.model_placements("grades", book.names["grades"].refers_to_range.options(ndim=2).value)
+    assert {(r, f.left) for f in placements.formats for r in range(f.top, f.bottom + 1)} == set(card.number_formats)
+    assert card.column_widths == {w.column: w.characters for w in placements.widths} and card.column_widths[1] > len("Balanced accuracy")
+
+
+def test_no_macro_replaces_a_sheet_sheetnet_did_not_write(table):
+    book = _book(table)
+    mine = book.sheets.add("SN card grades", after=book.sheets[0])
+    mine.range("A1").value = "my own notes"
+    report = xl_macros.train_selection("grade", "grades", "5", "ignore=lot; epochs=50", book=book)
+    assert report == f"{MARKER} " + not_ours_message("SN card grades")  # the file door's words
+    assert report.endswith("the workbook has a sheet 'SN card grades' that sheetnet did not write; rename that sheet or choose another model name")
+    assert "grades" not in book.names and mine.cells[(1, 1)] == "my own notes"
+    # a model stored under another name, whose card the user then takes over: removal is refused, nothing dropped
+    xl_macros.train_selection("grade", "lots", "5", "ignore=lot; epochs=50", book=book)
+    book.sheets["sn card lots"].range("A1").value = "I wrote over this card"
+    assert xl_macros.remove_model("lots", book=book) == f"{MARKER} " + not_ours_message("sn card lots")
+    assert "lots" in book.names and "sheetnet_lots" in [s.name for s in book.sheets]

@@ -1,5 +1,8 @@
 """A small in-memory stand-in for the parts of xlwings' Book/Sheet/Range API that sheetnet's macros use.
 
+Number formats (``Range.number_format``, a format code per cell) and column widths (``Range.column_width``,
+in characters) are kept as set, never applied to what a cell shows.
+
 Limits (what it does not do): it evaluates no formula (array formulas are stored as text), knows no
 Excel types beyond numbers, texts, booleans, blanks and error values (`CellError`), does not spill, has no recalculation, events,
 COM or AppleScript, and parses only A1-style addresses ("B2", "A1:G301", with or without $).
@@ -109,6 +112,27 @@ class Range:
         return Range(self.sheet, self.row + rows, self.column + columns, self.height, self.width)
 
     @property
+    def number_format(self) -> str:
+        """Excel's format code of the top-left cell ('General' when none was set), as xlwings reads it."""
+        return self.sheet.number_formats.get((self.row, self.column), "General")
+
+    @number_format.setter
+    def number_format(self, code: str) -> None:
+        for i in range(self.height):
+            for j in range(self.width):
+                self.sheet.number_formats[(self.row + i, self.column + j)] = code
+
+    @property
+    def column_width(self) -> float:
+        """Width of the range's first column in characters (xlwings: Range.column_width); Excel's default 8.43."""
+        return self.sheet.column_widths.get(self.column, 8.43)
+
+    @column_width.setter
+    def column_width(self, characters: float) -> None:
+        for j in range(self.width):
+            self.sheet.column_widths[self.column + j] = characters
+
+    @property
     def formula_array(self) -> str | None:
         return self.sheet.array_formulas.get((self.row, self.column))
 
@@ -126,6 +150,8 @@ class Sheet:
         self.book, self.name = book, name
         self.cells: dict[tuple[int, int], Any] = {}
         self.array_formulas: dict[tuple[int, int], str] = {}
+        self.number_formats: dict[tuple[int, int], str] = {}
+        self.column_widths: dict[int, float] = {}
         self.api = SheetApi()
         self.visible = True
 
