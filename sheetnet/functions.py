@@ -31,6 +31,7 @@ from .cells import (
     column_of,
     content_key,
     fingerprint,
+    fingerprint_matches,
     is_blank,
     message_cell,
     numeric_frame,
@@ -233,7 +234,11 @@ def _numbers_for_model(sheet: SheetTable, decoded: Model, info: BlockInfo, optio
 
 
 def _fingerprint(table: SheetTable, columns: list[str], rows: np.ndarray) -> str:
-    return fingerprint(table, columns, rows)  # the digest of `block.table_fingerprint`, number columns in one pass
+    return fingerprint(table, columns, rows)  # the byte scheme (`cells.fingerprint`): number columns in one C pass
+
+
+def _same_data(table: SheetTable, columns: list[str], rows: np.ndarray, info: BlockInfo) -> bool:
+    return fingerprint_matches(table, columns, rows, info.fingerprint)  # in the scheme the block was written with
 
 
 # --- the cell functions -------------------------------------------------------------------
@@ -680,7 +685,7 @@ ROWS_SCORED_UNSPLIT = "every row given, with no split: optimistic if the model w
 def _rows_scored(decoded: Model, info: BlockInfo, raw: SheetTable, options: dict[str, Any], split_given: bool) -> str:
     """Which rows SCORE measured, in words: a score on training rows flatters the model, so it says so."""
     columns = [*decoded.input_names, info.target]
-    same_table = _fingerprint(raw, columns, _rows_used(raw, columns, options["skip_blanks"])) == info.fingerprint
+    same_table = _same_data(raw, columns, _rows_used(raw, columns, options["skip_blanks"]), info)
     if split_given:
         # a model trained on every row of this table has no holdout rows, whatever the split says now
         return ROWS_SCORED_TRAINING if same_table and info.holdout_rows == 0 else ROWS_SCORED_HOLDOUT
@@ -710,7 +715,7 @@ def data_unchanged(model: Any, table: Any) -> bool:
     for name in columns:
         sheet.column(name)
     used = _rows_used(sheet, columns, options["skip_blanks"])
-    return bool(_fingerprint(sheet, columns, used) == info.fingerprint)
+    return _same_data(sheet, columns, used, info)
 
 
 @cell_function

@@ -6,6 +6,7 @@ import base64
 import datetime
 import hashlib
 import math
+import struct
 import time
 
 import numpy as np
@@ -80,7 +81,7 @@ def test_a_header_100000_columns_wide_is_read_in_linear_time():
         cells.read_sheet_table([[*header[:-1], "c0"], [0] * width])
 
 
-def test_the_fingerprint_is_the_blocks_table_fingerprint_of_the_columns_as_read():
+def test_the_first_scheme_fingerprint_is_the_blocks_table_fingerprint_of_the_columns_as_read():
     rng = np.random.default_rng(3)
     numbers = [*TRICKY_NUMBERS, *rng.normal(size=40).tolist(), *(rng.normal(size=20) * 1e-9).tolist(), *(rng.normal(size=20) * 1e20).tolist()]
     rows = len(numbers)
@@ -94,15 +95,16 @@ def test_the_fingerprint_is_the_blocks_table_fingerprint_of_the_columns_as_read(
     names = ["n", "with blanks", "cells", "whole"]
     for used in (np.ones(rows, dtype=bool), np.arange(rows) % 3 != 0):
         expected = table_fingerprint([table.frame.loc[used, name].tolist() for name in names])  # the way blocks have stored it
-        assert cells.fingerprint(table, names, used) == expected
-    assert cells.fingerprint(table, ["cells", "n"], np.ones(rows, dtype=bool)) != cells.fingerprint(table, ["n", "cells"], np.ones(rows, dtype=bool))
+        assert cells.first_fingerprint(table, names, used) == expected
+    every = np.ones(rows, dtype=bool)
+    assert cells.first_fingerprint(table, ["cells", "n"], every) != cells.first_fingerprint(table, ["n", "cells"], every)
 
 
-def test_the_fingerprint_of_a_known_table_stays_the_same():
+def test_the_first_scheme_fingerprint_of_a_known_table_stays_the_same():
     table = cells.read_sheet_table([["x", "label"], [1.5, "a"], [-0.0, "b"], [None, None], [1e16, None], [float("nan"), "c"]])
     # the texts block._canonical writes: numbers to 15 digits, -0 as 0, a blank number as nan, a blank cell as nothing
     written = hashlib.sha256(b"\x1e1.5\x1f0\x1f1e+16\x1fnan\x1f\x1es:a\x1fs:b\x1f\x1fs:c\x1f").hexdigest()
-    assert cells.fingerprint(table, ["x", "label"], np.ones(4, dtype=bool)) == written
+    assert cells.first_fingerprint(table, ["x", "label"], np.ones(4, dtype=bool)) == written
     assert table_fingerprint([[1.5, 0.0, 1e16, math.nan], ["a", "b", None, "c"]]) == written
 
 
@@ -203,17 +205,157 @@ def test_number_texts_are_kept_within_their_bound_and_give_the_same_fingerprint(
     every = np.ones(3_000, dtype=bool)
     expected = table_fingerprint([table.frame[name].tolist() for name in ("a", "b")])
     cells.forget_number_texts()
-    assert cells.fingerprint(table, ["a", "b"], every) == expected  # written
-    assert cells.fingerprint(table, ["a", "b"], every) == expected  # kept
+    assert cells.first_fingerprint(table, ["a", "b"], every) == expected  # written
+    assert cells.first_fingerprint(table, ["a", "b"], every) == expected  # kept
     assert len(cells._kept_texts) == 2 and cells._kept_size[0] == sum(map(len, cells._kept_texts.values()))
     monkeypatch.setattr(cells, "NUMBER_TEXTS_KEPT", cells._kept_size[0] + 10)  # room for these two columns, not a third
     other = cells.read_sheet_table([["c"]] + [[float(x)] for x in rng.normal(size=3_000)])
-    assert cells.fingerprint(other, ["c"], every) == table_fingerprint([other.frame["c"].tolist()])
+    assert cells.first_fingerprint(other, ["c"], every) == table_fingerprint([other.frame["c"].tolist()])
     def key(values: np.ndarray) -> bytes:
         return hashlib.sha256(values.tobytes()).digest()
 
     assert list(cells._kept_texts)[-1] == key(other.values("c")) and key(table.values("a")) not in cells._kept_texts  # the oldest went
     assert cells._kept_size[0] <= cells.NUMBER_TEXTS_KEPT and cells._kept_size[0] == sum(map(len, cells._kept_texts.values()))
-    assert cells.fingerprint(table, ["a", "b"], every) == expected
+    assert cells.first_fingerprint(table, ["a", "b"], every) == expected
     cells.forget_number_texts()
     assert not cells._kept_texts and cells._kept_size[0] == 0
+
+
+# --- the byte scheme (what new blocks store) ---------------------------------------------------
+
+def reference_fingerprint(columns: list[list[object]]) -> str:
+    """The byte scheme written out cell by cell, as `cells.fingerprint_bytes` documents it: the oracle of the fast one."""
+    digest = hashlib.sha256()
+    for column in columns:
+        kinds, numbers, texts = bytearray(), b"", []
+        for value in column:
+            if value is None or (isinstance(value, float) and math.isnan(value)):
+                kinds.append(0)
+            elif isinstance(value, (bool, np.bool_)):
+                kinds.append(3 if value else 2)
+            elif isinstance(value, str):
+                kinds.append(4)
+                texts.append(value.encode("utf-8"))
+            elif isinstance(value, int) and abs(value) >= 2**1024:
+                kinds.append(5)  # a whole number too large for a double: its digits
+                texts.append(str(value).encode("utf-8"))
+            elif isinstance(value, (int, float, np.number)):
+                kinds.append(1)
+                numbers += struct.pack("<d", 0.0 if value == 0 else float(value))
+            else:
+                kinds.append(6)
+                texts.append(str(value).encode("utf-8"))
+        lengths = b"".join(struct.pack("<Q", len(t)) for t in texts)
+        digest.update(b"\x1e" + struct.pack("<Q", len(column)) + bytes(kinds) + numbers + lengths + b"".join(texts))
+    return "sha256v2:" + digest.hexdigest()
+
+
+def test_the_fingerprint_is_the_byte_scheme_of_the_columns_as_read():
+    rng = np.random.default_rng(3)
+    numbers = [*TRICKY_NUMBERS, *rng.normal(size=40).tolist(), *(rng.normal(size=20) * 1e20).tolist()]
+    rows = len(numbers)
+    texts = ["a", " b ", None, True, False, 3, 2.5, 10**400, np.float64(0.25), datetime.date(2026, 12, 2), "", -0.0, np.int64(7), "é\x1e"]
+    grid = [["n", "with blanks", "cells"]] + [
+        [numbers[i], None if i % 5 == 0 else numbers[(i * 7) % rows], texts[i % len(texts)]] for i in range(rows)
+    ]
+    table = cells.read_sheet_table(grid)
+    assert table.values("n").dtype == np.float64 and table.values("cells").dtype == object
+    names = ["n", "with blanks", "cells"]
+    for used in (np.ones(rows, dtype=bool), np.arange(rows) % 3 != 0):
+        expected = reference_fingerprint([table.frame.loc[used, name].tolist() for name in names])
+        assert cells.fingerprint(table, names, used) == expected
+        assert cells.fingerprint_matches(table, names, used, expected)
+
+
+def test_the_fingerprint_of_a_known_table_stays_the_same():
+    table = cells.read_sheet_table([["x", "label"], [1.5, "a"], [-0.0, "b"], [None, None], [1e16, None], [float("nan"), "cd"]])
+    # the bytes written out by hand: per column a mark, the cell count, a kind per cell (0 blank, 1 number, 4 text),
+    # the numbers as little-endian doubles (-0 as 0), then each text's byte length and its UTF-8
+    x = b"\x1e" + struct.pack("<Q", 4) + bytes([1, 1, 1, 0]) + struct.pack("<3d", 1.5, 0.0, 1e16)
+    label = b"\x1e" + struct.pack("<Q", 4) + bytes([4, 4, 0, 4]) + struct.pack("<3Q", 1, 1, 2) + b"abcd"
+    expected = "sha256v2:" + hashlib.sha256(x + label).hexdigest()
+    assert cells.fingerprint(table, ["x", "label"], np.ones(4, dtype=bool)) == expected
+    assert expected == "sha256v2:" + hashlib.sha256(bytes.fromhex(x.hex() + label.hex())).hexdigest()
+
+
+def _fingerprint_of(grid: list[list[object]]) -> str:
+    table = cells.read_sheet_table(grid)
+    return cells.fingerprint(table, list(table.columns), np.ones(len(table.data_rows), dtype=bool))
+
+
+def test_the_fingerprint_changes_with_every_change_of_a_cell():
+    rng = np.random.default_rng(11)
+    grid: list[list[object]] = [["a", "b", "kind"]] + [[float(x), float(y), f"k{i % 3}"] for i, (x, y) in enumerate(rng.normal(size=(50, 2)))]
+    seen = _fingerprint_of(grid)
+    assert seen == _fingerprint_of([list(row) for row in grid])  # the same cells in other lists: the same fingerprint
+
+    def changed(edit) -> str:
+        other = [list(row) for row in grid]
+        edit(other)
+        return _fingerprint_of(other)
+
+    assert changed(lambda g: g[7].__setitem__(0, np.nextafter(g[7][0], np.inf))) != seen  # the last bit of one number
+    assert changed(lambda g: g.__setitem__(slice(3, 5), [g[4], g[3]])) != seen  # two rows swapped
+    assert changed(lambda g: g[9].__setitem__(2, "K1")) != seen  # a text changed (its case)
+    assert changed(lambda g: g[9].__setitem__(2, "k1 x")) != seen
+    assert changed(lambda g: g[12].__setitem__(1, None)) != seen  # a number cleared
+    assert changed(lambda g: [row.__setitem__(slice(0, 2), row[1::-1]) for row in g[1:]]) != seen  # two columns' values swapped
+    # texts cannot run into each other: "ab", "" and "a", "b" differ
+    assert _fingerprint_of([["t"], ["ab"], [None], ["x"]]) != _fingerprint_of([["t"], ["a"], ["b"], ["x"]])
+    # a number, its text and TRUE differ; 1 and 1.0 are the same number
+    assert len({_fingerprint_of([["v", "w"], [1.0, "z"]]), _fingerprint_of([["v", "w"], ["1", "z"]]), _fingerprint_of([["v", "w"], [True, "z"]])}) == 3
+    assert _fingerprint_of([["v", "w"], [1, "z"]]) == _fingerprint_of([["v", "w"], [1.0, "z"]])
+
+
+def test_the_fingerprint_reads_minus_zero_as_zero_and_every_blank_as_a_blank():
+    # decided: -0.0 and 0.0 are the same cell (a sheet shows both as 0, and they compare equal)
+    assert _fingerprint_of([["v"], [-0.0], [2.0]]) == _fingerprint_of([["v"], [0.0], [2.0]])
+    assert _fingerprint_of([["v", "t"], [-0.0, "a"]]) == _fingerprint_of([["v", "t"], [0, "a"]])
+    # an empty cell, an empty text and NaN are the same blank, in a column of numbers and in one of texts
+    blanks = [_fingerprint_of([["v", "t"], [1.0, "a"], [blank, "b"]]) for blank in (None, "", "  ", float("nan"))]
+    assert len(set(blanks)) == 1
+    assert len({_fingerprint_of([["t", "v"], ["a", 1.0], [blank, 2.0]]) for blank in (None, "", float("nan"))}) == 1
+
+
+def test_a_block_keeps_its_scheme_an_old_fingerprint_is_compared_in_the_old_scheme():
+    table = cells.read_sheet_table([["x", "label"], [1.5, "a"], [2.0, "b"]])
+    every = np.ones(2, dtype=bool)
+    new, old = cells.fingerprint(table, ["x", "label"], every), cells.first_fingerprint(table, ["x", "label"], every)
+    assert new.startswith(cells.FINGERPRINT_SCHEME) and len(old) == 64 and new[len(cells.FINGERPRINT_SCHEME):] != old
+    assert cells.fingerprint_matches(table, ["x", "label"], every, new) and cells.fingerprint_matches(table, ["x", "label"], every, old)
+    other = cells.read_sheet_table([["x", "label"], [1.5, "a"], [2.5, "b"]])
+    assert not cells.fingerprint_matches(other, ["x", "label"], every, new) and not cells.fingerprint_matches(other, ["x", "label"], every, old)
+    for stored in ("not recorded", "", old.upper(), "sha256v2:" + old[:-1]):
+        assert not cells.fingerprint_matches(table, ["x", "label"], every, stored)
+
+
+def test_about_compares_a_block_with_a_first_scheme_fingerprint_in_that_scheme():
+    import dataclasses
+
+    from sheetnet import functions
+    from sheetnet.block import decode_block, encode_block
+
+    rng = np.random.default_rng(4)
+    grid: list[list[object]] = [["x", "shade", "y"]] + [[float(x), "dark" if i % 2 else "light", float(2 * x)] for i, x in enumerate(rng.normal(size=40))]
+    block = functions.train(grid, "y", "2", "seed=0; epochs=20")
+    model, info = decode_block(block)
+    assert info.fingerprint.startswith("sha256v2:")  # new blocks store the byte scheme
+    table = cells.read_sheet_table(grid)
+    first = cells.first_fingerprint(table, ["x", "shade", "y"], np.ones(40, dtype=bool))
+    old_block = encode_block(model, dataclasses.replace(info, fingerprint=first))  # as a block written before the byte scheme
+    assert decode_block(old_block)[1].fingerprint == first
+
+    def since_training(model_block: list[list[object]], cells_now: list[list[object]]) -> str:
+        return dict(map(tuple, functions.about(model_block, cells_now)))["data since training"]
+
+    edited = [list(row) for row in grid]
+    edited[5][0] = edited[5][0] + 0.5
+    retexted = [list(row) for row in grid]
+    retexted[8][1] = "pale"
+    for stored in (block, old_block):
+        assert since_training(stored, grid) == "unchanged"
+        assert since_training(stored, [list(row) for row in grid]) == "unchanged"
+        assert since_training(stored, edited).startswith("changed")
+        assert since_training(stored, retexted).startswith("changed")
+        assert dict(map(tuple, functions.score(stored, grid)))["rows scored"] == functions.ROWS_SCORED_TRAINING
+        assert dict(map(tuple, functions.score(stored, edited)))["rows scored"] == functions.ROWS_SCORED_UNSPLIT
