@@ -15,6 +15,7 @@ Hierarchy::
     │   ├── SizeError             the work would exceed a size limit (sheetnet.limits)
     │   └── SplitError            a holdout or fold split cannot be made
     ├── SettingError (ValueError) a setting name or value is not accepted
+    │   └── ClusterError          the Dask cluster cannot be used (sheetnet.parallel: not installed, not reachable)
     ├── TrainingError             training diverged (the loss became infinite or not a number)
     └── ModelError                a fitted model cannot answer the request
 

@@ -9,6 +9,12 @@ scikit-learn's conventions where that library's tools rely on them: a
 one-dimensional X is refused, column names seen in training must come back
 in the same order, a column-vector y gets a `DataConversionWarning`.
 
+Row weights (``sample_weight``) are not supported: the engine's loss weighs
+every training row alike. ``fit`` has no ``sample_weight`` parameter, so
+scikit-learn's tools (``has_fit_parameter``, its sample-weight checks,
+metadata routing) see that it takes none, and a weight passed anyway is
+refused in words rather than ignored.
+
 >>> from sheetnet.estimators import SheetnetRegressor
 >>> SheetnetRegressor(hidden=(8,), epochs=200).fit(X, y).predict(X_new)   # doctest: +SKIP
 
@@ -110,8 +116,12 @@ class _SheetnetEstimator(BaseEstimator):
         self.precision = precision
 
     # --- training ------------------------------------------------------------------------
-    def fit(self, X: Any, y: Any) -> "_SheetnetEstimator":
-        """Train on rows ``X`` (shape (rows, columns)) to predict ``y`` (one value per row); returns the estimator."""
+    def fit(self, X: Any, y: Any, **fit_params: Any) -> "_SheetnetEstimator":
+        """Train on rows ``X`` (shape (rows, columns)) to predict ``y`` (one value per row); returns the estimator.
+
+        Takes no ``sample_weight`` (every row weighs the same) and no other fit parameter: any is refused.
+        """
+        _refuse_fit_params(fit_params)
         target = self._target(y)
         table = self._table(X, reset=True)
         if len(target) != table.n_rows:
@@ -213,8 +223,8 @@ class SheetnetClassifier(ClassifierMixin, _SheetnetEstimator):
 
     _task = "multiclass"  # two classes become one logistic output by themselves
 
-    def fit(self, X: Any, y: Any) -> "SheetnetClassifier":
-        super().fit(X, y)
+    def fit(self, X: Any, y: Any, **fit_params: Any) -> "SheetnetClassifier":
+        super().fit(X, y, **fit_params)
         self.classes_ = np.asarray(self.model_.classes, dtype=object if _mixed_or_text(self.model_.classes) else None)
         return self
 
@@ -233,6 +243,16 @@ class SheetnetClassifier(ClassifierMixin, _SheetnetEstimator):
         """Class probabilities, shape (rows, classes), columns in the order of ``classes_``."""
         model = self._model()
         return model.predict_proba(self._rows(X))
+
+
+def _refuse_fit_params(fit_params: dict[str, Any]) -> None:
+    if "sample_weight" in fit_params:
+        raise InputError(
+            "sample_weight is not supported: sheetnet weighs every training row alike; leave sample_weight out, "
+            "or give a row a whole-number weight by repeating it in X and y"
+        )
+    if fit_params:
+        raise InputError(f"fit takes X and y only, but was also given {', '.join(sorted(fit_params))}; leave them out")
 
 
 def _one_dimensional(X: Any) -> bool:

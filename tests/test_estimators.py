@@ -14,12 +14,15 @@ import warnings
 import numpy as np
 import pandas as pd
 import pytest
+from sklearn.base import is_classifier
+from sklearn.compose import ColumnTransformer
 from sklearn.exceptions import DataConversionWarning, NotFittedError
 from sklearn.inspection import partial_dependence, permutation_importance
-from sklearn.model_selection import GridSearchCV, KFold, cross_val_score
+from sklearn.model_selection import GridSearchCV, KFold, StratifiedKFold, cross_val_score
 from sklearn.pipeline import Pipeline
-from sklearn.preprocessing import StandardScaler
-from sklearn.utils.estimator_checks import parametrize_with_checks
+from sklearn.preprocessing import FunctionTransformer, OneHotEncoder, StandardScaler
+from sklearn.utils.estimator_checks import estimator_checks_generator, parametrize_with_checks
+from sklearn.utils.validation import has_fit_parameter
 
 import sheetnet
 from sheetnet import errors
@@ -99,16 +102,50 @@ def test_in_a_pipeline_the_estimator_trains_on_the_scaled_rows():
     pipeline = Pipeline([("scale", StandardScaler()), ("net", SheetnetRegressor(hidden=(3,), **QUICK))]).fit(X, y)
     scaled = StandardScaler().fit_transform(X)
     direct = sheetnet.fit(scaled, y, hidden=(3,), task="regression", **QUICK)
-    np.testing.assert_allclose(pipeline.predict(X), direct.predict(scaled), rtol=1e-12)
+    np.testing.assert_array_equal(pipeline.predict(X), direct.predict(scaled))
+    assert pipeline.score(X, y) == pytest.approx(sheetnet.score(direct, scaled, y)["r2"], rel=1e-12)
 
 
-def test_grid_search_picks_the_network_that_cross_validates_best():
+def test_a_column_transformer_hands_the_estimator_a_table_with_its_text_column():
     frame, y = _shipments()
-    search = GridSearchCV(SheetnetRegressor(**QUICK), {"hidden": [(), (6,)], "decay": [1e-4, 50.0]}, cv=3).fit(frame, y)
-    assert search.best_params_["decay"] == 1e-4  # a decay of 50 flattens the network (common practice, no source)
-    assert len(search.cv_results_["mean_test_score"]) == 4
-    refit = SheetnetRegressor(**{**QUICK, **search.best_params_}).fit(frame, y)
-    np.testing.assert_array_equal(search.predict(frame), refit.predict(frame))
+    columns = ColumnTransformer(
+        [("hours", FunctionTransformer(np.log1p, feature_names_out="one-to-one"), ["transit_hours"]),
+         ("kept", "passthrough", ["door_openings", "packaging"])],
+        verbose_feature_names_out=False,
+    ).set_output(transform="pandas")
+    pipeline = Pipeline([("columns", columns), ("net", SheetnetRegressor(hidden=(3,), **QUICK))]).fit(frame, y)
+    assert pipeline[-1].feature_names_in_.tolist() == ["transit_hours", "door_openings", "packaging"]
+    assert pipeline[-1].model_.preparation.encoded_names()[2:] == ("packaging=dry ice", "packaging=foam", "packaging=gel pack")
+    by_hand = frame.assign(transit_hours=np.log1p(frame["transit_hours"]))
+    direct = sheetnet.fit(by_hand, y, hidden=(3,), task="regression", **QUICK)
+    np.testing.assert_array_equal(pipeline.predict(frame), direct.predict(by_hand))
+    # the same text column one-hot encoded by scikit-learn instead: the network gets numbers only
+    encoded = ColumnTransformer([("packaging", OneHotEncoder(sparse_output=False), ["packaging"])], remainder="passthrough")
+    numeric = Pipeline([("columns", encoded), ("net", SheetnetRegressor(hidden=(3,), **QUICK))]).fit(frame, y)
+    assert numeric[-1].n_features_in_ == 5 and numeric[-1].model_.preparation.all_numeric
+    assert numeric.score(frame, y) > 0.9
+
+
+def _product_table(rows: int = 120) -> tuple[np.ndarray, np.ndarray]:
+    """y = x1 * x2: no straight line (no hidden layer) can follow it, and a heavy decay flattens any network."""
+    rng = np.random.default_rng(8)
+    X = rng.uniform(-1, 1, size=(rows, 2))
+    return X, X[:, 0] * X[:, 1] + 0.01 * rng.normal(size=rows)
+
+
+def test_grid_search_picks_the_network_the_table_was_made_for():
+    X, y = _product_table()
+    grid = {"hidden": [(), (6,)], "decay": [1e-4, 50.0]}
+    search = GridSearchCV(SheetnetRegressor(**QUICK), grid, cv=3).fit(X, y)
+    assert search.best_params_ == {"hidden": (6,), "decay": 1e-4}  # by construction: a product needs a hidden layer
+    means = dict(zip(map(str, search.cv_results_["params"]), search.cv_results_["mean_test_score"]))
+    assert means[str({"decay": 1e-4, "hidden": (6,)})] > 0.8 and means[str({"decay": 1e-4, "hidden": ()})] < 0.1
+    best = search.best_index_  # its fold scores are those of the same folds trained by hand (KFold(3), no shuffle)
+    for number, (train, test) in enumerate(KFold(3).split(X)):
+        model = sheetnet.fit(X[train], y[train], hidden=(6,), task="regression", **QUICK)
+        assert search.cv_results_[f"split{number}_test_score"][best] == pytest.approx(sheetnet.score(model, X[test], y[test])["r2"], rel=1e-12)
+    refit = SheetnetRegressor(**{**QUICK, **search.best_params_}).fit(X, y)
+    np.testing.assert_array_equal(search.predict(X), refit.predict(X))
 
 
 def test_cross_val_score_equals_folds_trained_by_hand():
@@ -120,17 +157,67 @@ def test_cross_val_score_equals_folds_trained_by_hand():
         model = sheetnet.fit(frame.iloc[train], y[train], hidden=(3,), task="regression", **QUICK)
         by_hand.append(sheetnet.score(model, frame.iloc[test], y[test])["r2"])
     np.testing.assert_allclose(scores, by_hand, rtol=1e-12)
+    labels = np.where(y > np.median(y), "spoiled", "fine")  # the classifier: accuracy per stratified fold
+    accuracy = cross_val_score(SheetnetClassifier(hidden=(3,), **QUICK), frame, labels, cv=3)
+    by_hand = []
+    for train, test in StratifiedKFold(3).split(frame, labels):
+        model = sheetnet.fit(frame.iloc[train], labels[train], hidden=(3,), task="multiclass", **QUICK)
+        by_hand.append(np.mean(model.predict(frame.iloc[test]) == labels[test]))
+    assert accuracy.tolist() == by_hand
 
 
-def test_inspection_ranks_the_column_that_matters_first():
+def test_permutation_importance_is_the_score_lost_by_shuffling_each_column():
+    # reference: scikit-learn's definition (sklearn/inspection/_permutation_importance.py): one seed is drawn from
+    # random_state, each column's rows are shuffled by a RandomState of that seed, importance = score before - after
     rng = np.random.default_rng(5)
     X = rng.normal(size=(150, 3))
-    y = 3 * X[:, 1] + 0.1 * rng.normal(size=150)
+    y = 3 * X[:, 1] + 0.1 * rng.normal(size=150)  # columns 1 and 3 are noise
     estimator = SheetnetRegressor(hidden=(3,), **QUICK).fit(X, y)
-    importance = permutation_importance(estimator, X, y, n_repeats=3, random_state=0)
-    assert importance.importances_mean.argmax() == 1
-    dependence = partial_dependence(estimator, X, [1], grid_resolution=5)
-    assert np.all(np.diff(dependence["average"][0]) > 0)  # y rises with column 2
+    importance = permutation_importance(estimator, X, y, n_repeats=1, random_state=0)
+    seed = np.random.RandomState(0).randint(np.iinfo(np.int32).max + 1)
+    baseline = estimator.score(X, y)
+    for column in range(3):
+        order = np.arange(150)
+        np.random.RandomState(seed).shuffle(order)
+        shuffled = X.copy()
+        shuffled[:, column] = X[order, column]
+        assert importance.importances[column, 0] == pytest.approx(baseline - estimator.score(shuffled, y), rel=1e-12, abs=1e-15)
+    assert importance.importances_mean[1] > 1.0 and np.abs(importance.importances_mean[[0, 2]]).max() < 0.05
+
+
+def test_partial_dependence_is_the_average_prediction_over_its_grid():
+    # reference: scikit-learn's brute-force partial dependence (Friedman 2001): set the column to each grid value in
+    # every row and average the predictions
+    frame, y = _shipments()
+    estimator = SheetnetRegressor(hidden=(4,), **QUICK).fit(frame, y)
+    hours = partial_dependence(estimator, frame, ["transit_hours"], grid_resolution=5, kind="average")
+    by_hand = [estimator.predict(frame.assign(transit_hours=value)).mean() for value in hours["grid_values"][0]]
+    np.testing.assert_allclose(hours["average"][0], by_hand, rtol=1e-12)
+    assert len(by_hand) == 5 and by_hand[-1] - by_hand[0] > 2.5  # the table rises 0.05 an hour over about 76 hours
+    packaging = partial_dependence(estimator, frame, ["packaging"], categorical_features=["packaging"], kind="average")
+    assert packaging["grid_values"][0].tolist() == ["dry ice", "foam", "gel pack"]
+    by_hand = [estimator.predict(frame.assign(packaging=value)).mean() for value in ["dry ice", "foam", "gel pack"]]
+    np.testing.assert_allclose(packaging["average"][0], by_hand, rtol=1e-12)
+    assert by_hand[1] - by_hand[0] == pytest.approx(2.0, abs=0.4)  # dry ice takes 2 off the score in the invented table
+
+
+def test_row_weights_are_refused_in_words_and_scikit_learn_sees_none():
+    frame, y = _shipments()
+    weights = np.ones(len(y))
+    for estimator in (SheetnetRegressor(hidden=(2,), **QUICK), SheetnetClassifier(hidden=(2,), **QUICK)):
+        assert not has_fit_parameter(estimator, "sample_weight")
+        checks = {getattr(check, "func", check).__name__ for _, check in estimator_checks_generator(estimator, mark="skip")}
+        weight_checks = {c for c in checks if "sample_weight" in c}
+        # the one such check scikit-learn runs on an estimator without the parameter: fitting with weights is refused, naming them
+        assert "check_estimators_dtypes" in checks and weight_checks == ({"check_classifiers_one_label_sample_weights"} if is_classifier(estimator) else set())
+    with pytest.raises(errors.InputError, match="sample_weight is not supported: sheetnet weighs every training row alike"):
+        SheetnetRegressor(hidden=(2,), **QUICK).fit(frame, y, sample_weight=weights)
+    with pytest.raises(errors.InputError, match="sample_weight is not supported"):
+        Pipeline([("net", SheetnetRegressor(hidden=(2,), **QUICK))]).fit(frame, y, net__sample_weight=weights)
+    with pytest.raises(errors.InputError, match="sample_weight is not supported"):
+        GridSearchCV(SheetnetRegressor(hidden=(2,), **QUICK), {"decay": [1e-4]}, cv=2, error_score="raise").fit(frame, y, sample_weight=weights)
+    with pytest.raises(errors.InputError, match="fit takes X and y only, but was also given check_input; leave them out"):
+        SheetnetClassifier(hidden=(2,), **QUICK).fit(frame, y > 1, check_input=False)
 
 
 def test_a_fitted_estimator_pickles_and_predicts_the_same():
