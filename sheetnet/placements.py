@@ -140,6 +140,22 @@ class ColumnWidth:
     column: int
     characters: float
 
+    @property
+    def pixels(self) -> int:
+        """On screen at 96 dpi: ECMA-376 Part 1, 18.3.1.13 (col), characters of the default font's
+        widest digit (7 pixels in Excel's default font) plus 5 pixels of margin."""
+        return round(7 * self.characters + 5)
+
+    @property
+    def points(self) -> float:
+        """Office.js' unit (Range.format.columnWidth): 3/4 of a pixel at 96 dpi."""
+        return self.pixels * 0.75
+
+    @property
+    def hundredths_mm(self) -> int:
+        """Calc's unit (a column's Width): 1/100 mm."""
+        return round(self.pixels * 2540 / 96)
+
 
 @dataclass(frozen=True)
 class NamePlacement:
@@ -208,7 +224,9 @@ class Placements:
                  **{host: f.code(host) for host in HOSTS}}
                 for f in self.formats
             ],
-            "widths": [{"sheet": w.sheet, "column": w.column, "characters": w.characters} for w in self.widths],
+            "widths": [
+                {"sheet": w.sheet, "column": w.column, "characters": w.characters, "points": w.points, "calc": w.hundredths_mm} for w in self.widths
+            ],
             "owned_marks": list(OWNED_MARKS),
             "not_ours": NOT_OURS,  # '{title}' stands for the sheet's title
         }

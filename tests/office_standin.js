@@ -10,6 +10,10 @@
 //   "VeryHidden" sheet (the reference says to make it hidden or visible first);
 // - Range.values: a string starting with "=", "+" or "-" is taken as a formula; null leaves a cell
 //   unchanged (the reference's numberFormat example writes nulls); "" empties it;
+// - Range.numberFormat: a grid of Excel format codes, one per cell, kept with the cell (a code is
+//   recorded, never applied to what a cell shows);
+// - Range.format (a RangeFormat): columnWidth, in points, sets the width of every column of the range;
+//   it reads back as that width when the range's columns agree, else null (RangeFormat.columnWidth);
 // Beyond the API reference (Excel's own behaviour, from memory of Microsoft Support's pages on
 // formatting numbers as text and on keeping leading zeros):
 // - a cell whose number format is Text ("@") keeps what is written as text, even "=..." or "007";
@@ -180,6 +184,10 @@
       return this.read("address");
     }
 
+    get format() {
+      return new RangeFormat(this);
+    }
+
     fill(property) {
       const sheet = this.sheet();
       const { top, left, rows, columns } = this.area;
@@ -191,6 +199,34 @@
         const first = `${columnLetters(left + 1)}${top + 1}`, last = `${columnLetters(left + columns)}${top + rows}`;
         this.loaded.address = `${sheet.name}!${first}${rows * columns > 1 ? `:${last}` : ""}`;
       } else throw new OfficeError("InvalidArgument", `the stand-in does not model Range.${property}`);
+    }
+  }
+
+  class RangeFormat extends ClientObject {
+    constructor(range) {
+      super(range.context);
+      this.range = range;
+    }
+
+    set columnWidth(points) {
+      this.queue(() => {
+        if (typeof points !== "number" || !(points >= 0)) throw new OfficeError("InvalidArgument", "columnWidth is a number of points");
+        const sheet = this.range.sheet();
+        sheet.columnWidths = sheet.columnWidths || new Map();
+        for (let c = this.range.area.left; c < this.range.area.left + this.range.area.columns; c++) sheet.columnWidths.set(c, points);
+      });
+    }
+
+    get columnWidth() {
+      return this.read("columnWidth");
+    }
+
+    fill(property) {
+      if (property !== "columnWidth") throw new OfficeError("InvalidArgument", `the stand-in does not model RangeFormat.${property}`);
+      const sheet = this.range.sheet();
+      const { left, columns } = this.range.area;
+      const widths = Array.from({ length: columns }, (_, j) => (sheet.columnWidths && sheet.columnWidths.get(left + j)) || 48);  // 48 pt: Excel's default
+      this.loaded.columnWidth = widths.every((w) => w === widths[0]) ? widths[0] : null;
     }
   }
 
@@ -444,6 +480,7 @@
             const [r, c] = key.split(",").map(Number);
             return [`${columnLetters(c + 1)}${r + 1}`, cell];
           })),
+          columnWidths: Object.fromEntries([...(sheet.columnWidths || new Map()).entries()].map(([c, points]) => [columnLetters(c + 1), points])),
         })),
         names: state.names.map(({ name, sheet, address }) => ({ name, sheet, address })),
       };

@@ -19,7 +19,7 @@ from local_server import serving
 from openpyxl.utils.cell import column_index_from_string
 
 from sheetnet import functions, server, service
-from sheetnet.placements import column_letters
+from sheetnet.placements import column_letters, not_ours_message
 from sheetnet.registry import REGISTRY
 
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
@@ -104,7 +104,8 @@ def _expected_workbook(before, placements):
     """A plain reference of the documented order (sheetnet/placements.py) on the stand-in's snapshot."""
     sheets = [s for s in before["sheets"] if not any(same_title(s["name"], d) for d in placements["drop_sheets"])]
     names = [n for n in before["names"] if not any(same_title(n["name"], d) for d in placements["drop_names"])]
-    sheets += [{"name": p["title"], "visibility": VISIBILITY[p["visibility"]], "cells": {}} for p in placements["sheets"]]
+    sheets = [{**s, "columnWidths": s.get("columnWidths", {})} for s in sheets]
+    sheets += [{"name": p["title"], "visibility": VISIBILITY[p["visibility"]], "cells": {}, "columnWidths": {}} for p in placements["sheets"]]
     by_name = {s["name"]: s for s in sheets}
     for block in placements["cells"]:
         for i, row in enumerate(block["values"]):
@@ -119,6 +120,13 @@ def _expected_workbook(before, placements):
                     cell = {"kind": "number", "value": value, "numberFormat": "General"}
                 by_name[block["sheet"]]["cells"][f"{column_letters(block['left'] + j)}{block['top'] + i}"] = cell
     assert placements["formulas"] == []  # a model's placements write no formulas (the stand-in does not calculate)
+    for style in placements["formats"]:  # the format code Excel knows, over the placement's rectangle
+        for r in range(style["top"], style["bottom"] + 1):
+            for c in range(style["left"], style["right"] + 1):
+                cell = by_name[style["sheet"]]["cells"].setdefault(f"{column_letters(c)}{r}", {"kind": "empty"})
+                cell["numberFormat"] = style["excel"]
+    for width in placements["widths"]:
+        by_name[width["sheet"]]["columnWidths"][column_letters(width["column"])] = width["points"]
     for n in placements["names"]:
         address = f"${column_letters(n['left'])}${n['top']}:${column_letters(n['right'])}${n['bottom']}"
         names.append({"name": n["name"], "sheet": n["sheet"], "address": address})
@@ -135,7 +143,7 @@ def test_the_pane_inside_excel_stores_exactly_the_services_placements(app, base_
         "sheets": [
             {"name": "Lots", "rows": table, "textFormat": True},
             {"name": "Notes", "rows": [["keep this note"]]},
-            {"name": "sheetnet_LOTS", "visibility": "VeryHidden", "rows": [["an older model block"]]},  # replaced
+            {"name": "sheetnet_LOTS", "visibility": "VeryHidden", "rows": [["sheetnet model block"], ["an older model"]]},  # replaced
         ],
         "names": [
             {"name": "rates", "sheet": "Notes", "address": "$A$1:$A$1"},
@@ -183,6 +191,10 @@ def test_the_pane_inside_excel_stores_exactly_the_services_placements(app, base_
     defined = {n["name"] for n in after["names"]}
     assert {"rates", "snf_other_m1_b1", "lots", "snf_lots_classes", "snf_lots_cats5", "snf_lots_m1_W1n"} <= defined
     assert "Lots" not in defined and len(defined) == 2 + len(placements["names"])
+    card = next(sheet for sheet in after["sheets"] if sheet["name"] == "sn card lots")
+    accuracy_row = next(key[1:] for key, cell in card["cells"].items() if key.startswith("A") and cell.get("value") == "Accuracy")
+    assert card["cells"][f"B{accuracy_row}"]["kind"] == "number" and card["cells"][f"B{accuracy_row}"]["numberFormat"] == "0.0%"
+    assert card["columnWidths"]["A"] > 48  # wider than Excel's default, in points
     model_cells = next(sheet["cells"] for sheet in after["sheets"] if sheet["name"] == "sheetnet_lots")
     assert model_cells["A1"] == {"kind": "text", "value": "sheetnet model block", "numberFormat": "@"}
     for text in (LINK_LABEL, FORMULA_LIKE_CATEGORY):  # in the block and in a native-formula constant, as text
@@ -231,3 +243,33 @@ def test_names_from_data_show_as_text_and_run_nothing(app, base_url):
     assert HOSTILE in message and "no column" in message
     assert images == 0 and pwned is None and errors == []
     assert "script-src 'self' https://appsforoffice.microsoft.com" in policy and "object-src 'none'" in policy
+
+
+def test_the_pane_refuses_to_replace_a_sheet_it_did_not_write(app, base_url):
+    lots = sheetnet_demo.coffee_lot_grades(rows=60, seed=3).drop(columns="lot")
+    table = [list(lots.columns)] + lots.astype(object).values.tolist()
+    seed = {
+        "sheets": [{"name": "Lots", "rows": table}, {"name": "SN card lots", "rows": [["my own notes"]]}],
+        "selection": {"sheet": "Lots", "address": f"A1:{column_letters(len(table[0]))}{len(table)}"},
+    }
+    with playwright.sync_playwright() as driver:
+        browser = driver.chromium.launch(executable_path=CHROMIUM, args=FLAGS)
+        page = browser.new_page()
+        errors = []
+        page.on("pageerror", lambda error: errors.append(str(error)))
+        page.route("https://**/*", lambda route: route.abort())
+        page.route(OFFICE_SCRIPT, lambda route: route.fulfill(body=STAND_IN.read_text(), content_type="text/javascript"))
+        page.goto(f"{base_url}/addin/taskpane.html#token={TOKEN}")
+        page.wait_for_function("() => document.getElementById('connection').textContent === 'connected'", timeout=20000)
+        page.evaluate("seed => sheetnetStandIn.seed(seed)", seed)
+        before = page.evaluate("sheetnetStandIn.snapshot()")
+        page.fill("#target", "grade")
+        page.fill("#model-name", "lots")
+        page.fill("#settings", "epochs=30")
+        page.click("#train")
+        page.wait_for_function("() => document.getElementById('message').className === 'error'", timeout=90000)
+        message = page.inner_text("#message")
+        after = page.evaluate("sheetnetStandIn.snapshot()")
+        browser.close()
+    assert message == not_ours_message("SN card lots")  # the words of every other door
+    assert after == before and errors == []  # nothing dropped, nothing written

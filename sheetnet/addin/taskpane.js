@@ -88,6 +88,13 @@ async function applyPlacements(placements) {
     const oldNames = placements.drop_names.map((name) => workbook.names.getItemOrNullObject(name));
     const oldSheets = placements.drop_sheets.map((title) => workbook.worksheets.getItemOrNullObject(title));
     await context.sync();
+    // 0. nothing is dropped unless sheetnet wrote every sheet that would go (its A1 holds one of our marks)
+    const present = oldSheets.filter((sheet) => !sheet.isNullObject);
+    const firstCells = present.map((sheet) => sheet.load("name").getRange("A1").load("values"));
+    await context.sync();
+    present.forEach((sheet, i) => {
+      if (!placements.owned_marks.includes(firstCells[i].values[0][0])) throw new Error(placements.not_ours.replace("{title}", sheet.name));
+    });
     oldNames.forEach((item) => { if (!item.isNullObject) item.delete(); });
     oldSheets.forEach((sheet) => {
       if (sheet.isNullObject) return;
@@ -121,6 +128,14 @@ async function applyPlacements(placements) {
       const range = area(block.sheet, block.top, block.left, formulas.length, formulas[0].length);
       range.numberFormat = formulas.map((row) => row.map(() => "General"));  // a Text cell would keep the formula as text
       range.formulas = formulas;
+    }
+    // then our number formats (Excel's code for each) and column widths (in points), on our own sheets only
+    for (const style of placements.formats || []) {
+      const height = style.bottom - style.top + 1, width = style.right - style.left + 1;
+      area(style.sheet, style.top, style.left, height, width).numberFormat = Array.from({ length: height }, () => Array(width).fill(style.excel));
+    }
+    for (const width of placements.widths || []) {
+      area(width.sheet, 1, width.column, 1, 1).format.columnWidth = width.points;
     }
     // 4. workbook-level defined names
     for (const name of placements.names) {
