@@ -14,6 +14,15 @@ then trained on every training row with that decay until the training loss
 stalls. On the benchmark's small tables this lifted, for example, diabetes
 R^2 from 0.46 to 0.51 and make_classification (750 training rows) accuracy
 from 0.77 to 0.89 (tests/benchmarks/vs_reference.py).
+
+When ``hidden`` is also left at its default (None: `defaults.DEFAULT_HIDDEN`),
+the same cross-validation weighs the same preparation with no hidden layer
+(a linear, logistic or softmax regression, each decay of `DECAY_CHOICES`) and
+keeps it when its loss is within one standard error of the best network's
+(the one-standard-error rule). The model's settings then record the choice:
+``decay`` as used and ``hidden_chosen`` ("none" or the widths kept, like
+"4"), which ABOUT and the model card list with the other settings. Hidden
+layers given explicitly are always kept.
 """
 
 from __future__ import annotations
@@ -33,6 +42,7 @@ from .defaults import (
     AUTO_VALIDATION_SHARE,
     DECAY_CHOICES,
     DEFAULT_DECAY,
+    DEFAULT_HIDDEN,
     FLOAT32_ROW_LIMIT,
     LBFGS_ROW_LIMIT,
     MIN_ROWS,
@@ -134,77 +144,118 @@ def _stopping_rules(settings: dict[str, Any]) -> StoppingRules:
 
 
 @dataclass(frozen=True)
-class DecayChoice:
-    """What the inner cross-validation found: the decay kept, and the mean validation loss of each decay tried."""
+class Candidate:
+    """One network weighed by the inner cross-validation: hidden layer widths (``()``: none) and weight decay."""
 
+    hidden: tuple[int, ...]
     decay: float
-    losses: tuple[float, ...]  # one per `DECAY_CHOICES`, in its order
 
 
-def fold_loss(
+@dataclass(frozen=True)
+class CrossValidationChoice:
+    """What the inner cross-validation kept, and each candidate's mean validation loss (weighted by fold rows)."""
+
+    kept: Candidate
+    candidates: tuple[Candidate, ...]
+    losses: tuple[float, ...]  # one per candidate, in its order
+
+    @property
+    def decay(self) -> float:
+        return self.kept.decay
+
+
+def candidates_of(hidden: tuple[int, ...], linear: bool) -> tuple[Candidate, ...]:
+    """The networks the inner cross-validation weighs: ``hidden`` with each of `DECAY_CHOICES`, then with ``linear``
+    the same preparation with no hidden layer (a linear, logistic or softmax regression) with each decay."""
+    shapes = (hidden, ()) if linear and hidden else (hidden,)
+    return tuple(Candidate(shape, decay) for shape in shapes for decay in DECAY_CHOICES)
+
+
+def fold_losses(
     inputs: np.ndarray,
     outputs: np.ndarray,
-    sizes: tuple[int, ...],
+    ends: tuple[int, int],
     activation: str,
     head: str,
     settings: dict[str, Any],
     plan: Plan,
-    theta: np.ndarray,
+    starts: dict[tuple[int, ...], np.ndarray],
+    candidates: tuple[Candidate, ...],
     train_rows: np.ndarray,
     test_rows: np.ndarray,
-    decay: float,
     seed: int,
-) -> float:
-    """Best mean loss on ``test_rows`` of a network trained on ``train_rows`` with ``decay``, stopping early on the test rows.
+) -> list[float]:
+    """Best mean loss on ``test_rows`` of each candidate trained on ``train_rows``, stopping early on the test rows.
 
-    Infinite when training diverged: a decay whose steps blow up is never kept.
+    Every candidate of one shape starts from that shape's weights in ``starts``.
+    A loss is infinite when training diverged: such a candidate is never kept.
     """
     dtype = np.float32 if plan.dtype == "float32" else np.float64
     optimizer = optimizers.OPTIMIZERS[plan.algorithm]
-    train = network.Objective(
-        sizes, activation, head, inputs[train_rows], outputs[train_rows], decay, dtype,
-        batch_rows=plan.batch_rows if optimizer.mini_batches else None,
-    )
-    check = network.Objective(sizes, activation, head, inputs[test_rows], outputs[test_rows], 0.0, dtype)
-    monitor = Monitor(_stopping_rules(settings), check.data_loss)
     chosen = {**settings, "rate": plan.rate, "batch": plan.batch_rows}
-    with network.one_blas_thread():
-        _, reason = optimizers.run(plan.algorithm, train, theta, monitor, np.random.default_rng(seed), chosen)
-    curve = np.asarray(monitor.validation_curve)
-    return float(curve.min()) if reason != "diverged" and np.isfinite(curve).all() else np.inf
+    found = []
+    for candidate in candidates:
+        sizes = (ends[0], *candidate.hidden, ends[1])
+        train = network.Objective(
+            sizes, activation, head, inputs[train_rows], outputs[train_rows], candidate.decay, dtype,
+            batch_rows=plan.batch_rows if optimizer.mini_batches else None,
+        )
+        check = network.Objective(sizes, activation, head, inputs[test_rows], outputs[test_rows], 0.0, dtype)
+        monitor = Monitor(_stopping_rules(settings), check.data_loss)
+        with network.one_blas_thread():
+            _, reason = optimizers.run(plan.algorithm, train, starts[candidate.hidden], monitor, np.random.default_rng(seed), chosen)
+        curve = np.asarray(monitor.validation_curve)
+        found.append(float(curve.min()) if reason != "diverged" and np.isfinite(curve).all() else np.inf)
+    return found
 
 
 def choose_decay(
     inputs: np.ndarray,
     outputs: np.ndarray,
     labels: np.ndarray | None,
-    sizes: tuple[int, ...],
+    ends: tuple[int, int],
+    candidates: tuple[Candidate, ...],
     activation: str,
     head: str,
     settings: dict[str, Any],
     plan: Plan,
-    theta: np.ndarray,
     rng: np.random.Generator,
-) -> DecayChoice:
-    """Pick the weight decay by ``plan.folds``-fold cross-validation on the training rows.
+) -> CrossValidationChoice:
+    """Pick the weight decay (and, when ``candidates`` hold two shapes, the hidden layers) by ``plan.folds``-fold
+    cross-validation on the training rows.
 
-    Every decay of `DECAY_CHOICES` is trained on each fold's other rows from the
-    same starting weights ``theta``, watching the fold's rows for early stopping
-    (`fold_loss`); the decay with the lowest mean best validation loss (weighted
-    by fold rows) wins, the smaller decay on a tie. The fold fits are
-    independent jobs, run where `sheetnet.parallel.run_jobs` finds them fastest.
+    Each candidate is trained on each fold's other rows from its shape's
+    starting weights (drawn once from ``rng``), watching the fold's rows for
+    early stopping (`fold_losses`); the candidate with the lowest mean best
+    validation loss (weighted by fold rows) wins, the earlier one on a tie.
+    When it has hidden layers and a candidate without any is within one
+    standard error of it (the spread of the winner's fold losses over
+    sqrt(folds)), the simpler one is kept instead: the one-standard-error rule
+    (Breiman, Friedman, Olshen & Stone 1984, Classification and Regression
+    Trees; Hastie, Tibshirani & Friedman 2009, The Elements of Statistical
+    Learning, section 7.10; both cited from memory). The folds are independent jobs, run where
+    `sheetnet.parallel.run_jobs` finds them fastest.
     """
+    shapes = dict.fromkeys(c.hidden for c in candidates)
+    starts = {shape: network.initial_parameters((ends[0], *shape, ends[1]), activation, rng) for shape in shapes}
     folds = _inner_folds(len(inputs), plan.folds, rng, labels)
     seed = int(rng.integers(2**32))
     jobs = [
-        (inputs, outputs, sizes, activation, head, settings, plan, theta, train_rows, test_rows, decay, seed)
-        for decay in DECAY_CHOICES
+        (inputs, outputs, ends, activation, head, settings, plan, starts, candidates, train_rows, test_rows, seed)
         for train_rows, test_rows in folds
     ]
-    losses = np.array(run_jobs(fold_loss, jobs, settings["workers"], "decay folds")).reshape(len(DECAY_CHOICES), len(folds))
+    losses = np.array(run_jobs(fold_losses, jobs, settings["workers"], "decay folds")).T  # (candidates, folds)
     shares = np.array([len(test_rows) for _, test_rows in folds]) / len(inputs)
     mean_losses = losses @ shares
-    return DecayChoice(DECAY_CHOICES[int(np.argmin(mean_losses))], tuple(float(v) for v in mean_losses))
+    best = int(np.argmin(mean_losses))
+    kept = candidates[best]
+    simple = [i for i, c in enumerate(candidates) if not c.hidden]
+    if kept.hidden and simple and np.isfinite(mean_losses[best]):
+        standard_error = float(np.std(losses[best], ddof=1)) / np.sqrt(len(folds))
+        nearest = min(simple, key=lambda i: mean_losses[i])
+        if mean_losses[nearest] <= mean_losses[best] + standard_error:
+            kept = candidates[nearest]
+    return CrossValidationChoice(kept, candidates, tuple(float(v) for v in mean_losses))
 
 
 def train_member(
@@ -252,7 +303,7 @@ def train_member(
 def fit(
     X: Any,
     y: Any,
-    hidden: int | Sequence[int] = (4,),
+    hidden: int | Sequence[int] | None = None,
     seed: int = 0,
     *,
     categories: Sequence[str] = (),
@@ -264,7 +315,10 @@ def fit(
     ``X``: NumPy array, pandas DataFrame (columns kept by name) or list of rows,
     shape (rows, columns); text columns become categories, and ``categories``
     names numeric-looking columns to treat as categories too. ``y``: one value
-    or label per row. ``hidden``: widths of the hidden layers, ``()`` for none.
+    or label per row. ``hidden``: widths of the hidden layers, ``()`` for none;
+    None (the default) is `defaults.DEFAULT_HIDDEN`, and on a small table with
+    the decay left at none also lets cross-validation keep no hidden layer
+    (see the module text).
     ``settings``: see `sheetnet.settings.SETTINGS`. ``progress`` is called after
     each epoch (only when training a single network).
 
@@ -274,7 +328,7 @@ def fit(
     [1, 0]
     """
     resolved = resolve_settings(settings)
-    layers = _check_hidden(hidden)
+    layers = _check_hidden(DEFAULT_HIDDEN if hidden is None else hidden)
     if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
         raise SettingError(f"seed must be a whole number of 0 or more; got {cell_in_words(seed)}")
     table = read_table(X)
@@ -299,11 +353,15 @@ def fit(
 
     root = np.random.SeedSequence(int(seed))
     seeds = root.spawn(resolved["repeats"])
+    chose_shape = False
     if plan.decay is None:  # after the members' seeds, so choosing the decay leaves them as they were
         tuning = np.random.default_rng(root.spawn(1)[0])
-        start = network.initial_parameters(sizes, resolved["activation"], tuning)
-        choice = choose_decay(inputs, outputs, labels, sizes, resolved["activation"], target.head, resolved, plan, start, tuning)
+        candidates = candidates_of(layers, linear=hidden is None)
+        chose_shape = len({c.hidden for c in candidates}) > 1
+        ends = (sizes[0], sizes[-1])
+        choice = choose_decay(inputs, outputs, labels, ends, candidates, resolved["activation"], target.head, resolved, plan, tuning)
         plan = dataclasses.replace(plan, decay=choice.decay)
+        sizes = (sizes[0], *choice.kept.hidden, sizes[-1])
     args = (inputs, outputs, labels, sizes, resolved["activation"], target.head, resolved, plan)
     if len(seeds) == 1:  # one network: here, with its progress per epoch
         members: tuple[Member, ...] = (train_member(*args, seeds[0], progress=progress),)
@@ -312,4 +370,6 @@ def fit(
 
     used = dict(resolved)
     used.update(algorithm=plan.algorithm, precision=plan.dtype, validation_share=plan.validation_share, rate=plan.rate, batch=plan.batch_rows, decay=plan.decay)
+    if chose_shape:  # the hidden layers were left at their default and cross-validation weighed none as well
+        used["hidden_chosen"] = ",".join(str(w) for w in sizes[1:-1]) or "none"
     return Model(preparation, target, sizes, resolved["activation"], members, plan.algorithm, MappingProxyType(used), int(seed))
