@@ -72,7 +72,7 @@ def as_grid(cells: Any, what: str, check_cells: bool = True) -> list[list[Any]]:
     if not cells:
         raise InputError(f"the {what} range is empty; select a range with a header row and data rows")
     rows: list[list[Any]] = (
-        list(cells) if all(type(r) is list for r in cells) else [list(r) if isinstance(r, (list, tuple, np.ndarray)) else [r] for r in cells]
+        list(cells) if set(map(type, cells)) == {list} else [list(r) if isinstance(r, (list, tuple, np.ndarray)) else [r] for r in cells]
     )
     widths = set(map(len, rows))
     width = max(widths)
@@ -117,6 +117,16 @@ class SheetTable:
     columns: dict[str, np.ndarray]  # by name, in the range's order
     data_rows: np.ndarray  # for each data row kept, its index among the range's data rows (0 = row 2)
     n_rows: int  # data rows in the range, blank ones included (the height of per-row answers)
+    numbers: np.ndarray | None = None  # when every column holds numbers: all of them as one matrix (the columns are its views)
+
+    def number_matrix(self, names: Sequence[str], rows: np.ndarray) -> np.ndarray | None:
+        """These number columns over ``rows`` (a mask over the data rows) as one C-ordered matrix, taken from the
+        table's matrix in one copy; None when the table was not read as one."""
+        if self.numbers is None:
+            return None
+        where = {name: j for j, name in enumerate(self.columns)}
+        picked = [where[name] for name in names]
+        return self.numbers[:, picked] if rows.all() else self.numbers[rows][:, picked]
 
     @functools.cached_property
     def frame(self) -> pd.DataFrame:
@@ -164,8 +174,8 @@ def read_sheet_table(cells: Any, what: str = "table") -> SheetTable:
     _check_cell_types(grid[:1], what)
     names = _column_names(grid[0], what)
     body = grid[1:]
-    typed, blank = _typed_columns(body, len(names), grid, what)
-    return _table(names, typed, blank, what)
+    typed, blank, numbers = _typed_columns(body, len(names), grid, what)
+    return _table(names, typed, blank, what, numbers)
 
 
 COLUMN_FORM = """A range sent column by column: ``{"header": [names...], "columns": [column, ...]}``.
@@ -239,13 +249,17 @@ def _column_cells(column: Any, j: int, what: str, fix: str) -> np.ndarray | list
     return np.frombuffer(raw, dtype="<f8").astype(np.float64)
 
 
-def _table(names: list[str], typed: list[np.ndarray], blank: np.ndarray, what: str) -> SheetTable:
+def _table(names: list[str], typed: list[np.ndarray], blank: np.ndarray, what: str, numbers: np.ndarray | None = None) -> SheetTable:
     keep = np.flatnonzero(~blank)
     if not len(keep):
         raise InputError(f"the {what} has a header but no data rows; include the rows below the header")
     if len(keep) < len(blank):
-        typed = [values[keep] for values in typed]
-    return SheetTable(dict(zip(names, typed)), keep, len(blank))
+        if numbers is not None:
+            numbers = numbers[keep]
+            typed = list(numbers.T)
+        else:
+            typed = [values[keep] for values in typed]
+    return SheetTable(dict(zip(names, typed)), keep, len(blank), numbers)
 
 
 def _column_names(header: list[Any], what: str) -> list[str]:
@@ -262,25 +276,64 @@ def _column_names(header: list[Any], what: str) -> list[str]:
     return names
 
 
-def _typed_columns(body: list[list[Any]], width: int, grid: list[list[Any]], what: str) -> tuple[list[np.ndarray], np.ndarray]:
-    """The data rows' columns (float64 for numbers and blanks, else object arrays of cleaned cells), and which rows are blank."""
+def _typed_columns(
+    body: list[list[Any]], width: int, grid: list[list[Any]], what: str
+) -> tuple[list[np.ndarray], np.ndarray, np.ndarray | None]:
+    """The data rows' columns (float64 for numbers and blanks, else object arrays of cleaned cells), which rows are
+    blank, and the float64 matrix the columns are views of when every cell is a number or a blank."""
     if not body:
-        return [np.empty(0, dtype=np.float64) for _ in range(width)], np.ones(0, dtype=bool)
+        return [np.empty(0, dtype=np.float64) for _ in range(width)], np.ones(0, dtype=bool), None
+    found = _numbers_found(body, width)
+    if found is not None and found.dtype != object:  # every cell a number: read in one C pass, no look at each cell's type
+        return _number_columns(found.astype(np.float64, copy=False))
     types = set(map(type, itertools.chain.from_iterable(body)))  # one pass in C over every cell
     if types <= NUMBER_TYPES:  # numbers and blanks only: one conversion of the whole range (blanks become NaN)
-        matrix = np.array(body, dtype=np.float64)
-        blank = np.asarray(np.isnan(matrix).all(axis=1))
-        return list(np.ascontiguousarray(matrix.T)), blank
+        return _number_columns(found.astype(np.float64) if found is not None else np.array(body, dtype=np.float64))
     if not types <= CELL_TYPES:
         columns = [_typed_column(list(column), grid, what) for column in zip(*body)]  # each column checked in turn, as the messages expect
     else:
-        objects = np.empty((len(body), width), dtype=object)
-        objects[:] = body  # rows of equal length (as_grid pads them): one copy in C, no list inside a cell
+        objects = found if found is not None else np.empty((len(body), width), dtype=object)
+        if found is None:
+            objects[:] = body  # rows of equal length (as_grid pads them): one copy in C, no list inside a cell
         columns = [_typed_column(objects[:, j], grid, what) for j in range(width)]
     blank = np.ones(len(body), dtype=bool)
     for values in columns:
         blank &= np.isnan(values) if values.dtype.kind == "f" else _none_mask(values)
-    return columns, blank
+    return columns, blank, None
+
+
+_WHOLE_OR_FRACTION = frozenset({float, int})
+_TRUE_OR_FALSE = (bool, np.bool_)
+_NUMBER_DTYPES = frozenset(map(np.dtype, ("float64", "float32", "int64", "int32", "uint64")))
+
+
+def _numbers_found(body: list[list[Any]], width: int) -> np.ndarray | None:
+    """The data rows as NumPy reads them in one C pass, when the first and last rows hold only numbers: a number
+    array when every cell is a number (TRUE and FALSE, which NumPy reads as 1 and 0, ruled out), an object array
+    of the cells when some cell is not (a blank, a text), else None. NumPy's own type discovery proves the cells
+    numbers (a text, a blank, a date or a list makes another kind of array), so no cell's type is looked at in Python.
+    """
+    if not all(type(v) in _WHOLE_OR_FRACTION for v in body[0]) or not all(type(v) in _WHOLE_OR_FRACTION for v in body[-1]):
+        return None  # texts or blanks in view: reading the rows by NumPy would only cost a pass (or make every cell a text)
+    try:
+        found = np.array(body)
+    except (ValueError, TypeError, OverflowError):  # a list inside a cell: the caller names it
+        return None
+    if found.shape != (len(body), width):
+        return None
+    if found.dtype == object:
+        return found
+    if found.dtype not in _NUMBER_DTYPES:
+        return None
+    maybe = np.nonzero((found == 0) | (found == 1))  # only such a cell can be TRUE or FALSE
+    if len(maybe[0]) and any(type(body[i][j]) in _TRUE_OR_FALSE for i, j in zip(maybe[0].tolist(), maybe[1].tolist())):
+        return None
+    return found
+
+
+def _number_columns(matrix: np.ndarray) -> tuple[list[np.ndarray], np.ndarray, np.ndarray]:
+    blank = np.asarray(np.isnan(matrix).all(axis=1))
+    return list(matrix.T), blank, matrix  # each column a view of the matrix: no copy
 
 
 def _typed_column(column: Any, grid: list[list[Any]] | Callable[[], list[list[Any]]], what: str) -> np.ndarray:

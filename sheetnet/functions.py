@@ -12,8 +12,10 @@ from __future__ import annotations
 import functools
 import hashlib
 import json
+import threading
 from collections import OrderedDict
 from datetime import datetime, timezone
+from types import SimpleNamespace
 from typing import Any, Callable
 
 import numpy as np
@@ -82,6 +84,7 @@ PREDICT_NUMBER_TEXT_FIX = (
 TRAIN_CACHE_SIZE = 32
 MAX_GROUPS = 50  # more groups than this is a numeric column or an identifier, not groups to compare
 _train_cache: OrderedDict[str, Cells] = OrderedDict()
+_train_cache_lock = threading.Lock()
 _decoded_cache: OrderedDict[str, tuple[Model, BlockInfo]] = OrderedDict()
 
 
@@ -198,7 +201,9 @@ def _model_inputs(sheet: SheetTable, model: Model, rows: np.ndarray) -> Any:
     (the engine's fast path, no pandas on the way), else a DataFrame."""
     columns = [sheet.values(name) for name in model.input_names]
     if model.preparation.all_numeric and all(c.dtype.kind == "f" for c in columns):
-        matrix = np.column_stack([c[rows] for c in columns]) if columns else np.empty((int(rows.sum()), 0))
+        matrix = sheet.number_matrix(model.input_names, rows) if columns else np.empty((int(rows.sum()), 0))
+        if matrix is None:
+            matrix = np.column_stack([c[rows] for c in columns])
         if (np.abs(matrix) <= MAX_NUMBER).all():  # blanks (NaN) and huge numbers take the path that names the cell
             return matrix
     return _inputs_frame(sheet, model.input_names, rows)
@@ -306,14 +311,26 @@ def _cache_key(*parts: Any) -> str:
 def train(table: Any, target: Any, hidden: Any = None, settings: Any = None, split: Any = None) -> Cells:
     """The model block: trains on the table's rows (holdout rows of the split left out)."""
     check_ranges(table=table, split=split, settings=settings)
+    return cached_train_block(table, target, hidden, settings, split)
+
+
+def cached_train_block(
+    table: Any, target: Any, hidden: Any = None, settings: Any = None, split: Any = None, progress: ProgressCallback | None = None
+) -> Cells:
+    """`train_block` through TRAIN's content cache (the cell and a server job share it): the same table and
+    arguments answer at once with a copy of the block trained before, with no progress reported."""
     key = content_key(table, target, hidden, settings, split) or _cache_key(table, target, hidden, settings, split)
-    if key in _train_cache:
-        _train_cache.move_to_end(key)
-        return [list(row) for row in _train_cache[key]]
-    block = train_block(table, target, hidden, settings, split)
-    _train_cache[key] = block
-    while len(_train_cache) > TRAIN_CACHE_SIZE:
-        _train_cache.popitem(last=False)
+    with _train_cache_lock:
+        found = _train_cache.get(key)
+        if found is not None:
+            _train_cache.move_to_end(key)
+    if found is not None:
+        return [list(row) for row in found]
+    block = train_block(table, target, hidden, settings, split, progress=progress)
+    with _train_cache_lock:  # cell calls and jobs train in threads of their own
+        _train_cache[key] = block
+        while len(_train_cache) > TRAIN_CACHE_SIZE:
+            _train_cache.popitem(last=False)
     return [list(row) for row in block]
 
 
@@ -485,10 +502,11 @@ def _parse_output(value: Any) -> list[str]:
 @cell_function
 def predict(model: Any, table: Any, output: Any = None) -> Cells:
     """As tall as the table: a header, then per row the prediction (and what `output` asks for)."""
-    check_ranges(model=model, table=table)
+    shape = range_shape(table)  # counted once: the range's limits and the answer's
+    check_ranges(model=model, table=SimpleNamespace(shape=shape))
     decoded, info, options = _decode(model)
     wanted = _parse_output(one_value(output, "output"))
-    check_answer_size(range_shape(table)[0], 2 * len(wanted) + len(decoded.classes), "SHEETNET.PREDICT")  # an output takes at most 2 columns, or 1 a class
+    check_answer_size(shape[0], 2 * len(wanted) + len(decoded.classes), "SHEETNET.PREDICT")  # an output takes at most 2 columns, or 1 a class
     sheet = read_sheet_table(table)
     sheet = _numbers_for_model(sheet, decoded, info, options, with_target=False)
     rows = _rows_used(sheet, list(decoded.input_names), options["skip_blanks"])
@@ -496,7 +514,7 @@ def predict(model: Any, table: Any, output: Any = None) -> Cells:
     header, columns = _in_sheet_rows(sheet.data_rows[rows], None, lambda: _predictions(decoded, info, frame, wanted))
     answered = sheet.data_rows[rows]
     if len(answered) == sheet.n_rows:  # no blank rows: the answer rows are the columns zipped
-        return [header] + [list(row) for row in zip(*columns)]
+        return [header, *([value] for value in columns[0])] if len(columns) == 1 else [header, *map(list, zip(*columns))]
     answer: Cells = [header] + [[""] * len(header) for _ in range(sheet.n_rows)]
     for k, row in enumerate(answered):
         answer[row + 1] = [column[k] for column in columns]
