@@ -150,7 +150,7 @@ def column_widths(title: str, blocks: Iterable[tuple[int, int, list[list[Any]]]]
     """Widths that show each column's headers and values: its longest text up to `WIDEST_COLUMN`
     characters (longer texts, like captions, run on to the right), numbers as their format shows them."""
     widest: dict[int, int] = {}
-    for top, left, rows in blocks:
+    for _top, left, rows in blocks:
         for row in rows:
             for j, value in enumerate(row):
                 shown = _shown_length(value)

@@ -61,9 +61,9 @@ def apply_to_workbook(workbook: Workbook, placements: Placements) -> None:
     for placed in placements.formats:
         sheet = _sheet(workbook, placed.sheet)
         code = placed.code("excel")
-        for row in range(placed.top, placed.bottom + 1):
-            for column in range(placed.left, placed.right + 1):
-                sheet.cell(row, column).number_format = code
+        for r in range(placed.top, placed.bottom + 1):
+            for c in range(placed.left, placed.right + 1):
+                sheet.cell(r, c).number_format = code
     for width in placements.widths:
         _sheet(workbook, width.sheet).column_dimensions[column_letters(width.column)].width = width.characters
     for name in placements.names:

@@ -136,6 +136,10 @@ class Driver:
     def op_rename_sheet(self, doc: int, index: int, name: str) -> None:
         self._doc(doc).Sheets.getByIndex(index).Name = name
 
+    def op_add_sheet(self, doc: int, name: str) -> None:
+        sheets = self._doc(doc).Sheets
+        sheets.insertNewByName(name, sheets.getCount())
+
     def op_put(self, doc: int, sheet: str, address: str, rows: list[list[Any]]) -> None:
         self._range(doc, sheet, address).setDataArray(tuple(tuple(float(v) if isinstance(v, (int, float)) else v for v in row) for row in rows))
 
@@ -174,6 +178,18 @@ class Driver:
                 row.append({"type": cell.getType().value, "error": cell.getError(), "formula": cell.getFormula(), "string": cell.getString()})
             rows.append(row)
         return rows
+
+    def op_looks(self, doc: int, sheet: str, address: str) -> dict[str, Any]:
+        """Each cell's number format code and each column's width (1/100 mm) over a range."""
+        component = self._doc(doc)
+        area = self._range(doc, sheet, address)
+        size = area.getRangeAddress()
+        formats = component.NumberFormats
+        codes = [[formats.getByKey(area.getCellByPosition(c, r).NumberFormat).FormatString for c in range(size.EndColumn - size.StartColumn + 1)]
+                 for r in range(size.EndRow - size.StartRow + 1)]
+        columns = component.Sheets.getByName(sheet).getColumns()
+        widths = [columns.getByIndex(c).Width for c in range(size.StartColumn, size.EndColumn + 1)]
+        return {"codes": codes, "widths": widths}
 
     def op_formulas(self, doc: int, sheet: str, address: str) -> list[list[str]]:
         return [list(row) for row in self._range(doc, sheet, address).getFormulaArray()]

@@ -189,6 +189,20 @@ def test_store_command_writes_a_hidden_model_sheet(live: dict[str, Any], tmp_pat
     assert without_time(shown(stored)) == without_time(shown(service.train_model(request).block))
     assert [f"'Data'!$A$1:$D${n}", service.DEFAULT_HOLDOUT] == [r for r in stored if r[0] == "source"][0][1:3]
     assert any(r[0] == "holdout_metric" for r in stored)
+    # the card: metrics as numbers in the service's number formats, columns as wide as it says
+    placements = service.model_placements("bakery", stored, list(names))
+    card = service.card_sheet_name("bakery")
+    height = max(b.top + b.height - 1 for b in placements.cells if b.sheet == card)
+    looks = office.call("looks", doc=book.doc, sheet=card, address=f"A1:C{height}")
+    values = office.call("read", doc=book.doc, sheet=card, address=f"A1:C{height}")
+    wanted = {(r, c): f.code("calc") for f in placements.formats for r in range(f.top, f.bottom + 1) for c in range(f.left, f.right + 1)}
+    assert wanted and all(looks["codes"][r - 1][c - 1] == code for (r, c), code in wanted.items())
+    others = [(values[r][c], looks["codes"][r][c]) for r in range(height) for c in range(3) if (r + 1, c + 1) not in wanted]
+    assert all(code == "General" or (code == "@" and isinstance(value, str)) for value, code in others)  # Calc marks number-like text as text
+    rows = {row[0]: row for row in values}
+    assert isinstance(rows["MAPE"][1], float) and looks["codes"][[r[0] for r in values].index("MAPE")][1] == "0.0%"
+    assert looks["codes"][[r[0] for r in values].index("RMSE")][1] == "0.000"
+    assert looks["widths"] == [w.hundredths_mm for w in sorted(placements.widths, key=lambda w: w.column)]
     # text from the data stays text on the model sheet, even when it starts with '='
     cells = office.call("cells", doc=book.doc, sheet="sheetnet_bakery", address=f"A1:I{len(stored)}")
     holiday = [c for row in cells for c in row if c["string"] == "=holiday"]
@@ -256,3 +270,16 @@ def test_store_command_without_options_takes_the_last_column_and_a_free_name(liv
         "model model1 (loaves) stored on the hidden sheet sheetnet_model1 under the defined name model1; its card is on the sheet sn card model1"
     ), done
     assert ["sheetnet_model1", False] in office.call("sheets", doc=book.doc)
+
+
+def test_store_command_refuses_to_replace_a_sheet_sheetnet_did_not_write(live: dict[str, Any]) -> None:
+    from sheetnet.placements import not_ours_message
+
+    book, office = live["book"], live["office"]
+    office.call("add_sheet", doc=book.doc, name="SN card bakery3")
+    office.call("put_cell", doc=book.doc, sheet="SN card bakery3", address="A1", value="my own notes")
+    url = f"{STORE_COMMAND}?name=bakery3&target=loaves&settings=epochs%3D20"
+    done = office.call("store_command", doc=book.doc, sheet=SHEET, address="A1:D40", url=url)
+    assert done["result"] == "#SHEETNET! " + not_ours_message("SN card bakery3"), done  # the words of every door
+    assert office.call("read", doc=book.doc, sheet="SN card bakery3", address="A1:A1") == [["my own notes"]]
+    assert "sheetnet_bakery3" not in [s for s, _ in office.call("sheets", doc=book.doc)] and "bakery3" not in office.call("names", doc=book.doc)

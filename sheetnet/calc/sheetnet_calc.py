@@ -347,10 +347,32 @@ def _same(a, b):
     return a.casefold() == b.casefold()
 
 
+def check_replaceable(doc, placements):
+    """Refuse, before anything changes, placements that would drop a sheet sheetnet did not write
+    (its A1 holds none of the marks the placements list), in the words the placements carry."""
+    sheets = doc.Sheets
+    marks = placements.get("owned_marks", [])
+    for title in placements.get("drop_sheets", []):
+        for existing in sheets.getElementNames():
+            if _same(existing, title) and sheets.getByName(existing).getCellByPosition(0, 0).getString() not in marks:
+                raise ServerProblem(placements.get("not_ours", "").replace("{title}", existing))
+
+
+def number_format_key(doc, code):
+    """The document's key of a Calc format code in the en-US locale, added when the document lacks it."""
+    from com.sun.star.lang import Locale
+
+    formats, locale = doc.NumberFormats, Locale("en", "US", "")
+    key = formats.queryKey(code, locale, False)
+    return key if key != -1 else formats.addNew(code, locale)
+
+
 def apply_placements(doc, placements):
-    """Apply placements in the documented order (see sheetnet/placements.py): drop names and sheets,
-    create sheets, write cells as values (setDataArray puts strings in as text, never as formulas),
-    write formulas, define names. Calc has no very hidden state: such sheets become hidden."""
+    """Apply placements in the documented order (see sheetnet/placements.py): refuse to replace a sheet
+    of the user's, drop names and sheets, create sheets, write cells as values (setDataArray puts strings
+    in as text, never as formulas), write formulas, number formats and column widths, define names.
+    Calc has no very hidden state: such sheets become hidden."""
+    check_replaceable(doc, placements)
     named = doc.NamedRanges
     for name in placements.get("drop_names", []):
         for existing in named.getElementNames():
@@ -380,6 +402,11 @@ def apply_placements(doc, placements):
             for c, text in enumerate(row):
                 target = sheet.getCellRangeByPosition(block["left"] - 1 + c, block["top"] - 1 + r, block["left"] - 1 + c, block["top"] - 1 + r)
                 write_formula(doc, target, text, block.get("array", True))
+    for style in placements.get("formats", []):
+        area = sheets.getByName(style["sheet"]).getCellRangeByPosition(style["left"] - 1, style["top"] - 1, style["right"] - 1, style["bottom"] - 1)
+        area.NumberFormat = number_format_key(doc, style["calc"])
+    for width in placements.get("widths", []):  # a column's Width is in 1/100 mm
+        sheets.getByName(width["sheet"]).getColumns().getByIndex(width["column"] - 1).Width = int(width["calc"])
     for name in placements.get("names", []):
         reference = calc_reference(name["sheet"], name["top"], name["left"], name["bottom"], name["right"])
         named.addNewByName(name["name"], reference, sheets.getByName(name["sheet"]).getCellByPosition(0, 0).CellAddress, 0)
