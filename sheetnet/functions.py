@@ -64,7 +64,9 @@ from .uncertainty import (
     Conformal,
     calibrate,
     metric_error_bars,
+    model_reliability,
     prediction_sets,
+    read_bins,
     read_level,
     rows_needed,
 )
@@ -615,17 +617,20 @@ def _scored_rows(decoded: Model, info: BlockInfo, sheet: SheetTable, split: Any,
 
 
 @cell_function
-def score(model: Any, table: Any, split: Any = None, error_bars: Any = None) -> Cells:
+def score(model: Any, table: Any, split: Any = None, error_bars: Any = None, reliability: Any = None) -> Cells:
     """A two-column table of metrics, on the split's holdout rows when a split is given.
 
     With ``error_bars`` (a level like 90%, or TRUE for 90 %) each metric also gets a
     percentile-bootstrap interval over the scored rows and a label in words, and the
-    last rows state the method, resamples and seed.
+    last rows state the method, resamples and seed. With ``reliability`` (a number of
+    bins, or TRUE for 10) a classifier's reliability table follows, after a blank row:
+    per bin of predicted probability its rows, mean predicted probability and observed share.
     """
     check_ranges(model=model, table=table, split=split)
     decoded, info, options = _decode(model)
     error_bars = one_value(error_bars, "error bars")
     level = None if is_blank(error_bars) or error_bars is False else read_level(None if error_bars is True else error_bars, "error-bar level")
+    bins = read_bins(one_value(reliability, "reliability bins"))
     raw = read_sheet_table(table)
     sheet = _numbers_for_model(raw, decoded, info, options, with_target=True)
     split_given = split is not None and not is_blank(split)
@@ -641,10 +646,26 @@ def score(model: Any, table: Any, split: Any = None, error_bars: Any = None) -> 
         answer.append(["roc_auc left out", ROC_AUC_LEFT_OUT])
     for label, per in metrics.get("per_class", {}).items():
         answer += [[f"{kind} {label_in_words(label)}", per[kind]] for kind in ("precision", "recall", "f1")]
-    if level is None:
+    if level is not None:
+        bars = _in_sheet_rows(sheet.data_rows[rows], info.target, lambda: metric_error_bars(decoded, frame, actual, level))
+        answer = _with_error_bars(answer, bars, level)
+    if bins is None:
         return answer
-    bars = _in_sheet_rows(sheet.data_rows[rows], info.target, lambda: metric_error_bars(decoded, frame, actual, level))
-    return _with_error_bars(answer, bars, level)
+    kind, table_rows = _in_sheet_rows(sheet.data_rows[rows], info.target, lambda: model_reliability(decoded, frame, actual, bins))
+    return _with_reliability(answer, kind, table_rows, decoded)
+
+
+def _with_reliability(answer: Cells, kind: str, table_rows: list[tuple[float, float, int, float, float]], model: Model) -> Cells:
+    """SCORE's rows, a blank row, then the reliability table (four columns; the metrics' rows widened to match)."""
+    width = max(4, len(answer[0]))
+    if kind == "positive":
+        title, observed = f"predicted P({label_in_words(model.classes[1])})", f"share {label_in_words(model.classes[1])}"
+    else:
+        title, observed = "probability of the picked class", "share picked right"
+    part: Cells = [["reliability: " + title, "rows", "mean predicted", observed]]
+    part += [[f"{low:.3g} to {high:.3g}", count, mean, share] for low, high, count, mean, share in table_rows]
+    rows = [list(row) + [""] * (width - len(row)) for row in [*answer, [""], *part]]
+    return rows
 
 
 def _with_error_bars(answer: Cells, bars: dict[str, tuple[float, float]], level: float) -> Cells:

@@ -91,8 +91,10 @@ REGISTRY: tuple[CellFunction, ...] = (
             Argument("table", "rows with the model's inputs and its target column"),
             Argument("split", "score the holdout rows of this split only", True),
             Argument("error_bars", "a level such as 90% (or TRUE): adds a bootstrap interval and words to each metric", True, "value"),
+            Argument("reliability", "classes: a number of bins (or TRUE for 10): adds the reliability table of predicted probabilities", True, "value"),
         ),
-        "a two-column table: metric, value (five columns with error bars: metric, value, low, high, in words)",
+        "a two-column table: metric, value (five columns with error bars: metric, value, low, high, in words; "
+        "with reliability, a blank row and per bin: range, rows, mean predicted, observed share)",
     ),
     CellFunction(
         "SHEETNET.EXPLAIN",

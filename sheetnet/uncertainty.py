@@ -18,8 +18,10 @@ Pure NumPy, no I/O.
   Bootstrap", ch. 13): resample the scored rows with replacement, compute
   the metric on each resample, and take the ``(1 - level) / 2`` and
   ``(1 + level) / 2`` quantiles of the resampled metrics.
-- Reliability table: predicted probabilities cut into equal-width bins,
-  each with its rows, mean predicted probability and observed share.
+- Reliability table (a calibration check, common practice, no source): predicted
+  probabilities cut into equal-width bins (the last bin closed), each with its
+  rows, mean predicted probability and observed share; SCORE's ``reliability``
+  argument shows it in cells.
 """
 
 from __future__ import annotations
@@ -167,6 +169,25 @@ def reliability_table(actual_positive: Any, probability: Any, bins: int = 10) ->
     return table
 
 
+DEFAULT_BINS = 10
+MAX_BINS = 50
+
+
+def read_bins(value: Any) -> int | None:
+    """A reliability table's bins from a cell: blank or FALSE for none, TRUE for `DEFAULT_BINS`, else 2 to `MAX_BINS`."""
+    if value is None or value is False or (isinstance(value, str) and not value.strip()) or (isinstance(value, float) and math.isnan(value)):
+        return None
+    if value is True:
+        return DEFAULT_BINS
+    try:
+        number = float(str(value).strip()) if isinstance(value, str) else float(value)
+    except (TypeError, ValueError):
+        number = float("nan")
+    if not (math.isfinite(number) and number.is_integer() and 2 <= number <= MAX_BINS):
+        raise SettingError(f"the reliability bins are '{value}'; give a whole number from 2 to {MAX_BINS}, TRUE for {DEFAULT_BINS}, or leave it blank")
+    return int(number)
+
+
 # --- on a model ---------------------------------------------------------------------------
 
 def calibrate(model: Any, X: Any, y: Any, level: float = DEFAULT_LEVEL) -> Conformal:
@@ -218,3 +239,18 @@ def metric_error_bars(
     return bootstrap_intervals(
         lambda rows: classification_metrics(index[rows], probabilities[rows], classes, decided[rows]), len(index), level, resamples, seed
     )
+
+
+def model_reliability(model: Any, X: Any, y: Any, bins: int = DEFAULT_BINS) -> tuple[str, list[tuple[float, float, int, float, float]]]:
+    """The reliability table of a classifier over rows ``X``, ``y``, and what it bins: for two classes the
+    probability of the second (positive) class against the share of rows in it; for more, the probability
+    of the class the model picks against the share of rows where that pick is right."""
+    from .preparation import read_target
+
+    if model.task == "regression":
+        raise SettingError("a reliability table is for models that predict classes; leave the reliability argument blank for a model of numbers")
+    index = model.target.class_indices(read_target(y))
+    probabilities = model.predict_proba(X)
+    if model.task == "binary":
+        return "positive", reliability_table(index == 1, probabilities[:, 1], bins)
+    return "picked", reliability_table(probabilities.argmax(axis=1) == index, probabilities.max(axis=1), bins)

@@ -130,3 +130,56 @@ def test_metric_error_bars_surround_the_holdout_metrics(friedman_model):
         low, high = bars[name]
         assert low < found[name] < high, name
     assert bars == u.metric_error_bars(friedman_model, X, y, 0.9, resamples=300, seed=1)  # one seed, the same bars
+
+
+def _small_binary_table():
+    rng = np.random.default_rng(3)
+    x = rng.uniform(0, 1, 40)
+    late = np.where(x + rng.normal(0, 0.2, 40) > 0.5, "late", "on time")  # an invented delivery outcome
+    return [["distance", "arrival"]] + [[float(a), str(b)] for a, b in zip(x, late)]
+
+
+def test_score_shows_the_reliability_table_counted_by_hand():
+    from sheetnet import functions
+
+    table = _small_binary_table()
+    block = functions.train(table, "arrival", "2", "epochs=60")
+    answer = functions.score(block, table, None, None, 4)
+    probabilities = functions.predict(block, table, "probabilities")
+    header = probabilities[0]
+    positive = header[-1]  # the second class of the model is the positive one
+    assert positive == "P(on time)"
+    # the hand count: each row into bin floor(4 p) (p = 1 into the last), then per bin rows, mean p, share of the class
+    counted = {}
+    for (p_first, p_second), row in zip(probabilities[1:], table[1:]):
+        b = min(int(p_second * 4), 3)
+        counted.setdefault(b, []).append((p_second, row[1] == "on time"))
+    blank = next(i for i, row in enumerate(answer) if row[0] == "")
+    assert answer[blank + 1] == ["reliability: predicted P(on time)", "rows", "mean predicted", "share on time"]
+    shown = answer[blank + 2:]
+    assert [row[0] for row in shown] == [f"{b / 4:.3g} to {(b + 1) / 4:.3g}" for b in sorted(counted)]
+    for row, b in zip(shown, sorted(counted)):
+        values = counted[b]
+        assert row[1] == len(values)
+        assert row[2] == pytest.approx(sum(p for p, _ in values) / len(values), abs=1e-12)
+        assert row[3] == pytest.approx(sum(hit for _, hit in values) / len(values), abs=1e-12)
+    assert sum(row[1] for row in shown) == 40 and all(len(row) == 4 for row in answer)
+    assert answer[:blank] == [row + ["", ""] for row in functions.score(block, table)]  # the metrics as without it
+
+
+def test_reliability_for_several_classes_and_its_refusals():
+    import sheetnet_demo
+
+    from sheetnet import functions
+
+    lots = sheetnet_demo.coffee_lot_grades(rows=60, seed=1).drop(columns="lot")
+    table = [list(lots.columns)] + lots.astype(object).values.tolist()
+    block = functions.train(table, "grade", "3", "epochs=30")
+    answer = functions.score(block, table, None, "90%", True)
+    start = [row[0] for row in answer].index("reliability: probability of the picked class")
+    assert answer[start][1:4] == ["rows", "mean predicted", "share picked right"] and len(answer[start]) == 5  # beside the error bars' five columns
+    assert sum(row[1] for row in answer[start + 1:]) == 60 and len(answer) - start - 1 <= 10
+    assert functions.score(block, table, None, None, "x")[0][0].startswith("#SHEETNET! the reliability bins are 'x'")
+    numbers = [["x", "y"]] + [[float(i), float(i % 7)] for i in range(30)]
+    refused = functions.score(functions.train(numbers, "y", "2", "epochs=10"), numbers, None, None, 5)
+    assert refused[0][0].startswith("#SHEETNET! a reliability table is for models that predict classes")
