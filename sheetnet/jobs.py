@@ -1,4 +1,4 @@
-"""Training jobs: SHEETNET.TRAIN in the background, with progress, cancelling and bounds.
+"""Server jobs: SHEETNET.TRAIN and SHEETNET.SEARCH in the background, with progress, cancelling and bounds.
 
 A `JobBoard` holds one server's jobs and the models they trained; it knows
 nothing of HTTP, so it is tested directly. `JobBoard.submit` checks the request
@@ -21,6 +21,13 @@ A failed job's message is the very text the TRAIN cell would show for the same
 arguments. A done job carries its model block, and the model's `Placements`
 (as JSON) when the request gave the workbook's defined names (should they fail,
 the job is still done, with no placements and the reason as its message).
+
+A TRAIN job goes through TRAIN's content cache (`functions.cached_train_block`),
+so a job with the table and arguments of one trained before, as a job or in a
+cell, is done at once with the same block. A SEARCH job (``function``
+``SHEETNET.SEARCH``, SEARCH's arguments) answers the ranking the SEARCH cell
+shows, its progress one count per finished fold of a candidate (``stage``
+"search folds", ``done`` of ``total``); cancelling stops it at the next fold.
 
 >>> board = JobBoard()
 >>> job = board.submit("grades", [table, "grade"])       # doctest: +SKIP
@@ -50,9 +57,12 @@ from .stopping import ProgressCallback
 CURVE_POINTS_SHOWN = 500  # the latest loss-curve points in a job's view (and all a job keeps)
 RETRY_AFTER_SECONDS = 10  # what a caller refused by a full board is told to wait
 TRAIN = BY_NAME["SHEETNET.TRAIN"]
+SEARCH = BY_NAME["SHEETNET.SEARCH"]
+JOB_FUNCTIONS = (TRAIN.name, SEARCH.name)  # the cell functions a job runs
 log = logging.getLogger(__name__)
 
-Trainer = Callable[..., Cells]  # like functions.train_block(table, target, hidden, settings, split, progress=...)
+Trainer = Callable[..., Cells]  # like functions.cached_train_block(table, target, hidden, settings, split, progress=...)
+Searcher = Callable[..., Cells]  # like functions.search without its message cell: (table, target, candidates, settings, folds)
 
 
 class JobRequestError(SheetnetError):
@@ -70,7 +80,11 @@ class UnknownJob(SheetnetError):
 
 
 class Cancelled(SheetnetError):
-    """A training job was cancelled by its caller."""
+    """A job was cancelled by its caller."""
+
+
+def _cancelled(job: "Job") -> str:
+    return "the training was cancelled" if job.function == TRAIN.name else "the search was cancelled"
 
 
 @dataclass(frozen=True)
@@ -101,6 +115,7 @@ class Job:
 
     id: str
     name: str
+    function: str = TRAIN.name  # the cell function the job runs: SHEETNET.TRAIN or SHEETNET.SEARCH
     existing_names: tuple[str, ...] | None = None
     split: SplitRequest | None = None  # the door's holdout request, when the server makes the split
     state: str = "running"
@@ -124,7 +139,8 @@ class Job:
     def view(self) -> dict[str, Any]:
         """Plain JSON types: what a caller polling the job sees."""
         return {
-            "id": self.id, "name": self.name, "state": self.state, "waiting": self.waiting, "epoch": self.epoch, "epochs": self.epochs,
+            "id": self.id, "name": self.name, "function": self.function, "state": self.state, "waiting": self.waiting,
+            "epoch": self.epoch, "epochs": self.epochs,
             "training_loss": self.training_loss, "validation_loss": self.validation_loss,
             "curve": self.curve[-CURVE_POINTS_SHOWN:], "message": self.message, "result": self.result,
             "placements": self.placements, "stage": self.stage, "done": self.done, "total": self.total,
@@ -140,18 +156,22 @@ def finite(value: Any) -> Any:
     return value
 
 
-def check_train_arguments(args: Sequence[Any]) -> list[Any]:
-    """TRAIN's arguments padded with blanks to their full count, or a `JobRequestError`."""
+def check_train_arguments(args: Sequence[Any], function: str = TRAIN.name) -> list[Any]:
+    """The job's arguments (TRAIN's, or SEARCH's) padded with blanks to their full count, or a `JobRequestError`."""
+    if function not in JOB_FUNCTIONS:
+        raise JobRequestError(f"a job runs {' or '.join(JOB_FUNCTIONS)}, not {function}; call other cell functions at /v1/functions")
+    entry = BY_NAME[function]
     if not isinstance(args, (list, tuple)):
-        raise JobRequestError("the training arguments must be a list: table, target, [hidden], [settings], [split]")
-    most = len(TRAIN.arguments)
-    required = sum(not a.optional for a in TRAIN.arguments)
+        listed = ", ".join(a.name if not a.optional else f"[{a.name}]" for a in entry.arguments)
+        raise JobRequestError(f"the {'training' if entry is TRAIN else 'search'} arguments must be a list: {listed}")
+    most = len(entry.arguments)
+    required = sum(not a.optional for a in entry.arguments)
     if len(args) > most:
-        raise JobRequestError(f"{TRAIN.name} takes at most {most} arguments; got {len(args)}")
+        raise JobRequestError(f"{entry.name} takes at most {most} arguments; got {len(args)}")
     if len(args) < required:
-        needed = ", ".join(a.name for a in TRAIN.arguments[:required])
+        needed = ", ".join(a.name for a in entry.arguments[:required])
         raise JobRequestError(
-            f"a training job needs at least the table and the target column's name ({needed}); got {len(args)} argument"
+            f"a {'training' if entry is TRAIN else 'search'} job needs at least the table and the target column's name ({needed}); got {len(args)} argument"
             + ("" if len(args) == 1 else "s")
         )
     return list(args) + [None] * (most - len(args))
@@ -178,17 +198,19 @@ def cell_message(error: BaseException) -> str:
 class JobBoard:
     """The training jobs of one server, safe to use from several threads.
 
-    ``trainer`` is `functions.train_block` (tests pass a stand-in that waits or fails on purpose)."""
+    ``trainer`` is `functions.cached_train_block` and ``searcher`` SEARCH without its message cell (tests pass
+    stand-ins that wait or fail on purpose)."""
 
     def __init__(
         self,
         max_running: int = MAX_RUNNING_JOBS,
         kept_finished: int = KEPT_JOBS,
         kept_models: int = KEPT_MODELS,
-        trainer: Trainer = functions.train_block,
+        trainer: Trainer = functions.cached_train_block,
         max_waiting: int = MAX_WAITING_JOBS,
         kept_cells: int = KEPT_JOB_CELLS,
         max_table_cells: int = MAX_JOB_TABLE_CELLS,
+        searcher: Searcher | None = None,
     ) -> None:
         if max_running < 1 or min(kept_finished, kept_models, max_waiting, kept_cells) < 0:
             raise ValueError("max_running must be at least 1; kept_finished, kept_models, max_waiting and kept_cells at least 0")
@@ -197,26 +219,40 @@ class JobBoard:
         self.max_table_cells = max_table_cells
         self._table_cells = 0  # held by the running and waiting jobs
         self.trainer = trainer
+        self.searcher = searcher if searcher is not None else functions.raising(functions.search)
         self._jobs: OrderedDict[str, Job] = OrderedDict()  # in the order submitted
         self._queue: deque[tuple[Job, list[Any]]] = deque()  # accepted, waiting for a trainer
         self._trainers = 0  # threads training now (each takes the next waiting job when done)
         self._models: OrderedDict[str, dict[str, Any]] = OrderedDict()  # by folded name, newest last
         self._lock = threading.Lock()
 
-    def submit(self, name: str, args: Sequence[Any], existing_names: Iterable[str] | None = None, split: SplitRequest | None = None) -> Job:
+    def submit(
+        self,
+        name: str,
+        args: Sequence[Any],
+        existing_names: Iterable[str] | None = None,
+        split: SplitRequest | None = None,
+        function: str = TRAIN.name,
+    ) -> Job:
         """Check the request, register a job and train it as soon as a trainer is free (at once, mostly).
+
+        ``function`` SHEETNET.SEARCH: a search job, ``args`` SEARCH's arguments (no names, no split: a search
+        stores no model and makes its own folds).
 
         With ``split`` (holdout share, mode, seed, address) the server makes the holdout split and seeds
         the training exactly as every other door does (`service.train_model`); TRAIN's own split argument
         must then be left out. Raises `JobRequestError` (bad arguments or names), `InputError` (a name
         that cannot be a model's, the service's message) or `BoardFull`; in every case nothing is registered."""
-        padded = check_train_arguments(args)
+        padded = check_train_arguments(args, function)
         service.check_model_name(name)
         names = _check_names(existing_names)
+        if function == SEARCH.name and (names is not None or split is not None):
+            raise JobRequestError("a search job stores no model and makes its own folds: leave out existing_names and the holdout share")
         if split is not None:
             _check_split_request(split, padded)
-        job = Job(uuid.uuid4().hex, name, names, split=split)
-        job.table_cells = sum(rows * columns for rows, columns in map(range_shape, (a for a in (padded[0], padded[4]) if a is not None)))
+        job = Job(uuid.uuid4().hex, name, function, names, split=split)
+        ranges = (padded[0], padded[4]) if function == TRAIN.name else (padded[0], padded[2])  # the table, and the split or the candidates
+        job.table_cells = sum(rows * columns for rows, columns in map(range_shape, (a for a in ranges if a is not None)))
         with self._lock:
             if self._trainers + len(self._queue) >= self.max_running + self.max_waiting:
                 waiting = f" and {len(self._queue)} are waiting" if self._queue else ""
@@ -259,7 +295,7 @@ class JobBoard:
             if not job.waiting:
                 return "cancelling"
             self._queue = deque(entry for entry in self._queue if entry[0] is not job)
-            job.message, job.state = "the training was cancelled", "cancelled"
+            job.message, job.state = _cancelled(job), "cancelled"
             self._table_cells -= job.table_cells
             self._forget_old_jobs()
         job.finished.set()
@@ -323,7 +359,7 @@ class JobBoard:
     def _work(self, job: Job, args: list[Any]) -> None:
         def progress(epoch: int, most: int, training: float, validation: float | None) -> None:
             if job.cancel.is_set():
-                raise Cancelled("the training was cancelled")
+                raise Cancelled(_cancelled(job))
             job.epoch, job.epochs, job.training_loss, job.validation_loss = epoch, most, training, validation
             job.curve.append([epoch, finite(training), finite(validation)])
             if len(job.curve) > 2 * CURVE_POINTS_SHOWN:  # a long training keeps only what its view shows
@@ -331,33 +367,36 @@ class JobBoard:
 
         def jobs_done(what: str, done: int, total: int) -> None:  # "k of n done" from sheetnet.parallel
             if job.cancel.is_set():
-                raise Cancelled("the training was cancelled")
+                raise Cancelled(_cancelled(job))
             job.stage, job.done, job.total = what, done, total
 
         reporting: ProgressCallback = progress
         state, message, result, placements, about = "failed", None, None, None, None
         try:
-            table, target, hidden, settings, split = args
             with reporting_to(jobs_done):
-                if job.split is not None:
+                if job.function == SEARCH.name:  # the ranking as SEARCH's cells: no model to describe or place
+                    block = self.searcher(*args)
+                elif job.split is not None:
+                    table, target, hidden, settings, _ = args
                     request = service.TrainRequest(table, target, hidden, settings, job.split.holdout, job.split.mode, job.split.seed, job.split.address)
                     block = service.train_model(request, reporting).block
                 else:
-                    block = self.trainer(table, target, hidden, settings, split, progress=reporting)
+                    block = self.trainer(*args, progress=reporting)
             if job.existing_names is not None:
                 placements, message = self._placements(job, block)
-            about = functions.raising(functions.about)(block)
+            if job.function == TRAIN.name:
+                about = functions.raising(functions.about)(block)
             state, result = "done", finite(block)
         except Cancelled as error:
             state, message = "cancelled", str(error)
         except SheetnetError as error:
             message = cell_message(error)
         except Exception as error:  # a bug: reported in the job and the log, never a job left running
-            log.exception("training job %s stopped on an unexpected error", job.id)
+            log.exception("%s job %s stopped on an unexpected error", job.function, job.id)
             message = cell_message(error)
         with self._lock:  # the job's end and its cancel decide under one lock: a cancel accepted before wins
             if state == "done" and job.cancel.is_set():
-                state, message, result, placements = "cancelled", "the training was cancelled", None, None
+                state, message, result, placements = "cancelled", _cancelled(job), None, None
             if state == "done" and about is not None:
                 self._remember_model(job, about)
             job.result, job.placements, job.message = result, placements, message

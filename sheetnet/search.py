@@ -204,6 +204,7 @@ def search(
     if not chosen_candidates:
         raise SettingError("the search has no candidates; give at least one, or leave them out for the default grid")
     categories = settings.pop("categories", ())
+    workers = resolve_settings({"workers": workers})["workers"]  # as the setting reads it (a cell gives the text '2')
     resolved = [_check_candidate(c, settings) for c in chosen_candidates]
     table, target = read_table(X), read_target(y)
     learned = fit_target(target, resolved[0]["task"])

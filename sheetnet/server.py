@@ -18,7 +18,9 @@ to a cell function's refusal, is JSON ``{"detail": TEXT}`` built by
 - ``POST /v1/jobs`` with ``{"name": MODEL, "args": [TRAIN's arguments], "existing_names": [...]}``: a
   training job (`sheetnet.jobs`; 429 with ``Retry-After`` when as many are training and waiting as the
   board takes), with ``GET /v1/jobs/{id}`` for progress (waiting or not, epoch, losses, curve; when done the
-  block, and the placements if ``existing_names`` was given) and ``DELETE /v1/jobs/{id}`` to cancel.
+  block, and the placements if ``existing_names`` was given) and ``DELETE /v1/jobs/{id}`` to cancel. With
+  ``"function": "SHEETNET.SEARCH"`` and SEARCH's arguments, a search job: progress per finished fold
+  (``stage``, ``done`` of ``total``), the ranking SEARCH's cell shows when done, the same cancel.
 - ``POST /v1/placements`` with ``{"name": MODEL, "block": [[...]], "existing_names": [...]}``: what a
   door writes to store the model (`sheetnet.service.model_placements`, as JSON).
 - ``GET /v1/models``: the models this server trained, with their summaries.
@@ -69,8 +71,11 @@ class CallBody(BaseModel):
 
 
 class JobBody(BaseModel):
-    name: str = Field(description="the model's name, as it will be stored in the workbook")
-    args: list[Any] = Field(description="SHEETNET.TRAIN's arguments: table, target, [hidden], [settings], [split]")
+    name: str = Field(description="the model's name, as it will be stored in the workbook (a search job's: how it is listed)")
+    args: list[Any] = Field(description="SHEETNET.TRAIN's arguments: table, target, [hidden], [settings], [split] (SEARCH's for a search job)")
+    function: str = Field(
+        "SHEETNET.TRAIN", description="the cell function the job runs: SHEETNET.TRAIN, or SHEETNET.SEARCH (table, target, [candidates], [settings], [folds])"
+    )
     existing_names: list[str] | None = Field(
         None, description="the workbook's defined names now; when given, a done job carries the model's placements"
     )
@@ -437,10 +442,10 @@ def create_app(
         # json.dumps directly: FastAPI's generic encoder walks every cell and is many times slower
         return Response(_dumps(answer), media_type="application/json")
 
-    @app.post("/v1/jobs", status_code=202, summary="start a training job (SHEETNET.TRAIN with progress)")
+    @app.post("/v1/jobs", status_code=202, summary="start a job: SHEETNET.TRAIN (or SHEETNET.SEARCH) with progress and cancel")
     def start_job(body: JobBody) -> dict[str, Any]:
         split = None if body.holdout is None else SplitRequest(body.holdout, body.mode, body.seed, body.address)
-        job = board.submit(body.name, body.args, body.existing_names, split)
+        job = board.submit(body.name, body.args, body.existing_names, split, body.function.upper())
         return {"id": job.id, "state": job.state}
 
     @app.get("/v1/jobs/{job_id}", summary="a training job's progress and, when done, its model block")

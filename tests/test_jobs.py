@@ -282,3 +282,87 @@ def test_the_tables_held_by_jobs_under_way_are_bounded(table):
     assert _finish(first)["state"] == _finish(third)["state"] == "done"
     for i in range(5):  # every job lets its table go at its end
         assert board.submit(f"m{i}x", [table, "spoiled"]).finished.wait(WAIT)
+
+
+# --- TRAIN's content cache, and search jobs -------------------------------------------------------
+
+@pytest.fixture
+def counted_training(monkeypatch):
+    """functions.train_block counting its calls (the cache sits in front of it), with TRAIN's cache emptied first."""
+    calls = []
+    real = functions.train_block
+
+    def counting(*args, **kwargs):
+        calls.append(args[:4])
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(functions, "train_block", counting)
+    monkeypatch.setattr(functions, "_train_cache", type(functions._train_cache)())
+    return calls
+
+
+def test_a_repeated_train_job_answers_from_trains_cache_shared_with_the_cell(table, counted_training):
+    board = JobBoard()
+    arguments = [table, "spoiled", "3", "epochs=40; seed=2"]
+    first = _finish(board.submit("shipments", arguments))
+    assert first["state"] == "done" and first["epoch"] == 40 and len(counted_training) == 1
+    again = _finish(board.submit("shipments", [[list(row) for row in table], "spoiled", "3", "epochs=40; seed=2"]))  # the same cells anew
+    assert again["state"] == "done" and again["result"] == first["result"]
+    assert again["epoch"] == 0 and again["curve"] == [] and len(counted_training) == 1  # answered without training
+    assert functions.train(*arguments) == first["result"] and len(counted_training) == 1  # the cell finds the job's block
+    other = _finish(board.submit("shipments", [table, "spoiled", "3", "epochs=41; seed=2"]))
+    assert other["state"] == "done" and other["epoch"] == 41 and len(counted_training) == 2
+    cell_first = functions.train(table, "spoiled", "2", "epochs=30")  # and a job finds the cell's
+    assert _finish(board.submit("cellmade", [table, "spoiled", "2", "epochs=30"]))["result"] == cell_first and len(counted_training) == 3
+
+
+SEARCH_ARGS = [[["hidden"], [2], [4]], "epochs=30; decay=0.01; workers=1", 3]  # candidates, settings, folds
+
+
+def test_a_search_job_answers_the_search_cells_ranking_with_progress_per_fold(table):
+    from sheetnet.progress import reporting_to
+
+    seen = []
+
+    def recording_search(*args):  # the real search, its reports recorded beside the job's own listener
+        with reporting_to(lambda what, done, total: seen.append((what, done, total))):
+            return functions.raising(functions.search)(*args)
+
+    board = JobBoard(searcher=recording_search)
+    view = _finish(board.submit("rank", [table, "spoiled", *SEARCH_ARGS], function="SHEETNET.SEARCH"))
+    assert view["state"] == "done" and view["message"] is None and view["function"] == "SHEETNET.SEARCH"
+    assert view["result"] == functions.search(table, "spoiled", *SEARCH_ARGS)  # the cell's answer, to the last bit
+    assert view["result"][0][:2] == ["rank", "hidden"] and view["result"][-1][:2] == ["folds", "3 folds, stratified"]
+    assert seen == [("search folds", k, 6) for k in range(1, 7)]  # 2 candidates x 3 folds, one report per finished fold
+    assert (view["stage"], view["done"], view["total"]) == ("search folds", 6, 6)
+    assert board.models() == []  # a search stores no model
+
+
+def test_a_running_search_job_can_be_cancelled(table):
+    board = JobBoard()
+    job = board.submit("rank", [table, "spoiled", None, "epochs=60; workers=1"], function="SHEETNET.SEARCH")  # 12 candidates x 5 folds
+    for _ in range(WAIT * 20):
+        if job.done >= 1 or job.finished.wait(0.05):
+            break
+    assert job.state == "running" and job.done >= 1 and job.total == 60
+    assert board.cancel(job.id) == "cancelling"
+    view = _finish(job)
+    assert view["state"] == "cancelled" and view["message"] == "the search was cancelled" and view["result"] is None
+    assert view["done"] < 60
+
+
+def test_a_search_job_that_fails_says_what_the_search_cell_says_and_bad_requests_leave_nothing(table):
+    board = JobBoard()
+    failed = _finish(board.submit("rank", [table, "nope"], function="SHEETNET.SEARCH"))
+    assert failed["state"] == "failed" and failed["message"] == functions.search(table, "nope")[0][0]
+    assert failed["message"].startswith("#SHEETNET! the table has no column named 'nope'")
+    refusals = [
+        (dict(args=[table, "spoiled", None, None, None, 6], function="SHEETNET.SEARCH"), r"^SHEETNET.SEARCH takes at most 5 arguments; got 6$"),
+        (dict(args=[table], function="SHEETNET.SEARCH"), r"^a search job needs at least the table and the target column's name"),
+        (dict(args=[table, "spoiled"], function="SHEETNET.PREDICT"), r"^a job runs SHEETNET.TRAIN or SHEETNET.SEARCH, not SHEETNET.PREDICT"),
+        (dict(args=[table, "spoiled"], function="SHEETNET.SEARCH", existing_names=[]), "a search job stores no model and makes its own folds"),
+    ]
+    for request, words in refusals:
+        with pytest.raises(JobRequestError, match=words):
+            board.submit("rank", **request)
+    assert len(board.jobs()) == 1

@@ -177,6 +177,29 @@ def test_a_job_given_the_workbook_names_answers_the_services_placements(client, 
     assert status["placements"]["drop_names"] == ["snf_boxes_m1_b1", "boxes"]
 
 
+def test_a_search_job_reports_each_finished_fold_and_answers_what_the_search_call_does(client, table):
+    args = [table, "spoiled", [["hidden"], [2], [3]], "epochs=20; workers=1", 3]
+    job = client.post("/v1/jobs", json={"name": "cell_Sheet1_H2", "args": args, "function": "SHEETNET.SEARCH"})
+    assert job.status_code == 202
+    status = _until_finished(client, job.json()["id"])
+    assert status["state"] == "done" and status["function"] == "SHEETNET.SEARCH"
+    assert (status["stage"], status["done"], status["total"]) == ("search folds", 6, 6)
+    assert _blank(status["result"]) == _blank(_call(client, "SHEETNET.SEARCH", *args))
+    assert "cell_Sheet1_H2" not in [m["name"] for m in client.get("/v1/models").json()["models"]]
+    long = client.post("/v1/jobs", json={"name": "cell_Sheet1_H9", "args": [table, "spoiled", None, "epochs=60; workers=1"], "function": "SHEETNET.SEARCH"})
+    for _ in range(1200):
+        seen = client.get(f"/v1/jobs/{long.json()['id']}").json()
+        if seen["done"] >= 1 or seen["state"] != "running":
+            break
+        time.sleep(0.05)
+    assert seen["state"] == "running" and seen["total"] == 60
+    assert client.delete(f"/v1/jobs/{long.json()['id']}").json()["state"] == "cancelling"
+    cancelled = _until_finished(client, long.json()["id"])
+    assert cancelled["state"] == "cancelled" and cancelled["message"] == "the search was cancelled" and cancelled["done"] < 60
+    refused = client.post("/v1/jobs", json={"name": "x", "args": [table, "spoiled"], "function": "SHEETNET.SEARCH", "holdout": 0.2})
+    assert refused.status_code == 422 and refused.json()["detail"].startswith("a search job stores no model and makes its own folds")
+
+
 def test_a_refused_job_request_leaves_no_job_behind(client, app, table):
     before = len(app.state.jobs.jobs())
     for _ in range(50):
