@@ -664,8 +664,8 @@ def _with_reliability(answer: Cells, kind: str, table_rows: list[tuple[float, fl
         title, observed = "probability of the picked class", "share picked right"
     part: Cells = [["reliability: " + title, "rows", "mean predicted", observed]]
     part += [[f"{low:.3g} to {high:.3g}", count, mean, share] for low, high, count, mean, share in table_rows]
-    rows = [list(row) + [""] * (width - len(row)) for row in [*answer, [""], *part]]
-    return rows
+    rows: list[list[Any]] = [*answer, [""], *part]
+    return [row + [""] * (width - len(row)) for row in rows]
 
 
 def _with_error_bars(answer: Cells, bars: dict[str, tuple[float, float]], level: float) -> Cells:

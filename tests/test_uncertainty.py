@@ -151,7 +151,7 @@ def test_score_shows_the_reliability_table_counted_by_hand():
     assert positive == "P(on time)"
     # the hand count: each row into bin floor(4 p) (p = 1 into the last), then per bin rows, mean p, share of the class
     counted = {}
-    for (p_first, p_second), row in zip(probabilities[1:], table[1:]):
+    for (_p_first, p_second), row in zip(probabilities[1:], table[1:]):
         b = min(int(p_second * 4), 3)
         counted.setdefault(b, []).append((p_second, row[1] == "on time"))
     blank = next(i for i, row in enumerate(answer) if row[0] == "")
