@@ -6,13 +6,18 @@ For each table and seed: a 75/25 holdout split (stratified for classes, the last
 quarter for the sunspot lags), the same standardised training rows for every
 model (scikit-learn through a StandardScaler fitted on the training rows, and
 for regression a scaled target, so nobody has a preparation advantage), the
-same hidden layer. sheetnet runs with its default settings. References:
+same hidden layer. sheetnet runs with its default settings twice: with the
+table's hidden layer given (like for like with the MLPs), and, on tables below
+`defaults.TUNING_ROW_LIMIT` training rows, with the hidden layers left blank,
+where cross-validation also weighs a network with no hidden layer (column
+"blank", with how many seeds kept no hidden layer). References:
 scikit-learn's MLPRegressor / MLPClassifier with solvers lbfgs and adam (their
 defaults otherwise) and LinearRegression / LogisticRegression. Printed per
-table: median holdout quality (R^2 or accuracy) of each, sheetnet's margin over
-the best reference, median fit times and the ratio of scikit-learn's fastest
-MLP solver to sheetnet, and prediction times for 10,000 rows. BLAS runs on one
-thread for everyone. Absolute times are noisy on shared machines: read ratios.
+table: median holdout quality (R^2 or accuracy) of each, sheetnet's margins
+(given hidden layer over the best reference; blank over the linear model),
+median fit times and the ratio of scikit-learn's fastest MLP solver's time to
+sheetnet's, and prediction times for 10,000 rows. BLAS runs on one thread for
+everyone. Absolute times are noisy on shared machines: read ratios.
 
 Reference data: scikit-learn's bundled diabetes, breast cancer, wine, iris and
 digits datasets and its make_friedman1 / make_classification generators;
@@ -117,10 +122,20 @@ def one_seed(X, y, kind, hidden, mode, seed) -> dict[str, tuple[float, float, ob
         model = reference_model(kind, hidden, solver, seed)
         seconds = median_time(lambda: model.fit(Xt, yt), 1)
         found[solver] = (quality(kind, model.predict(Xh), yh), seconds, model)
-    box = {}
-    seconds = median_time(lambda: box.setdefault("m", sheetnet.fit(Xt, yt, hidden=hidden, seed=seed)), 1)
-    found["sheetnet"] = (quality(kind, box["m"].predict(Xh), yh), seconds, box["m"])
+    contenders = {"sheetnet": hidden}
+    if len(yt) < sheetnet.defaults.TUNING_ROW_LIMIT:
+        contenders["blank"] = None  # the hidden layers left at their default
+    for who, layers in contenders.items():
+        box = {}
+        seconds = median_time(lambda: box.setdefault("m", sheetnet.fit(Xt, yt, hidden=layers, seed=seed)), 1)
+        found[who] = (quality(kind, box["m"].predict(Xh), yh), seconds, box["m"])
     return found
+
+
+HEADER = (
+    "| table | rows x columns | metric | sheetnet | blank (no hidden kept) | MLP lbfgs | MLP adam | linear | margin (best other) | "
+    "blank - linear | fit ms sheetnet / blank | fit ms sklearn fastest | fit ratio sheetnet / blank | predict 10k ratio | sheetnet ended |"
+)
 
 
 def main() -> None:
@@ -150,17 +165,25 @@ def main() -> None:
             predict_ref = median_time(lambda: ref.predict(many), 7)  # type: ignore[attr-defined]
         best = max(REFERENCES, key=lambda s: q[s])
         model = runs[0]["sheetnet"][2]
+        if "blank" in q:
+            kept_none = sum(r["blank"][2].hidden == () for r in runs)  # type: ignore[attr-defined]
+            blank = f"{q['blank']:.3f} ({kept_none} of {len(runs)})"
+            blank_margin = f"{q['blank'] - q['linear']:+.3f}"
+            blank_ms, blank_ratio = f" / {t['blank'] * 1e3:.0f}", f" / {t[fastest] / t['blank']:.1f}x"
+        else:
+            blank, blank_margin, blank_ms, blank_ratio = "-", "-", "", ""
         line = (
-            f"| {name} | {len(y):,} x {X.shape[1]} | {metric[kind]} | {q['sheetnet']:.3f} | {q['lbfgs']:.3f} | {q['adam']:.3f} | {q['linear']:.3f} | "
-            f"{q['sheetnet'] - q[best]:+.3f} ({best}) | {t['sheetnet'] * 1e3:.0f} | {t[fastest] * 1e3:.0f} ({fastest}) | "
-            f"{t[fastest] / t['sheetnet']:.1f}x | {predict_ref / predict_ours:.1f}x | {model.algorithm} {model.stopped_by} |"  # type: ignore[attr-defined]
+            f"| {name} | {len(y):,} x {X.shape[1]} | {metric[kind]} | {q['sheetnet']:.3f} | {blank} | {q['lbfgs']:.3f} | {q['adam']:.3f} | {q['linear']:.3f} | "
+            f"{q['sheetnet'] - q[best]:+.3f} ({best}) | {blank_margin} | {t['sheetnet'] * 1e3:.0f}{blank_ms} | {t[fastest] * 1e3:.0f} ({fastest}) | "
+            f"{t[fastest] / t['sheetnet']:.1f}x{blank_ratio} | {predict_ref / predict_ours:.1f}x | {model.algorithm} {model.stopped_by} |"  # type: ignore[attr-defined]
         )
         lines.append(line)
         print(line, flush=True)
     print()
-    print(f"medians over {seeds} seed(s) (one for 50,000 rows or more); margin: sheetnet minus the best reference")
-    print("| table | rows x columns | metric | sheetnet | MLP lbfgs | MLP adam | linear | margin (best) | fit ms sheetnet | fit ms sklearn fastest | fit ratio | predict 10k ratio | sheetnet ended |")
-    print("|---|---|---|---|---|---|---|---|---|---|---|---|---|")
+    print(f"medians over {seeds} seed(s) (one for 50,000 rows or more); margin: sheetnet (hidden layer given) minus the best reference; "
+          "blank: hidden layers left at the default; fit ratio: scikit-learn's fastest MLP solver's time over sheetnet's")
+    print(HEADER)
+    print("|" + "---|" * HEADER.count(" | ") + "---|")
     print("\n".join(lines))
 
 
