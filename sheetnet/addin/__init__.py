@@ -111,7 +111,13 @@ def functions_metadata() -> dict[str, Any]:
 
 def functions_script() -> str:
     """The custom-functions script: each function forwards its arguments to the server."""
-    table = {e.name: {"arguments": len(e.arguments), "job": e.name in JOB_FUNCTIONS, "preview": e.name not in NOT_IN_PREVIEW} for e in REGISTRY}
+    table = {
+        e.name: {
+            "arguments": len(e.arguments), "job": e.name in JOB_FUNCTIONS, "preview": e.name not in NOT_IN_PREVIEW,
+            "tables": [i for i, a in enumerate(e.arguments) if a.name == "table"],  # sent by columns (sheetnet.cells.COLUMN_FORM)
+        }
+        for e in REGISTRY
+    }
     associations = "\n".join(
         f'  CustomFunctions.associate("{function_id(e)}", (...args) => callSheetnet("{e.name}", args));' for e in REGISTRY
     )

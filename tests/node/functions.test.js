@@ -164,10 +164,16 @@ test("every registry function gives in the runtime what the Python call gives", 
     if (id === "TRAIN") assert.deepEqual(withoutTimeAndSeal(cell.values), withoutTimeAndSeal(expected[k]));
     else assert.deepEqual(cell.values, expected[k], id);
   }
-  // no invocation object ever went to the server, and trailing blank optionals were left out
+  // no invocation object ever went to the server (a table goes by columns), and trailing blank optionals were left out
   for (const request of made.requests.filter((r) => r.body)) {
-    for (const value of request.body.args) assert.ok(value === null || typeof value !== "object" || Array.isArray(value), JSON.stringify(value));
+    for (const value of request.body.args) {
+      const byColumns = value !== null && typeof value === "object" && !Array.isArray(value) && Object.keys(value).sort().join() === "columns,header";
+      assert.ok(value === null || typeof value !== "object" || Array.isArray(value) || byColumns, JSON.stringify(value).slice(0, 200));
+    }
   }
+  const predicted = made.requests.find((r) => r.url.endsWith("/v1/functions/SHEETNET.PREDICT")).body.args[1];
+  assert.deepEqual(predicted.header, table[0]);
+  assert.deepEqual(predicted.columns.map((c) => (Array.isArray(c) ? "cells" : "numbers")), table[0].map((name) => (["lot", "process", "grade"].includes(name) ? "cells" : "numbers")));
   const train = made.requests.find((r) => r.url.endsWith("/v1/jobs") && r.method === "POST");
   assert.equal(train.body.name, "cell_Sheet1_K2");  // a cell's training is listed under its cell
   assert.equal(train.body.args.length, 5);
@@ -205,8 +211,8 @@ test("an error cell in a range reaches sheetnet as its code and is named in the 
   assert.equal(cell.error, "#VALUE!");
   assert.equal(cell.message, messageOf(answer));
   assert.ok(cell.message.includes("#N/A"), cell.message);  // named as the error it is, not as a blank
-  const sent = made.requests.find((r) => r.method === "POST").body.args[0][6][1];
-  assert.equal(sent, "#N/A");
+  const sent = made.requests.find((r) => r.method === "POST").body.args[0];  // the table by columns: this one as its cells
+  assert.equal(sent.columns[1][5], "#N/A");
 });
 
 test("a value that is not a cell value is refused before anything is sent", async () => {
@@ -278,4 +284,52 @@ test("the stand-in itself refuses what the documented contract rules out", async
   await assert.rejects(ragged.calculate("LAGS", [[["x"]]]).done, ContractBroken);
   const thrown = new Runtime("CustomFunctions.associate('LAGS', () => { throw new Error('boom'); });", metadata, {});
   assert.equal((await thrown.calculate("LAGS", [[["x"]]]).done).error, "#VALUE!");  // Excel's answer to an unhandled exception
+});
+
+// the doubles of a base64 column, read back as the server reads them (little-endian IEEE 754)
+function doublesOf(text) {
+  const bytes = Buffer.from(text, "base64");
+  return Array.from({ length: bytes.length / 8 }, (_, i) => bytes.readDoubleLE(i * 8));
+}
+
+test("a table goes to the server by columns: numbers as base64 doubles, every other column as its cells", async () => {
+  const made = runtime();
+  // every length's padding (0, 1 and 2 '=') and a column longer than one chunk of the encoder
+  for (const length of [0, 1, 2, 3, 4, 5, 1001]) {
+    const cells = Array.from({ length }, (_, i) => (i % 7 === 3 ? null : (i - 500) / 3 + (i % 2 ? -0 : 1e-300)));
+    const text = made.context.sheetnetDoubles(cells);
+    assert.equal(text, Buffer.from(new Float64Array(cells.map((c) => (c === null ? NaN : c))).buffer).toString("base64"), `length ${length}`);
+    assert.deepEqual(doublesOf(text).map((v) => (Number.isNaN(v) ? null : v)), cells);
+  }
+  const table = await python(["table", "300", "6"]);
+  const model = (await pythonCalls([["SHEETNET.TRAIN", [table, "grade", "4", "ignore=lot; epochs=60; blank_rows=skip"]]]))[0];
+  const holey = table.map((row) => [...row]);
+  holey[4][1] = null;  // an empty cell: the column still goes as numbers (NaN)
+  holey[5][2] = "";  // an empty text: the column goes as its cells, as the server would read it by rows
+  holey[6][3] = true;  // TRUE in a number column: its cells, so the server names it
+  holey[7][4] = errorCell("#N/A");
+  holey[8] = holey[8].map(() => null);  // a blank row: a blank answer
+  const cell = await made.calculate("PREDICT", [model, holey, "value, probabilities"]).done;
+  const asCodes = holey.map((row) => row.map((v) => (v && typeof v === "object" ? "#N/A" : v)));
+  const [expected] = await pythonCalls([["SHEETNET.PREDICT", [model, asCodes, "value, probabilities"]]]);
+  assert.deepEqual(cell, { error: "#VALUE!", message: messageOf(expected) });  // the message the row form gets, word for word
+  const sent = made.requests.find((r) => r.url.endsWith("/v1/functions/SHEETNET.PREDICT")).body.args[1];
+  assert.deepEqual(sent.header, table[0]);
+  const [lot, moisture, density, defects, altitude, processing, grade] = sent.columns;
+  assert.ok(Array.isArray(lot) && Array.isArray(processing) && Array.isArray(grade));
+  assert.deepEqual(doublesOf(moisture.numbers).map((v) => (Number.isNaN(v) ? null : v)), holey.slice(1).map((row) => row[1]));
+  assert.deepEqual(density, holey.slice(1).map((row) => row[2]));  // the empty text kept as it is
+  assert.equal(defects[5], true);
+  assert.equal(altitude[6], "#N/A");
+  // without the bad cells: every row answered, and exactly the Python answer on the rows
+  const clean = table.map((row) => [...row]);
+  clean[4][1] = null;
+  clean[8] = clean[8].map(() => null);
+  const answered = await made.calculate("PREDICT", [model, clean, "value, probabilities"]).done;
+  const [direct] = await pythonCalls([["SHEETNET.PREDICT", [model, clean, "value, probabilities"]]]);
+  assert.ok(answered.values, JSON.stringify(answered));
+  assert.deepEqual(answered.values, direct);
+  assert.deepEqual(answered.values[8], direct[0].map(() => ""));
+  const about = await made.calculate("ABOUT", [model, clean]).done;
+  assert.deepEqual(about.values, (await pythonCalls([["SHEETNET.ABOUT", [model, clean]]]))[0]);
 });
