@@ -65,7 +65,7 @@ SETTINGS: tuple[Setting, ...] = (
     Setting("adam_epsilon", float, 1e-8, "Adam constant added to the denominator", low=0.0),
     Setting("lbfgs_memory", int, 10, "L-BFGS number of stored correction pairs", low=1, high=1000),
     Setting("repeats", int, 1, "networks trained from different seeds and averaged", low=1, high=1000),
-    Setting("workers", int, None, "processes for repeats; none: one per core", low=1, high=256, allow_none=True),
+    Setting("workers", int, None, "processes for repeats and search fits; none: chosen from the free cores, or the cluster's workers", low=1, high=256, allow_none=True),
     Setting("threshold", float, 0.5, "binary models: probability of the second class at or above which it is predicted", low=0.0, high=1.0),
     Setting("precision", str, "auto", f"arithmetic of training; auto: float32 from {d.FLOAT32_ROW_LIMIT:,} training rows on, else float64 (prediction is always float64)", choices=PRECISIONS),
 )
