@@ -752,7 +752,7 @@ def data_unchanged(model: Any, table: Any) -> bool:
     sheet = read_sheet_table(table)
     columns = [*decoded.input_names, info.target]
     for name in columns:
-        sheet.column(name)
+        sheet.values(name)  # a missing column named (no DataFrame built for it)
     used = _rows_used(sheet, columns, options["skip_blanks"])
     return _same_data(sheet, columns, used, info)
 
