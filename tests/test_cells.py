@@ -359,3 +359,26 @@ def test_about_compares_a_block_with_a_first_scheme_fingerprint_in_that_scheme()
         assert since_training(stored, retexted).startswith("changed")
         assert dict(map(tuple, functions.score(stored, grid)))["rows scored"] == functions.ROWS_SCORED_TRAINING
         assert dict(map(tuple, functions.score(stored, edited)))["rows scored"] == functions.ROWS_SCORED_UNSPLIT
+
+
+@pytest.mark.parametrize(
+    "odd",
+    [True, False, np.bool_(True), np.bool_(False), "1.5", "x", None, float("nan"), 10**20, 2**63, np.float32(1.0), np.int64(1), 0, 1, -0.0, datetime.date(2026, 1, 1)],
+)
+def test_a_range_of_numbers_with_one_other_cell_reads_as_each_column_read_alone(odd):
+    # the fast path reads a range of numbers in one C pass; one other cell in the middle must still make its column
+    # read exactly as the column alone reads (TRUE stays TRUE, a number as text stays text), and the table's matrix
+    # is kept only when every column is numbers
+    rng = np.random.default_rng(2)
+    grid: list[list[object]] = [["a", "b", "c"]] + [[float(x), int(k), float(y)] for k, (x, y) in enumerate(rng.normal(size=(30, 2)))]
+    grid[15][1] = odd
+    table = cells.read_sheet_table(grid)
+    for j, name in enumerate(["a", "b", "c"]):
+        alone = cells._typed_column([row[j] for row in grid[1:]], grid, "table")
+        read = table.values(name)
+        assert read.dtype == alone.dtype, name
+        assert [type(v) for v in read.tolist()] == [type(v) for v in alone.tolist()]
+        assert read.tolist() == pytest.approx(alone.tolist(), nan_ok=True) if read.dtype.kind == "f" else read.tolist() == alone.tolist()
+    assert (table.numbers is not None) == all(table.values(n).dtype.kind == "f" for n in "abc")
+    if table.numbers is not None:
+        assert np.array_equal(table.number_matrix(["c", "a"], np.ones(30, dtype=bool)), np.column_stack([table.values("c"), table.values("a")]), equal_nan=True)
