@@ -17,7 +17,16 @@ Pure NumPy, no I/O.
 - Percentile bootstrap (Efron & Tibshirani 1993, "An Introduction to the
   Bootstrap", ch. 13): resample the scored rows with replacement, compute
   the metric on each resample, and take the ``(1 - level) / 2`` and
-  ``(1 + level) / 2`` quantiles of the resampled metrics.
+  ``(1 + level) / 2`` quantiles of the resampled metrics. The resamples are
+  one index matrix (resamples x rows, `resample_indices`, drawn in one call:
+  the same indices as drawing each resample in turn from the same seed);
+  `metric_error_bars` counts how often each row is drawn into each resample
+  and computes every metric of every resample at once as counts-weighted
+  sums (matrix-vector products; `resampled_regression_metrics`,
+  `resampled_class_metrics`, the definitions of `sheetnet.metrics`). The
+  resamples are the ones drawing them in turn gives; the intervals agree
+  with computing each resample's metrics in turn to about 1e-13 (sums
+  are taken in another order), not bit for bit.
 - Reliability table (a calibration check, common practice, no source): predicted
   probabilities cut into equal-width bins (the last bin closed), each with its
   rows, mean predicted probability and observed share; SCORE's ``reliability``
@@ -135,21 +144,133 @@ def bootstrap_intervals(
     not a float on a resample (MAPE near zero, AUC with one class) use the
     resamples where they are defined, and are left out when fewer than half are.
     """
-    if rows < 2:
-        raise InputError("an error bar needs at least 2 scored rows; score more rows")
-    rng = np.random.default_rng(seed)
     draws: dict[str, list[float]] = {}
-    for _ in range(resamples):
-        found = metric(rng.integers(0, rows, rows))
+    for indices in resample_indices(rows, resamples, seed):
+        found = metric(indices)
         for name, value in found.items():
             if isinstance(value, float) and math.isfinite(value):
                 draws.setdefault(name, []).append(value)
+    return _percentiles({name: np.asarray(values) for name, values in draws.items()}, level, resamples)
+
+
+def resample_indices(rows: int, resamples: int = BOOTSTRAP_RESAMPLES, seed: int = BOOTSTRAP_SEED) -> np.ndarray:
+    """Bootstrap resamples of ``range(rows)`` with replacement, shape (resamples, rows), one per line."""
+    if rows < 2:
+        raise InputError("an error bar needs at least 2 scored rows; score more rows")
+    return np.random.default_rng(seed).integers(0, rows, (resamples, rows))
+
+
+def resample_counts(rows: int, resamples: int = BOOTSTRAP_RESAMPLES, seed: int = BOOTSTRAP_SEED) -> np.ndarray:
+    """How often each row is drawn into each resample of `resample_indices`, shape (resamples, rows), as floats."""
+    indices = resample_indices(rows, resamples, seed)
+    flat = (indices + rows * np.arange(resamples)[:, None]).ravel()
+    return np.bincount(flat, minlength=resamples * rows).reshape(resamples, rows).astype(np.float64)
+
+
+def batched_bootstrap_intervals(
+    metrics: Callable[[np.ndarray], Mapping[str, np.ndarray]],
+    rows: int,
+    level: float = DEFAULT_LEVEL,
+    resamples: int = BOOTSTRAP_RESAMPLES,
+    seed: int = BOOTSTRAP_SEED,
+) -> dict[str, tuple[float, float]]:
+    """`bootstrap_intervals` with every resample at once: ``metrics(counts)`` gets `resample_counts` (how
+    often each row is in each resample, the same resamples) and returns, per metric, one value per
+    resample (NaN where undefined on it)."""
+    from .network import one_blas_thread
+
+    with one_blas_thread():  # matrix-vector products: a second thread only adds hand-overs on busy cores
+        found = metrics(resample_counts(rows, resamples, seed))
+    return _percentiles({name: values[np.isfinite(values)] for name, values in found.items()}, level, resamples)
+
+
+def _percentiles(draws: Mapping[str, np.ndarray], level: float, resamples: int) -> dict[str, tuple[float, float]]:
     low, high = (1 - level) / 2, (1 + level) / 2
     return {
         name: (float(np.quantile(values, low)), float(np.quantile(values, high)))
         for name, values in draws.items()
         if len(values) * 2 >= resamples
     }
+
+
+def resampled_regression_metrics(actual: Any, predicted: Any, counts: np.ndarray) -> dict[str, np.ndarray]:
+    """RMSE, MAE, MAPE and R^2 of each resample (a line of ``counts``), as `sheetnet.metrics` defines them:
+    a mean over a resample is the counts-weighted mean over the rows. MAPE is NaN on a resample where
+    `metrics.mape_left_out_reason` would leave it out."""
+    from .metrics import NEAR_ZERO_SHARE
+
+    a = np.asarray(actual, dtype=np.float64)
+    error = a - np.asarray(predicted, dtype=np.float64)
+    n = counts.shape[1]
+    size = np.abs(a)
+    squared = counts @ error**2 / n
+    undefined = (counts @ (a == 0) > 0) | ((counts @ (a < 0) > 0) & (counts @ (a > 0) > 0))
+    near = np.flatnonzero(size < NEAR_ZERO_SHARE * size.max())  # only these rows can be near zero against a resample's mean size
+    if len(near):
+        smallest = np.where(counts[:, near] > 0, size[near], np.inf).min(axis=1)
+        undefined |= smallest < NEAR_ZERO_SHARE * (counts @ size / n)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        mape = np.where(undefined, np.nan, counts @ (np.abs(error) / size) / n)
+    centred = a - a.mean()  # sums of squares about each resample's mean, from sums about one centre (little cancellation)
+    shift = counts @ centred / n
+    total = np.maximum(counts @ centred**2 - n * shift**2, 0.0)
+    residual = squared * n
+    with np.errstate(divide="ignore", invalid="ignore"):
+        r2 = np.where(total <= 1e-12 * (counts @ centred**2), np.where(residual == 0, 1.0, 0.0), 1.0 - residual / total)
+    return {"rmse": np.sqrt(squared), "mae": counts @ np.abs(error) / n, "mape": mape, "r2": r2}
+
+
+def resampled_class_metrics(actual_index: Any, probabilities: Any, decided: Any, counts: np.ndarray) -> dict[str, np.ndarray]:
+    """Accuracy, balanced accuracy, log-loss, Brier score (and ROC AUC for two classes) of each resample
+    (a line of ``counts``), as `sheetnet.metrics.classification_metrics` defines them; AUC is NaN where a
+    resample holds one class."""
+    index = np.asarray(actual_index, dtype=np.int64)
+    p = np.asarray(probabilities, dtype=np.float64)
+    hit = (np.asarray(decided, dtype=np.int64) == index).astype(np.float64)
+    n = counts.shape[1]
+    eps = np.finfo(np.float64).eps
+    clipped = np.clip(p, eps, 1 - eps)
+    clipped = clipped / clipped.sum(axis=1, keepdims=True)
+    row_log_loss = -np.log(clipped[np.arange(len(index)), index])
+    if p.shape[1] == 2:
+        row_brier = (p[:, 1] - (index == 1)) ** 2
+    else:
+        row_brier = np.sum((p - np.eye(p.shape[1])[index]) ** 2, axis=1)
+    one_hot = np.eye(p.shape[1])[index]  # rows x classes
+    per_class = counts @ one_hot
+    with np.errstate(divide="ignore", invalid="ignore"):
+        recall = np.where(per_class > 0, (counts @ (one_hot * hit[:, None])) / per_class, np.nan)
+    found = {
+        "accuracy": counts @ hit / n,
+        "balanced_accuracy": np.nanmean(recall, axis=1),
+        "log_loss": counts @ row_log_loss / n,
+        "brier": counts @ row_brier / n,
+    }
+    if p.shape[1] == 2:
+        found["roc_auc"] = _resampled_auc(index == 1, p[:, 1], counts)
+    return found
+
+
+def _resampled_auc(positive: np.ndarray, score: np.ndarray, counts: np.ndarray) -> np.ndarray:
+    """Mann-Whitney AUC of each resample, ties counted half: per distinct score (ascending), the positives
+    drawn there times the negatives drawn below it plus half those drawn at it, over positives times negatives."""
+    order = np.argsort(score, kind="stable")
+    ordered, is_positive = score[order], positive[order].astype(np.float64)
+    weights = np.take(counts, order, axis=1)
+    n_pos = weights @ is_positive
+    n_neg = counts.shape[1] - n_pos  # every resample draws as many rows as there are
+    starts = np.flatnonzero(np.r_[True, ordered[1:] != ordered[:-1]])  # first row of each distinct score
+    if len(starts) == len(ordered):  # no ties (the usual case): a row's own score holds no negative besides itself
+        neg = weights * (1.0 - is_positive)
+        below = np.cumsum(neg, axis=1)
+        pairs = np.einsum("ij,ij,j->i", weights, below, is_positive)
+    else:
+        pos = np.add.reduceat(weights * is_positive, starts, axis=1)
+        neg = np.add.reduceat(weights * (1.0 - is_positive), starts, axis=1)
+        pairs = np.sum(pos * (np.cumsum(neg, axis=1) - 0.5 * neg), axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        auc = pairs / (n_pos * n_neg)
+    return np.where((n_pos == 0) | (n_neg == 0), np.nan, auc)
 
 
 def reliability_table(actual_positive: Any, probability: Any, bins: int = 10) -> list[tuple[float, float, int, float, float]]:
@@ -223,22 +344,18 @@ def metric_error_bars(
 ) -> dict[str, tuple[float, float]]:
     """Percentile-bootstrap intervals of the scalar metrics `sheetnet.score` gives, over the rows ``X``, ``y``.
 
-    The network runs once; each resample recomputes the metrics from the kept predictions.
+    The network runs once; the metrics of every resample are computed at once from the kept predictions.
     """
-    from .metrics import classification_metrics, regression_metrics
     from .preparation import numbers_of, read_target
 
     actual = read_target(y)
     if model.task == "regression":
         a, p = numbers_of("target", actual), model.predict(X)
-        return bootstrap_intervals(lambda rows: regression_metrics(a[rows], p[rows]), len(a), level, resamples, seed)
+        return batched_bootstrap_intervals(lambda rows: resampled_regression_metrics(a, p, rows), len(a), level, resamples, seed)
     index = model.target.class_indices(actual)
     probabilities = model.predict_proba(X)
     decided = (probabilities[:, 1] >= model.threshold).astype(np.int64) if model.task == "binary" else probabilities.argmax(axis=1)
-    classes = model.classes
-    return bootstrap_intervals(
-        lambda rows: classification_metrics(index[rows], probabilities[rows], classes, decided[rows]), len(index), level, resamples, seed
-    )
+    return batched_bootstrap_intervals(lambda rows: resampled_class_metrics(index, probabilities, decided, rows), len(index), level, resamples, seed)
 
 
 def model_reliability(model: Any, X: Any, y: Any, bins: int = DEFAULT_BINS) -> tuple[str, list[tuple[float, float, int, float, float]]]:

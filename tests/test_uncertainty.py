@@ -183,3 +183,51 @@ def test_reliability_for_several_classes_and_its_refusals():
     numbers = [["x", "y"]] + [[float(i), float(i % 7)] for i in range(30)]
     refused = functions.score(functions.train(numbers, "y", "2", "epochs=10"), numbers, None, None, 5)
     assert refused[0][0].startswith("#SHEETNET! a reliability table is for models that predict classes")
+
+
+def _looped_error_bars(model, X, y, level=0.9, resamples=1000, seed=0):
+    """The plain reference: each resample in turn through sheetnet.metrics, as the bootstrap was first written."""
+    from sheetnet.metrics import classification_metrics, regression_metrics
+
+    if model.task == "regression":
+        a, p = np.asarray(y, dtype=np.float64), model.predict(X)
+        return u.bootstrap_intervals(lambda rows: regression_metrics(a[rows], p[rows]), len(a), level, resamples, seed)
+    index = model.target.class_indices(np.asarray(y, dtype=object))
+    probabilities = model.predict_proba(X)
+    decided = (probabilities[:, 1] >= model.threshold).astype(np.int64) if model.task == "binary" else probabilities.argmax(axis=1)
+    return u.bootstrap_intervals(
+        lambda rows: classification_metrics(index[rows], probabilities[rows], model.classes, decided[rows]), len(index), level, resamples, seed
+    )
+
+
+@pytest.mark.parametrize("kind", ["regression", "binary", "multiclass"])
+def test_batched_error_bars_equal_the_resample_by_resample_reference(kind, friedman_model):
+    rng = np.random.default_rng(11)
+    if kind == "regression":
+        model = friedman_model
+        X, y = make_friedman1(41, noise=1.0, random_state=5)  # an odd count of rows; MAPE is defined on some resamples only
+        y = y - 2.0
+    else:
+        X = rng.normal(size=(300, 2))
+        labels = (X[:, 0] + rng.normal(0, 0.7, 300) > 0).astype(int) + (kind == "multiclass") * (X[:, 1] > 0.8)
+        y = np.array(["c%d" % v for v in labels], dtype=object)
+        model = sheetnet.fit(X[:200], y[:200], (3,), seed=0, epochs=40)
+        X, y = X[200:237], y[200:237]
+    fast = u.metric_error_bars(model, X, y, 0.9, resamples=400, seed=3)
+    slow = _looped_error_bars(model, X, y, 0.9, resamples=400, seed=3)
+    assert sorted(fast) == sorted(slow) and len(fast) >= 3, sorted(slow)
+    assert {"regression": "mape", "binary": "roc_auc", "multiclass": "balanced_accuracy"}[kind] in fast
+    for name, (low, high) in slow.items():
+        assert fast[name] == pytest.approx((low, high), rel=1e-12, abs=1e-14), name
+
+
+@pytest.mark.parametrize("decimals", [None, 1])
+def test_resampled_roc_auc_equals_the_rank_form_with_and_without_ties(decimals):
+    from sheetnet.metrics import roc_auc
+
+    rng = np.random.default_rng(1)
+    positive, score = rng.integers(0, 2, 37).astype(bool), rng.uniform(0, 1, 37)
+    score = score if decimals is None else np.round(score, decimals)  # rounded: many ties, counted half
+    expected = [roc_auc(positive[i], score[i]) for i in u.resample_indices(37, 60, 2)]
+    found = u.resampled_class_metrics(positive.astype(int), np.c_[1 - score, score], positive.astype(int), u.resample_counts(37, 60, 2))["roc_auc"]
+    assert [None if np.isnan(f) else f for f in found] == pytest.approx(expected, abs=1e-12)
