@@ -1,6 +1,7 @@
 """sheetnet's defaults against scikit-learn's MLP and a linear model, side by side in one run.
 
 Run by hand:  python tests/benchmarks/vs_reference.py [--quick] [--only NAME] [--seeds N]
+              python tests/benchmarks/vs_reference.py --algorithms   (the auto algorithm choice: L-BFGS against Adam)
 
 For each table and seed: a 75/25 holdout split (stratified for classes, the last
 quarter for the sunspot lags), the same standardised training rows for every
@@ -132,6 +133,27 @@ def one_seed(X, y, kind, hidden, mode, seed) -> dict[str, tuple[float, float, ob
     return found
 
 
+def compare_algorithms() -> None:
+    """sheetnet's L-BFGS against its Adam around `defaults.LBFGS_ROW_LIMIT` (one seed, hidden layer of 16, defaults otherwise)."""
+    print("| table | training rows | L-BFGS quality | L-BFGS s | Adam quality | Adam s | Adam time / L-BFGS time |")
+    print("|---|---|---|---|---|---|---|")
+    for rows in (20_000, 50_000, 100_000):
+        generated = (
+            ("friedman1", *datasets.make_friedman1(rows, noise=1.0, random_state=0), "regression", "random"),
+            ("classification", *datasets.make_classification(rows, n_features=20, n_informative=10, random_state=0), "classes", "stratified"),
+        )
+        for name, X, y, kind, mode in generated:
+            held = sheetnet.holdout_mask(len(y), 0.25, 0, mode, y if kind == "classes" else None)
+            found = {}
+            for algorithm in ("lbfgs", "adam"):
+                box = {}
+                with threadpool_limits(1, user_api="blas"):
+                    seconds = median_time(lambda: box.setdefault("m", sheetnet.fit(X[~held], y[~held], hidden=(16,), seed=0, algorithm=algorithm)), 1)
+                found[algorithm] = (quality(kind, box["m"].predict(X[held]), y[held]), seconds)
+            (ql, tl), (qa, ta) = found["lbfgs"], found["adam"]
+            print(f"| {name} | {int((~held).sum()):,} | {ql:.4f} | {tl:.2f} | {qa:.4f} | {ta:.2f} | {ta / tl:.2f} |", flush=True)
+
+
 HEADER = (
     "| table | rows x columns | metric | sheetnet | blank (no hidden kept) | MLP lbfgs | MLP adam | linear | margin (best other) | "
     "blank - linear | fit ms sheetnet / blank | fit ms sklearn fastest | fit ratio sheetnet / blank | predict 10k ratio | sheetnet ended |"
@@ -143,9 +165,13 @@ def main() -> None:
     parser.add_argument("--quick", action="store_true", help="one seed, no 100,000-row tables")
     parser.add_argument("--only", default="", help="run only tables whose name contains this")
     parser.add_argument("--seeds", type=int, default=None, help="seeds per table (default 3, --quick 1; tables of 50,000 rows or more: 1)")
+    parser.add_argument("--algorithms", action="store_true", help="only compare sheetnet's L-BFGS and Adam around the auto switch")
     args = parser.parse_args()
     warnings.simplefilter("ignore", ConvergenceWarning)
     warnings.simplefilter("ignore", sheetnet.errors.SheetnetWarning)  # digits has constant pixel columns
+    if args.algorithms:
+        compare_algorithms()
+        return
     seeds = args.seeds or (1 if args.quick else 3)
     metric = {"regression": "R^2", "classes": "accuracy"}
     lines = []
