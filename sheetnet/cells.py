@@ -175,7 +175,7 @@ def read_sheet_table(cells: Any, what: str = "table") -> SheetTable:
     names = _column_names(grid[0], what)
     body = grid[1:]
     typed, blank, numbers = _typed_columns(body, len(names), grid, what)
-    return _table(names, typed, blank, what, numbers)
+    return _table(names, typed, blank, numbers, what=what)
 
 
 COLUMN_FORM = """A range sent column by column: ``{"header": [names...], "columns": [column, ...]}``.
@@ -210,10 +210,14 @@ def _read_column_form(form: dict[str, Any], what: str) -> SheetTable:
         return [header, *map(list, zip(*(c.tolist() if isinstance(c, np.ndarray) else c for c in cells)))]
 
     typed = [column if isinstance(column, np.ndarray) else _typed_column(column, as_rows, what) for column in cells]
+    if all(values.dtype.kind == "f" for values in typed):  # every column numbers: one matrix, the columns its views (one copy)
+        columns, blank, numbers = _number_columns(np.column_stack(typed))
+        return _table(names, columns, blank, numbers, what=what)
+    typed = [np.array(values) if values.base is not None else values for values in typed]  # decoded in place: copies of their own
     blank = np.ones(height, dtype=bool)
     for values in typed:
         blank &= np.isnan(values) if values.dtype.kind == "f" else _none_mask(values)
-    return _table(names, typed, blank, what)
+    return _table(names, typed, blank, what=what)
 
 
 def column_form_shape(form: dict[str, Any]) -> tuple[int, int]:
@@ -246,10 +250,10 @@ def _column_cells(column: Any, j: int, what: str, fix: str) -> np.ndarray | list
         raw = None
     if raw is None or len(raw) % 8:
         raise InputError(f"column {j + 1} of the {what} came neither as a list of cells nor as numbers written as base64 doubles; {fix}")
-    return np.frombuffer(raw, dtype="<f8").astype(np.float64)
+    return np.frombuffer(raw, dtype="<f8").astype(np.float64, copy=False)  # a view of the decoded bytes (a copy only on a big-endian machine)
 
 
-def _table(names: list[str], typed: list[np.ndarray], blank: np.ndarray, what: str, numbers: np.ndarray | None = None) -> SheetTable:
+def _table(names: list[str], typed: list[np.ndarray], blank: np.ndarray, numbers: np.ndarray | None = None, *, what: str) -> SheetTable:
     keep = np.flatnonzero(~blank)
     if not len(keep):
         raise InputError(f"the {what} has a header but no data rows; include the rows below the header")

@@ -382,3 +382,15 @@ def test_a_range_of_numbers_with_one_other_cell_reads_as_each_column_read_alone(
     assert (table.numbers is not None) == all(table.values(n).dtype.kind == "f" for n in "abc")
     if table.numbers is not None:
         assert np.array_equal(table.number_matrix(["c", "a"], np.ones(30, dtype=bool)), np.column_stack([table.values("c"), table.values("a")]), equal_nan=True)
+
+
+def test_a_table_of_numbers_sent_by_columns_reads_as_by_rows_and_keeps_its_matrix():
+    grid: list[list[object]] = [["a", "b"], [1.0, -0.5], [None, None], [3.0, None], [2.5, 7.0]]
+    by_rows, by_columns = cells.read_sheet_table(grid), cells.read_sheet_table(column_form(grid, numbers=(0, 1)))
+    assert by_columns.data_rows.tolist() == by_rows.data_rows.tolist() == [0, 2, 3]
+    for table in (by_rows, by_columns):
+        assert table.numbers is not None and table.numbers.shape == (3, 2)
+        assert np.array_equal(table.number_matrix(["b", "a"], np.ones(3, dtype=bool)), [[-0.5, 1.0], [np.nan, 3.0], [7.0, 2.5]], equal_nan=True)
+        assert np.array_equal(table.number_matrix(["a"], np.array([True, False, True])), [[1.0], [2.5]])
+    mixed = cells.read_sheet_table(column_form([["a", "t"], [1.0, "x"], [2.0, "y"]], numbers=(0,)))
+    assert mixed.numbers is None and mixed.values("a").flags.writeable  # a column decoded from base64 is an array of its own
