@@ -558,6 +558,8 @@ def _clean(value: Any) -> Any:
 
 def numeric_frame(frame: pd.DataFrame) -> pd.DataFrame:
     """Columns whose filled cells are all numbers become float columns (so the fast paths apply)."""
+    if all(dtype.kind == "f" for dtype in frame.dtypes):
+        return frame  # float columns already: not copied into a frame of their own again
     out = {}
     for name in frame.columns:
         values = frame[name]
