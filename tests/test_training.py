@@ -69,6 +69,14 @@ def test_parallel_repeats_equal_sequential_repeats(rng):
     assert np.all(spread["low"] <= spread["mean"]) and np.all(spread["mean"] <= spread["high"])
 
 
+def test_folds_in_processes_choose_and_train_as_folds_run_here(rng):
+    X, y = _regression_table(rng, 120)
+    here = sheetnet.fit(X, y, seed=5, workers=1, epochs=60)
+    parallel = sheetnet.fit(X, y, seed=5, workers=2, epochs=60)
+    assert (parallel.settings["decay"], parallel.settings["hidden_chosen"]) == (here.settings["decay"], here.settings["hidden_chosen"])
+    np.testing.assert_array_equal(parallel.members[0].theta, here.members[0].theta)
+
+
 def test_a_network_learns_a_nonlinear_function(rng):
     X, y = _regression_table(rng, 600)
     model = sheetnet.fit(X[:500], y[:500], hidden=(10,), seed=0)
