@@ -363,7 +363,10 @@ def test_about_compares_a_block_with_a_first_scheme_fingerprint_in_that_scheme()
 
 @pytest.mark.parametrize(
     "odd",
-    [True, False, np.bool_(True), np.bool_(False), "1.5", "x", None, float("nan"), 10**20, 2**63, np.float32(1.0), np.int64(1), 0, 1, -0.0, datetime.date(2026, 1, 1)],
+    [
+        True, False, np.bool_(True), np.bool_(False), "1.5", "x", None, float("nan"), 10**20, 2**63,
+        np.float32(1.0), np.int64(1), 0, 1, -0.0, datetime.date(2026, 1, 1),
+    ],
 )
 def test_a_range_of_numbers_with_one_other_cell_reads_as_each_column_read_alone(odd):
     # the fast path reads a range of numbers in one C pass; one other cell in the middle must still make its column
