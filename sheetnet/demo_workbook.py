@@ -21,6 +21,8 @@ import numpy as np
 import openpyxl
 import pandas as pd
 from openpyxl.chart import BarChart, LineChart, Reference, ScatterChart, Series
+from openpyxl.chart.axis import NumericAxis
+from openpyxl.chart.data_source import NumFmt
 from openpyxl.formatting.rule import ColorScaleRule
 from openpyxl.styles import Font, PatternFill
 from openpyxl.utils.cell import get_column_letter
@@ -70,11 +72,19 @@ def _cells(frame: pd.DataFrame) -> list[list[Any]]:
     return [list(frame.columns)] + rows
 
 
+FONT = "Calibri"  # the workbook's own font (openpyxl's default style); LibreOffice shows its metric twin, Carlito
+
+
+def _bold(size: float = 11) -> Font:
+    """A bold face of the workbook's font: a Font naming none is drawn by LibreOffice in a serif fallback."""
+    return Font(name=FONT, bold=True, size=size)
+
+
 def _header(sheet: Any, row: int, column: int, values: list[Any]) -> None:
     for j, value in enumerate(values):
         write_text_safe(sheet, row, column + j, value)
         cell = sheet.cell(row, column + j)
-        cell.font = Font(bold=True)
+        cell.font = _bold()
         cell.fill = HEADER_FILL
 
 
@@ -119,25 +129,25 @@ def write_scenario(workbook: Any, scenario: Scenario, progress: ProgressCallback
         sheet.column_dimensions[get_column_letter(j)].width = 14
 
     side = native + 2  # first column right of the answers
-    sheet.cell(1, side, scenario.title).font = Font(bold=True, size=13)
+    sheet.cell(1, side, scenario.title).font = _bold(13)
     sheet.cell(2, side, f"model stored as the defined name {scenario.model_name}; holdout rows are marked in column {get_column_letter(width + 1)}")
     _header(sheet, 4, side, ["holdout metric", *scored[0][1:]])
     _put(sheet, 5, side, scored[1:])
     for r, metric in enumerate(scored[1:], start=5):
         for c in range(1, 4):
-            sheet.cell(r, side + c).number_format = _metric_format(str(metric[0]))
+            sheet.cell(r, side + c).number_format = _metric_format(str(metric[0]), metric[1])
     about_row = 6 + len(scored)
     _header(sheet, about_row, side, ["about the model", ""])
     _put(sheet, about_row + 1, side, about[1:])
     for r, item in enumerate(about[1:], start=about_row + 1):
-        sheet.cell(r, side + 1).number_format = _metric_format(str(item[0]).removeprefix("holdout "))
+        sheet.cell(r, side + 1).number_format = _metric_format(str(item[0]).removeprefix("holdout "), item[1])
     _number_formats(sheet, predicted[0], width + 2)
     _widths(sheet, table[0] + split[0] + predicted[0] + [f"native predicted {scenario.target}"], 1)
-    sheet.column_dimensions[get_column_letter(side)].width = 30
+    sheet.column_dimensions[get_column_letter(side)].width = 40  # shows 'holdout balanced_accuracy 90 % interval'
     for j, width_of in enumerate((12, 12, 12, 44), start=1):
         sheet.column_dimensions[get_column_letter(side + j)].width = width_of
 
-    chart_column = side + 3
+    chart_column = side + 6  # right of the metrics' words (side + 4) and a gap: a chart never covers a cell that shows something
     curve_row = 4
     _loss_curve(sheet, model, curve_row, chart_column)
     if model.task == "regression":
@@ -155,6 +165,7 @@ def write_scenario(workbook: Any, scenario: Scenario, progress: ProgressCallback
     else:
         pairs = []
         confusion = _confusion(sheet, split, table, predicted, scenario.target, list(model.classes), curve_row + 22, chart_column)
+        sheet.column_dimensions[get_column_letter(chart_column)].width = len("actual \\ predicted") + 2
 
     held = _holdout_indices(split)
     holdout_table = [table[0]] + [table[k] for k in held]
@@ -190,7 +201,10 @@ def write_scenario(workbook: Any, scenario: Scenario, progress: ProgressCallback
     )
 
 
-def _metric_format(name: str) -> str:
+def _metric_format(name: str, value: Any = None) -> str:
+    """Shares as percentages, other metrics at three decimals, counts (rows, epochs, networks) as whole numbers."""
+    if isinstance(value, int) and not isinstance(value, bool):
+        return "0"
     key = name.split(" ")[-1] if " " in name else name
     return "0.0%" if key in PERCENT_METRICS or "MAPE" in name else "0.000"
 
@@ -207,6 +221,19 @@ def _widths(sheet: Any, header: list[Any], first_column: int) -> None:
     """Columns wide enough to show their headers (a spreadsheet cuts a header at the next filled cell)."""
     for j, title in enumerate(header):
         sheet.column_dimensions[get_column_letter(first_column + j)].width = max(10, min(40, len(str(title)) + 3))
+
+
+def _place(sheet: Any, chart: Any, row: int, column: int) -> None:
+    """Anchor a chart at (row, column) with axes that show: kept (openpyxl 3.1 leaves an axis' delete
+    flag unset, and Excel then hides the axis; from memory of openpyxl's issue reports), value labels in
+    the General format (not the three decimals of the cells they come from) and at the low edge of the
+    plot (not across the points where an axis crosses zero)."""
+    for axis in (chart.x_axis, chart.y_axis):
+        axis.delete = False
+        axis.tickLblPos = "low"
+        if isinstance(axis, NumericAxis):
+            axis.numFmt = NumFmt(formatCode="General", sourceLinked=False)
+    sheet.add_chart(chart, f"{get_column_letter(column)}{row}")
 
 
 def _visible_markers(series: Series, colour: str = "1565C0") -> None:
@@ -242,7 +269,7 @@ def _importance_chart(sheet: Any, importance: list[tuple[str, float, float]], lo
     chart.legend = None
     chart.series[0].graphicalProperties.solidFill = "1565C0"
     chart.height, chart.width = 7.5, 15
-    sheet.add_chart(chart, f"{get_column_letter(column)}{row}")
+    _place(sheet, chart, row, column)
 
 
 def _dependence_chart(sheet: Any, curve: tuple[str, np.ndarray, np.ndarray], model: Model, target: str, row: int, column: int) -> None:
@@ -271,7 +298,7 @@ def _dependence_chart(sheet: Any, curve: tuple[str, np.ndarray, np.ndarray], mod
         chart.series.append(series)
     chart.x_axis.scaling.min, chart.x_axis.scaling.max = _axis_range([float(v) for v in grid])
     chart.height, chart.width = 7.5, 15
-    sheet.add_chart(chart, f"{get_column_letter(column)}{row}")
+    _place(sheet, chart, row, column)
 
 
 def _residuals_chart(sheet: Any, pairs: list[tuple[float, float]], row: int, column: int) -> None:
@@ -293,7 +320,7 @@ def _residuals_chart(sheet: Any, pairs: list[tuple[float, float]], row: int, col
     chart.series.append(series)
     chart.x_axis.scaling.min, chart.x_axis.scaling.max = _axis_range([p for _, p in pairs])
     chart.height, chart.width = 7.5, 15
-    sheet.add_chart(chart, f"{get_column_letter(column)}{row}")
+    _place(sheet, chart, row, column)
 
 
 def _calibration_chart(sheet: Any, table: list[tuple[float, float, int, float, float]], model: Model, row: int, column: int) -> None:
@@ -318,7 +345,7 @@ def _calibration_chart(sheet: Any, table: list[tuple[float, float, int, float, f
     for axis in (chart.x_axis, chart.y_axis):
         axis.scaling.min, axis.scaling.max = 0, 1
     chart.height, chart.width = 7.5, 15
-    sheet.add_chart(chart, f"{get_column_letter(column)}{row}")
+    _place(sheet, chart, row, column)
 
 
 def _axis_range(values: list[float]) -> tuple[float, float]:
@@ -391,7 +418,7 @@ def _loss_curve(sheet: Any, model: Any, row: int, column: int) -> None:
     chart.add_data(Reference(sheet, min_col=data_column + 1, max_col=data_column + columns, min_row=row, max_row=last), titles_from_data=True)
     chart.set_categories(Reference(sheet, min_col=data_column, min_row=row + 1, max_row=last))
     chart.height, chart.width = 7.5, 15
-    sheet.add_chart(chart, f"{get_column_letter(column)}{row}")
+    _place(sheet, chart, row, column)
 
 
 def _holdout_indices(split: list[list[Any]]) -> list[int]:
@@ -422,7 +449,7 @@ def _predicted_vs_actual(sheet: Any, pairs: list[tuple[float, float]], label: st
         axis.scaling.min = round(low - margin)
         axis.scaling.max = round(high + margin)
     chart.height, chart.width = 9, 11
-    sheet.add_chart(chart, f"{get_column_letter(column)}{row}")
+    _place(sheet, chart, row, column)
 
 
 def _confusion(
@@ -433,11 +460,11 @@ def _confusion(
     position = {str(c): i for i, c in enumerate(classes)}
     for k in _holdout_indices(split):
         counts[position[str(table[k][target_index])], position[str(predicted[k][0])]] += 1
-    sheet.cell(row, column, "Confusion matrix on the holdout rows (rows: actual, columns: predicted)").font = Font(bold=True)
+    sheet.cell(row, column, "Confusion matrix on the holdout rows (rows: actual, columns: predicted)").font = _bold()
     _header(sheet, row + 1, column, ["actual \\ predicted", *map(str, classes)])
     for i, label in enumerate(classes):
         cell = sheet.cell(row + 2 + i, column, str(label))
-        cell.font = Font(bold=True)
+        cell.font = _bold()
         cell.fill = HEADER_FILL
         for j in range(len(classes)):
             sheet.cell(row + 2 + i, column + 1 + j, int(counts[i, j]))
@@ -464,13 +491,13 @@ def build_demo_workbook(
     readme = workbook.active
     readme.title = "Read me"
     readme["A1"] = README_MARK
-    readme["A1"].font = Font(bold=True, size=14)
+    readme["A1"].font = _bold(14)
     readme["A2"] = CAUTION
     readme["A4"] = "sheet"
     readme["B4"] = "what it shows"
     readme["C4"] = "the same steps as cell formulas"
     for cell in ("A4", "B4", "C4"):
-        readme[cell].font = Font(bold=True)
+        readme[cell].font = _bold()
         readme[cell].fill = HEADER_FILL
     results = []
     for i, scenario in enumerate(scenarios(seed)):

@@ -148,10 +148,13 @@ def check_owned_sheet(title: str, first_cell: Any, exists: bool | None = None) -
 
 def column_widths(title: str, blocks: Iterable[tuple[int, int, list[list[Any]]]]) -> tuple[ColumnWidth, ...]:
     """Widths that show each column's headers and values: its longest text up to `WIDEST_COLUMN`
-    characters (longer texts, like captions, run on to the right), numbers as their format shows them."""
+    characters, numbers as their format shows them. Longer texts, and a row's only text (a title or
+    a caption), run on into the empty cells to their right, so they do not widen a column."""
     widest: dict[int, int] = {}
     for _top, left, rows in blocks:
         for row in rows:
+            if sum(v is not None and v != "" for v in row) <= 1:
+                continue
             for j, value in enumerate(row):
                 shown = _shown_length(value)
                 if shown <= WIDEST_COLUMN:

@@ -122,3 +122,38 @@ def test_the_demo_data_come_from_the_seeded_generators():
     for a, b, c in zip(first, again, other):
         assert a.table.equals(b.table)
         assert not a.table.equals(c.table)
+
+
+def _rendering_missing():
+    from render_sheets import render_missing
+
+    return render_missing()
+
+
+def test_the_demo_and_a_trained_files_sheets_render_in_libreoffice(demo, tmp_path):
+    """Rendered by LibreOffice headless (tests/render_sheets.py): the pictures are real and the predicted-against-actual
+    points show (filled markers)."""
+    missing = _rendering_missing()
+    if missing:
+        pytest.skip(f"cannot render sheets: {missing}")
+    from matplotlib.image import imread
+    from openpyxl.utils import get_column_letter
+    from render_demo import demo_regions, trained_book
+    from render_sheets import render
+
+    path, _ = demo
+    book = openpyxl.load_workbook(path)
+    charts = {(chart.anchor._from.row + 1, chart.anchor._from.col + 1): chart for chart in book["Parcels"]._charts}
+    row, column = next(where for where, chart in charts.items() if "Predicted against actual" in str(chart.title.tx.rich.p[0].r[0].t))
+    scatter = f"Parcels!{get_column_letter(column)}{row}:{get_column_letter(column + 5)}{row + 19}"  # the chart alone
+    folder = tmp_path / "trained"
+    folder.mkdir()
+    trained, trained_regions = trained_book(folder)
+    pictures = render(path, [scatter, *demo_regions(path)[:2]], tmp_path / "png") + render(trained, trained_regions, tmp_path / "png")
+    for picture in pictures:
+        image = imread(picture)[..., :3]
+        assert image.shape[0] > 100 and image.shape[1] > 300, picture
+        assert (image.mean(axis=-1) < 0.5).mean() > 0.01, picture  # text, grid and charts, not a blank page
+    image = (imread(pictures[0])[..., :3] * 255).round()
+    blue = np.all(np.abs(image - np.array([21, 101, 192])) < 40, axis=-1)  # the markers' #1565C0
+    assert blue.sum() > 200, blue.sum()  # 51 filled points (an unfilled marker draws nothing in LibreOffice)
