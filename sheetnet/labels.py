@@ -41,7 +41,6 @@ METRIC_FORMAT = "0.000"
 PROBABILITY_FORMAT = "0.000"
 PERCENT = "percent1"  # our names of them (`sheetnet.placements.NUMBER_FORMATS`), for placements
 METRIC = "decimal3"
-PROBABILITY = "decimal3"
 
 
 def metric_label(name: str) -> str:

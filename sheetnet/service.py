@@ -396,6 +396,18 @@ def value_format(values: Iterable[Any]) -> str:
     return "integer" if decimals == 0 else f"decimal{decimals}"
 
 
+def predictions_shown(answer: list[list[Any]]) -> list[list[Any]]:
+    """PREDICT's answer (a header row, then rows) with its numbers in number formats: probabilities
+    (``P(...)`` columns) at three decimals, every other column of numbers as `value_format` chooses."""
+    if len(answer) < 2:
+        return answer
+    formats = []
+    for j, title in enumerate(answer[0]):
+        column = [row[j] for row in answer[1:] if j < len(row)]
+        formats.append("decimal3" if str(title).startswith("P(") else value_format(column))
+    return [answer[0]] + [[_shown(v, formats[j]) for j, v in enumerate(row)] for row in answer[1:]]
+
+
 def _shown(value: Any, name: str) -> Any:
     if isinstance(value, (int, float)) and not isinstance(value, bool):
         return Shown(value, name)

@@ -78,9 +78,30 @@ def _assert_only_owned_changed(original: dict[str, bytes], path: Path, also: set
     owned = _owned(path) | set(also)
     assert set(original) - owned <= set(now), "a part of the user's was removed"
     for name, data in original.items():
-        if name not in owned:
+        if name == "xl/styles.xml":
+            _assert_styles_only_appended(data.decode(), now[name].decode())
+        elif name not in owned:
             assert now[name] == data, f"{name} changed"
     assert set(now) - set(original) <= owned
+
+
+def _assert_styles_only_appended(before: str, after: str) -> None:
+    """The styles part may gain number formats and cell formats for sheetnet's sheets, appended: every
+    cell format index the user's cells use keeps its meaning, and nothing else in the part changes."""
+    def blocks(xml: str, tag: str) -> tuple[str, list[str]]:
+        match = re.search(rf"<{tag}(?:\s[^>]*)?(?:/>|>(.*?)</{tag}>)", xml, re.DOTALL)
+        if match is None:
+            return xml, []
+        items = re.findall(r"<(?:xf|numFmt)\b[^>]*?(?:/>|>.*?</(?:xf|numFmt)>)", match.group(1) or "", re.DOTALL)
+        return xml[:match.start()] + f"<{tag}/>" + xml[match.end():], items
+
+    rest_before, xfs_before = blocks(before, "cellXfs")
+    rest_after, xfs_after = blocks(after, "cellXfs")
+    assert xfs_after[:len(xfs_before)] == xfs_before, "a cell format of the user's changed"
+    rest_before, formats_before = blocks(rest_before, "numFmts")
+    rest_after, formats_after = blocks(rest_after, "numFmts")
+    assert formats_after[:len(formats_before)] == formats_before, "a number format of the user's changed"
+    assert rest_after.replace("<numFmts/>", "") == rest_before.replace("<numFmts/>", ""), "xl/styles.xml changed beyond its formats"
 
 
 def test_train_predict_formulas_change_only_what_sheetnet_owns(rich: Path, capsys: pytest.CaptureFixture[str]) -> None:

@@ -205,3 +205,13 @@ def test_the_file_door_writes_number_formats_and_column_widths_and_keeps_the_use
     assert about["holdout accuracy"].number_format == "0.0%" and about["holdout log_loss"].number_format == "0.000"
     assert about["holdout rows"].number_format == "General"
     assert results.column_dimensions["G"].width >= len("holdout balanced_accuracy 90 % interval")
+
+
+def test_predictions_are_shown_at_sensible_decimals():
+    answer = [["predicted price", "P(no)", "P(yes)", "class"], [1234.5678, 0.123456, 0.876544, "yes"], [987.654321, 0.5, 0.5, "no"]]
+    shown = service.predictions_shown(answer)
+    assert shown[0] == answer[0] and shown[1][3] == "yes"
+    assert [v.format for v in shown[1][:3]] == ["integer", "decimal3", "decimal3"]  # about four significant digits of a price in the thousands
+    assert [v.value for v in shown[2][:3]] == [987.654321, 0.5, 0.5]  # the numbers themselves unchanged
+    assert service.value_format([0.0123, 0.0456]) == "decimal4" and service.value_format([12.5, 30.25]) == "decimal2"
+    assert service.value_format([1, 0, 1]) == "integer"  # class labels written as numbers
