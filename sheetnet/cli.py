@@ -204,7 +204,8 @@ def run_predict(args: argparse.Namespace, out: TextIO) -> int:
         sheet, top, left = check_empty(book, args.to, len(answer), len(answer[0]))
         book.log.add(service.Placements(cells=(service.cell_block(sheet, top, left, answer),)))
     else:
-        sheet, top, left = results_sheet(book, service.results_sheet_name(defined_name(book, args.model) or args.model, "predict"), [(3, 1, service.predictions_shown(answer))]), 3, 1
+        title = service.results_sheet_name(defined_name(book, args.model) or args.model, "predict")
+        sheet, top, left = results_sheet(book, title, [(3, 1, service.predictions_shown(answer))]), 3, 1
     _saved(book, out)
     out.write(f"{len(answer) - 1} rows predicted with model {args.model}, written to {sheet}!{service.column_letters(left)}{top}\n")
     return 0
