@@ -21,8 +21,8 @@ the same cross-validation weighs the same preparation with no hidden layer
 keeps it when its loss is within one standard error of the best network's
 (the one-standard-error rule). The model's settings then record the choice:
 ``decay`` as used and ``hidden_chosen`` ("none" or the widths kept, like
-"4"), which ABOUT and the model card list with the other settings. Hidden
-layers given explicitly are always kept.
+"4"), which the model card lists with the other settings (ABOUT shows the
+layer sizes). Hidden layers given explicitly are always kept.
 """
 
 from __future__ import annotations
