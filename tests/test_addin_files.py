@@ -78,8 +78,9 @@ def test_the_metadata_takes_error_inputs_cancels_training_and_offers_word_lists(
     metadata = functions_metadata()
     assert metadata["allowErrorForDataTypeAny"] is True
     described = {f["id"]: f for f in metadata["functions"]}
-    assert described["TRAIN"]["options"] == {"cancelable": True, "requiresAddress": True}
-    assert all("options" not in f for i, f in described.items() if i != "TRAIN")
+    for job in ("TRAIN", "SEARCH"):  # server jobs: cancelled with the cell, listed under its address
+        assert described[job]["options"] == {"cancelable": True, "requiresAddress": True}
+    assert all("options" not in f for i, f in described.items() if i not in ("TRAIN", "SEARCH"))
     enums = {e["id"]: [v["stringValue"] for v in e["values"]] for e in metadata["enums"]}
     for (function, argument), (enum_id, words) in CHOICES.items():
         parameter = next(p for p in described[function.split(".")[1]]["parameters"] if p["name"] == argument)

@@ -26,6 +26,7 @@ from pathlib import Path
 from typing import Any, Mapping
 
 from ..functions import PREDICT_OUTPUTS
+from ..jobs import JOB_FUNCTIONS  # TRAIN and SEARCH run as server jobs (progress, cancelling); the rest are one request
 from ..registry import REGISTRY, CellFunction
 
 HERE = Path(__file__).parent
@@ -41,8 +42,6 @@ ADDIN_TYPES = {
     "icon-32.png": "image/png",
     "icon-80.png": "image/png",
 }
-# TRAIN runs as a server job (progress, cancelling); every other function is one request
-JOB_FUNCTIONS = frozenset({"SHEETNET.TRAIN"})
 # trainings never start from the formula value preview (the bar's preview of a formula being typed)
 NOT_IN_PREVIEW = frozenset({"SHEETNET.TRAIN", "SHEETNET.SEARCH"})
 # the arguments that take one of a few words: (function, argument) -> (enum id, [(word, tooltip)])

@@ -161,7 +161,9 @@ function sheetnetJobName(invocation) {
   return `cell_${where}`.slice(0, 200);
 }
 
-async function sheetnetTrain(values, invocation, token) {
+async function sheetnetJob(name, values, invocation, token) {
+  // TRAIN and SEARCH run as server jobs: polled for their end, cancelled with the cell
+  const cancelled = name === "SHEETNET.SEARCH" ? "the search was cancelled" : "the training was cancelled";
   const stop = new AbortController();
   let jobId = null;
   const cancelJob = () => {
@@ -172,15 +174,15 @@ async function sheetnetTrain(values, invocation, token) {
     }
   };
   if (invocation) invocation.onCanceled = cancelJob;
-  const job = await sheetnetRequest("/v1/jobs", { method: "POST", body: JSON.stringify({ name: sheetnetJobName(invocation), args: values }), signal: stop.signal }, token);
+  const job = await sheetnetRequest("/v1/jobs", { method: "POST", body: JSON.stringify({ name: sheetnetJobName(invocation), function: name, args: values }), signal: stop.signal }, token);
   jobId = job.id;
   if (stop.signal.aborted) cancelJob();  // cancelled while the job was being created
   for (;;) {
-    if (stop.signal.aborted) throw sheetnetCellError("n/a", "the training was cancelled");
+    if (stop.signal.aborted) throw sheetnetCellError("n/a", cancelled);
     const status = await sheetnetRequest(`/v1/jobs/${jobId}`, { signal: stop.signal }, token);
     if (status.state === "done") return sheetnetResult(status.result);
     if (status.state === "failed") throw sheetnetCellError("value", sheetnetMessage(status.message));
-    if (status.state === "cancelled") throw sheetnetCellError("n/a", "the training was cancelled");
+    if (status.state === "cancelled") throw sheetnetCellError("n/a", cancelled);
     await sheetnetPause(SHEETNET_POLL_MS, stop.signal);
   }
 }
@@ -201,7 +203,7 @@ async function callSheetnet(name, args) {
   if (!token) {
     throw sheetnetCellError("n/a", "no access token yet: open the sheetnet task pane and paste the token sheetnet serve printed");
   }
-  if (SHEETNET_FUNCTIONS[name].job) return sheetnetTrain(values, invocation, token);
+  if (SHEETNET_FUNCTIONS[name].job) return sheetnetJob(name, values, invocation, token);
   const body = await sheetnetRequest(`/v1/functions/${encodeURIComponent(name)}`, { method: "POST", body: JSON.stringify({ args: values }) }, token);
   return sheetnetResult(body.result);
 }

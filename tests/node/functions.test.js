@@ -128,8 +128,9 @@ test("the served metadata and script hold to the documented contract", () => {
   const ids = metadata.functions.map((f) => f.id);
   assert.deepEqual([...made.associations.keys()].sort(), [...ids].sort());  // every function associated, none extra
   assert.equal(metadata.allowErrorForDataTypeAny, true);
-  const train = metadata.functions.find((f) => f.id === "TRAIN");
-  assert.deepEqual(train.options, { cancelable: true, requiresAddress: true });
+  for (const job of ["TRAIN", "SEARCH"]) {  // server jobs, cancelled with the cell
+    assert.deepEqual(metadata.functions.find((f) => f.id === job).options, { cancelable: true, requiresAddress: true });
+  }
   const choices = Object.fromEntries(metadata.enums.map((e) => [e.id, e.values.map((v) => v.stringValue)]));
   const enumOf = (fn, parameter) => metadata.functions.find((f) => f.id === fn).parameters.find((p) => p.name === parameter).customEnumId;
   assert.deepEqual(choices[enumOf("SPLIT", "mode")], ["random", "ordered", "stratified"]);
@@ -174,9 +175,12 @@ test("every registry function gives in the runtime what the Python call gives", 
   const predicted = made.requests.find((r) => r.url.endsWith("/v1/functions/SHEETNET.PREDICT")).body.args[1];
   assert.deepEqual(predicted.header, table[0]);
   assert.deepEqual(predicted.columns.map((c) => (Array.isArray(c) ? "cells" : "numbers")), table[0].map((name) => (["lot", "process", "grade"].includes(name) ? "cells" : "numbers")));
-  const train = made.requests.find((r) => r.url.endsWith("/v1/jobs") && r.method === "POST");
-  assert.equal(train.body.name, "cell_Sheet1_K2");  // a cell's training is listed under its cell
-  assert.equal(train.body.args.length, 5);
+  // TRAIN and SEARCH went as server jobs, each listed under its cell and naming the function it runs
+  const jobs = made.requests.filter((r) => r.url.endsWith("/v1/jobs") && r.method === "POST");
+  assert.deepEqual(jobs.map((r) => r.body.function).sort(), ["SHEETNET.SEARCH", "SHEETNET.TRAIN"]);
+  assert.ok(jobs.every((r) => r.body.name === "cell_Sheet1_K2"));
+  assert.equal(jobs.find((r) => r.body.function === "SHEETNET.TRAIN").body.args.length, 5);
+  assert.ok(!made.requests.some((r) => /\/v1\/functions\/SHEETNET\.(TRAIN|SEARCH)$/.test(r.url)), "no job went as one request");
 });
 
 test("the invocation Excel passes last is dropped, and omitted optionals are not sent", async () => {
