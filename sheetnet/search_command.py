@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import contextlib
 import itertools
+import shlex
 from pathlib import Path
 from typing import Any, TextIO
 
@@ -74,8 +75,18 @@ def run_search(args: argparse.Namespace, out: TextIO) -> int:
         out.write("  " + "  ".join(_shown(v).ljust(w) for v, w in zip(row, widths)).rstrip() + "\n")
     use = next(row for row in ranking[1:] if "use this" in str(row[-1]))
     out.write(f"use: hidden {use[1]}, decay {_shown(use[2])}, algorithm {use[3]}; rule: {notes['choice rule']}\n")
-    decay = "" if use[2] == "auto" else f" --set decay={use[2]:g}"
-    algorithm = "" if use[3] == "auto" else f" --set algorithm={use[3]}"
-    out.write(f"to train it: sheetnet train {args.book} --table '{args.table}' --target '{args.target}' --name NAME --hidden {use[1]}{decay}{algorithm}\n")
+    out.write(f"to train it: {train_command(args, use)}\n")
     return 0
+
+
+def train_command(args: argparse.Namespace, use: list[Any]) -> str:
+    """The ``sheetnet train`` line for the chosen candidate, with the settings every candidate shared (the search's
+    own, metric, stays behind), so running it trains what the search ranked."""
+    shared = [pair for pair in args.set if pair.split("=", 1)[0].strip().lower() != "metric"]
+    chosen = ([] if use[2] == "auto" else [f"decay={use[2]:g}"]) + ([] if use[3] == "auto" else [f"algorithm={use[3]}"])
+    words = ["sheetnet", "train", str(args.book), "--table", args.table, "--target", args.target, "--name", "NAME", "--hidden", str(use[1])]
+    words += [w for pair in [*shared, *chosen] for w in ("--set", pair)]
+    if args.seed is not None:
+        words += ["--seed", str(args.seed)]
+    return " ".join(shlex.quote(w) if w != "NAME" else w for w in words)
 

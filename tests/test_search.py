@@ -1,12 +1,15 @@
 """Model search: the ranking, the one-standard-error choice, and that it scores exactly what cross-validation scores."""
 
 import math
+import shlex
 
 import numpy as np
 import pytest
 
 import sheetnet
+from sheetnet.block import decode_block
 from sheetnet.search import Candidate, default_candidates, network_weights, rank, score_candidate
+from sheetnet.workbook import open_book, read_model
 
 
 def _scored(hidden, decay, folds, weights):
@@ -179,7 +182,16 @@ def test_the_search_command_prints_the_ranking_and_how_to_train_the_choice(tmp_p
     assert code == 0
     assert out.splitlines()[0] == "2 candidates for sales on Data!A1:E81; 3 folds, ordered"
     assert "mean rmse" in out and "use this" in out and "rule: the simplest candidate" in out
-    assert f"to train it: sheetnet train {path} --table 'Data!A1:E81' --target 'sales' --name NAME --hidden " in out
+    suggested = next(line for line in out.splitlines() if line.startswith("to train it: "))
+    assert suggested.startswith(f"to train it: sheetnet train {path} --table 'Data!A1:E81' --target sales --name NAME --hidden ")
+    assert "--set 'ignore=week, store' --set epochs=30" in suggested  # the shared settings travel; the ranking is of them
     assert path.read_bytes() == before  # a search writes nothing
+    words = shlex.split(suggested.removeprefix("to train it: "))
+    assert main([w if w != "NAME" else "chosen" for w in words[1:]]) == 0  # the suggestion runs as printed
+    capsys.readouterr()
+    stored, _ = decode_block(read_model(open_book(path), "chosen"))
+    kept = suggested.split("--hidden ")[1].split()[0]
+    assert stored.hidden == (() if kept == "0" else tuple(int(w) for w in kept.split(",")))
+    assert stored.settings["epochs"] == 30 and stored.input_names == ("a", "b")  # week and store were ignored
     assert main(["search", str(path), "--table", "Data!A1:E81", "--target", "sales", "--folds", "grouped nowhere"]) == 1
     assert "the table has no column named 'nowhere'" in capsys.readouterr().err
