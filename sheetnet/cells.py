@@ -655,14 +655,15 @@ def row_label(data_row: int) -> str:
 HIDDEN_FIX = "write the widths of the hidden layers like 8 or 8,4 (0 or none for no hidden layer)"
 
 
-def parse_hidden(value: Any) -> tuple[int, ...]:
-    """``8``, ``"8"``, ``"8,4"``, ``"8; 4"`` or ``"8 4"`` as hidden layer widths; blank means one layer of 4.
+def parse_hidden(value: Any) -> tuple[int, ...] | None:
+    """``8``, ``"8"``, ``"8,4"``, ``"8; 4"`` or ``"8 4"`` as hidden layer widths; blank is None, which `sheetnet.fit`
+    takes as its default (one layer of 4, or none where cross-validation on a small table prefers it).
 
     An empty place (``8,,4``), a zero inside a list, a fraction or a negative width is refused
     rather than guessed: ``8,,4`` may be a typing slip for ``8,16,4``.
     """
     if is_blank(value):
-        return (4,)
+        return None
     if isinstance(value, bool):
         raise SettingError(f"hidden layers got {cell_in_words(value)}; {HIDDEN_FIX}")
     if isinstance(value, (int, float, np.number)):

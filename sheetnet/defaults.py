@@ -9,7 +9,7 @@ stopping rules default to them. Change a number here and every one follows.
 from __future__ import annotations
 
 MIN_ROWS = 4  # fewest rows `fit` trains on
-DEFAULT_HIDDEN = (4,)  # hidden layers when `fit` is not given any (the doors default to the same one layer of 4)
+DEFAULT_HIDDEN = (4,)  # hidden layers when `fit` is not given any (nor is TRAIN, at every door); small tables may keep none
 
 # --- stopping rules (the defaults of the settings of the same names) ---------------------
 EPOCHS = 1000

@@ -55,7 +55,7 @@ class _SheetnetEstimator(BaseEstimator):
 
     def __init__(
         self,
-        hidden: int | Sequence[int] = (4,),
+        hidden: int | Sequence[int] | None = None,  # None: fit's default (4, or none where a small table's folds prefer it)
         *,
         seed: int = 0,
         categories: Sequence[str] = (),
@@ -202,7 +202,7 @@ class _SheetnetEstimator(BaseEstimator):
 class SheetnetRegressor(RegressorMixin, _SheetnetEstimator):
     """A sheetnet network that predicts amounts, in the scikit-learn estimator API.
 
-    Parameters are `sheetnet.fit`'s: ``hidden`` (widths of the hidden layers),
+    Parameters are `sheetnet.fit`'s: ``hidden`` (widths of the hidden layers; None, the default, as in `fit`),
     ``seed``, ``categories`` (numeric-looking columns to read as categories) and
     every training setting (see ``sheetnet settings``). After `fit`: ``model_``
     (the `Model`), ``n_features_in_`` and, for a DataFrame, ``feature_names_in_``.

@@ -45,6 +45,7 @@ from .cells import (
     read_sheet_table,
     row_label,
 )
+from .defaults import DEFAULT_HIDDEN
 from .errors import BadValueError, CellError, InputError, ModelError, SettingError, SheetnetError
 from .evaluation import permutation_importance
 from .evaluation import score as score_model
@@ -476,10 +477,13 @@ def _numbers_for_training(
     return read_numbers_in_text(readable, [target], mode, f"{TRAIN_NUMBER_TEXT_FIX}; if the column holds classes, add the setting task=multiclass")
 
 
-def _check_sizes(frame: pd.DataFrame, y: np.ndarray, layers: tuple[int, ...], categories: list[str], engine_settings: dict[str, Any]) -> None:
-    """Refuse a network or table beyond `sheetnet.limits` before `fit` allocates anything."""
+def _check_sizes(
+    frame: pd.DataFrame, y: np.ndarray, layers: tuple[int, ...] | None, categories: list[str], engine_settings: dict[str, Any]
+) -> None:
+    """Refuse a network or table beyond `sheetnet.limits` before `fit` allocates anything (None: fit's default layers)."""
     target = fit_target(read_target(y), resolve_settings(engine_settings)["task"])
-    check_network_size(len(frame), planned_width(read_table(frame), categories), layers, target.outputs)
+    widths = DEFAULT_HIDDEN if layers is None else layers
+    check_network_size(len(frame), planned_width(read_table(frame), categories), widths, target.outputs)
 
 
 # interval: the split-conformal prediction interval (numbers); set: the conformal prediction set (classes);

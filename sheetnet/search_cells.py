@@ -25,6 +25,7 @@ import numpy as np
 
 from .cell_text import cell_in_words, label_in_words
 from .cells import Cells, as_grid, is_blank, numeric_frame, one_value, parse_hidden, parse_settings, read_sheet_table
+from .defaults import DEFAULT_HIDDEN
 from .errors import InputError, SettingError
 from .preparation import fit_preparation, fit_target, read_table, read_target
 from .search import Candidate, search
@@ -94,7 +95,8 @@ def parse_candidates(value: Any) -> list[Candidate] | None:
         cells = {name: cell for name, cell in zip(header, row) if name}
         if all(is_blank(cell) for cell in cells.values()):
             continue
-        hidden = parse_hidden(cells.get("hidden"))
+        widths = parse_hidden(cells.get("hidden"))
+        hidden = DEFAULT_HIDDEN if widths is None else widths  # a candidate is one network: blank is the default layer
         decay = None if is_blank(cells.get("decay")) else resolve_settings({"decay": cells["decay"]})["decay"]
         algorithm = None if is_blank(cells.get("algorithm")) else resolve_settings({"algorithm": cells["algorithm"]})["algorithm"]
         found.append(Candidate(hidden, decay, algorithm))

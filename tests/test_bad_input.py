@@ -241,7 +241,8 @@ def test_lags_longer_than_the_series_are_refused():
 
 # --- hidden layers --------------------------------------------------------------------------------
 
-@pytest.mark.parametrize("text, widths", [("8,4", (8, 4)), ("8, 4", (8, 4)), ("8 4", (8, 4)), ("8;4", (8, 4)), (8.0, (8,)), ("0", ()), (None, (4,))])
+@pytest.mark.parametrize("text, widths", [
+    ("8,4", (8, 4)), ("8, 4", (8, 4)), ("8 4", (8, 4)), ("8;4", (8, 4)), (8.0, (8,)), ("0", ()), (None, None), ("", None)])
 def test_hidden_layers_that_are_read(text, widths):
     assert parse_hidden(text) == widths
 

@@ -3,10 +3,11 @@
 import numpy as np
 import pytest
 import sheetnet_demo
-from sklearn.datasets import load_wine
+from sklearn.datasets import load_iris, load_wine
 
 import sheetnet
 from sheetnet import functions as cellfn
+from sheetnet.block import decode_block
 from sheetnet.cells import MARKER
 from sheetnet.registry import REGISTRY, check_registry
 
@@ -129,7 +130,7 @@ def test_train_is_cached_by_content(shipments, monkeypatch):
 
 
 def test_settings_as_a_two_column_range(shipments):
-    block = cellfn.train(shipments[:60], "spoiled", None, [["epochs", 7], ["ignore", "shipment"], ["validation_share", 0]])
+    block = cellfn.train(shipments[:60], "spoiled", 4, [["epochs", 7], ["ignore", "shipment"], ["validation_share", 0]])
     about = dict(map(tuple, cellfn.about(block)[1:]))
     assert about["epochs"] == 7 and about["layers"] == "7-4-1"
 
@@ -236,6 +237,25 @@ def test_wine_through_the_cell_functions_reaches_the_engine_accuracy():
     engine_accuracy = sheetnet.score(engine, frame.drop(columns="cultivar")[held], frame["cultivar"][held])["accuracy"]
     assert cell_accuracy == pytest.approx(engine_accuracy, abs=1e-12)
     assert cell_accuracy > 0.9
+
+
+def test_a_blank_hidden_argument_trains_what_fit_trains_by_default():
+    # reference data: scikit-learn's bundled iris dataset. Blank at every door is fit's default: the folds weigh
+    # one layer of 4 and no hidden layer, and the model records which they kept
+    data = load_iris(as_frame=True)
+    frame = data.frame.rename(columns={"target": "species"})
+    table = _cells(frame)
+    split = cellfn.split(table, 0.25, 0, "stratified species")
+    block = cellfn.train(table, "species", None, "seed=0", split)
+    cell_model, info = decode_block(block)
+    held = np.array([row[0] == "holdout" for row in split[1:]])
+    engine = sheetnet.fit(frame.drop(columns="species")[~held], frame["species"][~held], seed=0)
+    assert cell_model.hidden == engine.hidden and cell_model.settings["hidden_chosen"] == engine.settings["hidden_chosen"]
+    for stored, fitted in zip(cell_model.members, engine.members, strict=True):  # the block keeps 15 significant digits
+        np.testing.assert_allclose(stored.theta, fitted.theta, rtol=1e-13, atol=1e-15)
+    assert info.given["hidden"] is None  # recorded blank, so a refresh weighs both again
+    written, _ = decode_block(cellfn.train(table, "species", 4, "seed=0", split))
+    assert written.hidden == (4,) and "hidden_chosen" not in written.settings  # widths written out are kept
 
 
 def test_sunspot_forecast_with_lags_beats_the_naive_forecast():
