@@ -252,29 +252,43 @@ test("a TRAIN or SEARCH formula in value preview starts no training", async () =
   assert.ok(quick.values, "a quick function still previews");
 });
 
-test("cancelling a TRAIN cell aborts the request and stops the server's job", async () => {
-  const table = await python(["table", "400", "3"])  // a training that runs until cancelled: no decay search, tiny steps;
+async function cancelledCell(id, args, message) {
+  // start a long job from a cell, cancel it as Excel does, and see the cell and the server's job end
   const made = runtime();
-  const running = made.calculate("TRAIN", [table, "grade", "16,16", "ignore=lot; algorithm=gd; rate=0.0001; gradient_threshold=0; decay=0; epochs=1000000; patience=100000"]);
+  const running = made.calculate(id, args);
   let jobId = null;
   for (let i = 0; i < 200 && jobId === null; i++) {
     await new Promise((resolve) => setTimeout(resolve, 50));
     const polled = made.requests.find((r) => /\/v1\/jobs\/[0-9a-f]+$/.test(r.url));
     if (polled) jobId = polled.url.split("/").pop();
   }
-  assert.ok(jobId, "the training job never started");
+  assert.ok(jobId, `the ${id} job never started`);
   assert.equal((await serverJob(jobId)).state, "running");
   running.cancel();  // what Excel does when the cell is edited or recalculated
   const cell = await running.done;
-  assert.deepEqual(cell, { error: "#N/A", message: "the training was cancelled" });
+  assert.deepEqual(cell, { error: "#N/A", message });
   assert.ok(made.requests.some((r) => r.method === "DELETE" && r.url.endsWith(`/v1/jobs/${jobId}`)));
-  let state = null;
+  let job = null;
   for (let i = 0; i < 200; i++) {
-    state = (await serverJob(jobId)).state;
-    if (state !== "running") break;
+    job = await serverJob(jobId);
+    if (job.state !== "running") break;
     await new Promise((resolve) => setTimeout(resolve, 50));
   }
-  assert.equal(state, "cancelled");
+  assert.equal(job.state, "cancelled");
+  assert.equal(job.message, message);  // the server's words and the cell's agree
+}
+
+// tiny steps and no early end: jobs that run until cancelled (TRAIN checks every epoch, SEARCH at each finished fold)
+const SLOW = "ignore=lot; algorithm=gd; rate=0.0001; gradient_threshold=0; decay=0; patience=100000";
+
+test("cancelling a TRAIN cell aborts the request and stops the server's job", async () => {
+  const table = await python(["table", "400", "3"]);
+  await cancelledCell("TRAIN", [table, "grade", "16,16", `${SLOW}; epochs=1000000`], "the training was cancelled");
+});
+
+test("cancelling a SEARCH cell stops the server's search job at its next fold", async () => {
+  const table = await python(["table", "400", "3"]);
+  await cancelledCell("SEARCH", [table, "grade", null, `${SLOW}; epochs=2000`, 5], "the search was cancelled");
 });
 
 test("the stand-in itself refuses what the documented contract rules out", async () => {
