@@ -17,8 +17,9 @@ Where they run:
 - ``workers=N``: in N local processes (as asked, even where they will not pay);
 - ``workers=None`` (the default): processes only where they pay. On a shared
   2-core machine worker processes were slower than one process in every case
-  measured (1.09-1.47x, plus seconds to start the pool), so the first job runs
-  here and is timed, and the cores that are really free are counted meanwhile
+  measured (1.09-1.47x, plus seconds to start the pool), so the first jobs run
+  here and are timed (until `PROBE_SECONDS` have passed or a quarter of the
+  jobs ran), and the cores that are really free are counted meanwhile
   (the CPUs this process may use, capped by a CPU quota, and how idle the
   others were while the job ran; the one-minute load average where the
   kernel's counters cannot be read). The rest go to processes only if those
@@ -52,6 +53,9 @@ POOL_IDLE_SECONDS = 250.0  # a little under loky's 300 s idle timeout, after whi
 # 1.1-1.3x per job; the larger figure keeps the choice on the side of one process.
 CONTENTION = 1.3
 CONNECT_SECONDS = 10  # how long to wait for a cluster's scheduler to answer
+# Before choosing, auto runs jobs here until they took this long (or a quarter of them ran): one job can
+# mislead when jobs differ (a search's candidates without a hidden layer fit in a few milliseconds).
+PROBE_SECONDS = 0.1
 
 
 class ClusterError(SettingError):
@@ -249,6 +253,15 @@ def processes_pay(job_seconds: float, remaining: int, processes: int, start_seco
     return there < here
 
 
+def probe_count(jobs: int) -> int:
+    """How many of ``jobs`` auto may run here to time them before choosing: a quarter, at least one.
+
+    >>> probe_count(4), probe_count(60), probe_count(2)
+    (1, 15, 1)
+    """
+    return max(1, jobs // 4)
+
+
 def placement(jobs: int, workers: int | None) -> Placement:
     """Where a run of ``jobs`` goes before any of them ran (auto ends at ``here`` or ``measure``)."""
     if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int) or workers < 1):
@@ -263,7 +276,7 @@ def placement(jobs: int, workers: int | None) -> Placement:
     cores = usable_cores()
     if cores < 2:
         return Placement("here", 1, "one usable core")
-    return Placement("measure", min(jobs - 1, cores), "time the first job and count the free cores meanwhile, then decide")
+    return Placement("measure", min(jobs - 1, cores), "time the first jobs and count the free cores meanwhile, then decide")
 
 
 # --- running --------------------------------------------------------------------------------
@@ -316,14 +329,18 @@ def run_jobs(function: Callable[..., Any], jobs: Sequence[tuple[Any, ...]], work
         done = 0
         if chosen.where == "measure":
             ticks, started = cpu_times(), time.perf_counter()
-            results[0] = function(*jobs[0])
-            job_seconds, measured = time.perf_counter() - started, free_cores_between(ticks, cpu_times(), chosen.at_once)
-            done = 1
-            if reporting:
-                report(what, done, len(jobs))
+            probed = probe_count(len(jobs))
+            for index in range(probed):
+                results[index] = function(*jobs[index])
+                done += 1
+                if reporting:
+                    report(what, done, len(jobs))
+                if time.perf_counter() - started >= PROBE_SECONDS:
+                    break
+            job_seconds, measured = (time.perf_counter() - started) / done, free_cores_between(ticks, cpu_times(), chosen.at_once)
             free = min(chosen.at_once, measured if measured is not None else free_cores())
-            seen = f"first job {job_seconds:.2f} s, {free} free core{'s' if free > 1 else ''}"
-            if free >= 2 and processes_pay(job_seconds, len(jobs) - 1, free, pool_start_seconds(free)):
+            seen = f"{done} job{'s' if done > 1 else ''} here at {job_seconds:.3f} s each, {free} free core{'s' if free > 1 else ''}"
+            if free >= 2 and processes_pay(job_seconds, len(jobs) - done, free, pool_start_seconds(free)):
                 chosen = Placement("processes", free, seen)
             else:
                 chosen = Placement("here", 1, f"{seen}: processes would not pay")

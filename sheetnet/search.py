@@ -116,6 +116,21 @@ class SearchResult:
         return rows
 
 
+def run_order(weights: Sequence[int], folds: int) -> list[tuple[int, int]]:
+    """The (candidate, fold) fits in the order they run: fold by fold, the candidates alternately lightest and
+    heaviest, so the first fits, which `sheetnet.parallel` times before choosing where the rest run, cost
+    about what the average fit does. Each fit has its own seed: the order changes no result.
+
+    >>> run_order([50, 10, 40, 20], 2)  # lightest 1, heaviest 0, then 3 and 2
+    [(1, 0), (0, 0), (3, 0), (2, 0), (1, 1), (0, 1), (3, 1), (2, 1)]
+    >>> run_order([5, 9, 1], 1)
+    [(2, 0), (1, 0), (0, 0)]
+    """
+    by_weight = sorted(range(len(weights)), key=lambda c: (weights[c], c))
+    mixed = [by_weight[i // 2] if i % 2 == 0 else by_weight[-1 - i // 2] for i in range(len(by_weight))]
+    return [(c, f) for f in range(folds) for c in mixed]
+
+
 def network_weights(n_inputs: int, hidden: Sequence[int], n_outputs: int) -> int:
     """Weights and biases of a network with these layer widths.
 
@@ -219,14 +234,13 @@ def search(
     used, folds = make_folds(y, k, seed, mode, groups, resolved[0]["task"])
     width = planned_width(table, categories)
     X, y = read_once(X, y)
-    jobs = []
-    for candidate in chosen_candidates:
-        own = dict(candidate.settings(settings), workers=1, categories=categories)  # the cores go to the candidates' folds
-        jobs += [(X, y, train_rows, test_rows, candidate.hidden, seed, own) for train_rows, test_rows in folds]
-    results = run_jobs(fit_and_score_fold, jobs, workers, "search folds")
+    own = [dict(c.settings(settings), workers=1, categories=categories) for c in chosen_candidates]  # the cores go to the folds
+    order = run_order([network_weights(width, c.hidden, learned.outputs) for c in chosen_candidates], len(folds))
+    jobs = [(X, y, *folds[f], chosen_candidates[c].hidden, seed, own[c]) for c, f in order]
+    found = dict(zip(order, run_jobs(fit_and_score_fold, jobs, workers, "search folds")))
     scored = []
     for c, (candidate, settings_used) in enumerate(zip(chosen_candidates, resolved)):
-        fold_scores = [results[c * len(folds) + f][metric] for f in range(len(folds))]
+        fold_scores = [found[c, f][metric] for f in range(len(folds))]
         if any(v is None for v in fold_scores):
             raise SettingError(f"the {metric} is not defined on some folds of this target; rank by another metric, such as "
                                + ("rmse" if learned.task == "regression" else "log_loss"))

@@ -1,5 +1,7 @@
 """Where runs of jobs go (here, processes, a cluster), that they give the same bits everywhere, and progress counts."""
 
+import time
+
 import numpy as np
 import pytest
 
@@ -12,6 +14,11 @@ from sheetnet.search import Candidate
 def seeded_draw(seed, size):
     """A job whose answer depends only on its own seed, as every sheetnet job does."""
     return np.random.default_rng(seed).normal(size=size)
+
+
+def napping(seconds, value):
+    time.sleep(seconds)
+    return value
 
 
 def nested_run(n):
@@ -107,6 +114,27 @@ def test_auto_sends_long_jobs_to_processes_when_they_pay(monkeypatch):
     alone = sheetnet.fit(X, y, hidden=(3,), repeats=4, epochs=40, workers=1)
     for a, b in zip(model.members, alone.members):
         np.testing.assert_array_equal(a.theta, b.theta)
+
+
+def test_auto_times_several_jobs_before_choosing(monkeypatch):
+    # the first job takes no time (like a search's candidate without a hidden layer), the others 20 ms each:
+    # timed alone it would keep all 40 here; timed with the jobs after it, processes pay
+    _cores(monkeypatch, 2, 2)
+    monkeypatch.setattr(parallel, "_pool_used_at", {})
+    monkeypatch.setattr(parallel, "POOL_START_SECONDS", 0.05)
+    pooled = []
+
+    def run_pool_here(function, jobs, results, at_once, what, reporting, done, backend):  # no processes in this test
+        pooled.extend(i for i, r in enumerate(results) if r is parallel._UNSET)
+        return parallel._run_here(function, jobs, results, what, reporting, done)
+
+    monkeypatch.setattr(parallel, "_run_pool", run_pool_here)
+    jobs = [(0.0, 0)] + [(0.02, i) for i in range(1, 40)]
+    assert parallel.run_jobs(napping, jobs) == list(range(40))
+    timed_here = 40 - len(pooled)
+    assert parallel.last_placement.where == "processes" and 1 < timed_here <= parallel.probe_count(40)
+    assert parallel.last_placement.reason.startswith(f"{timed_here} jobs here at ")
+    assert pooled == list(range(timed_here, 40))
 
 
 def test_workers_must_be_a_whole_number():
