@@ -10,6 +10,7 @@ from __future__ import annotations
 
 MIN_ROWS = 4  # fewest rows `fit` trains on
 DEFAULT_HIDDEN = (4,)  # hidden layers when `fit` is not given any (nor is TRAIN, at every door); small tables may keep none
+WIDER_HIDDEN = (16,)  # ... or this wider layer: the folds of a small table weigh none, DEFAULT_HIDDEN and this
 
 # --- stopping rules (the defaults of the settings of the same names) ---------------------
 EPOCHS = 1000

@@ -59,7 +59,7 @@ REGISTRY: tuple[CellFunction, ...] = (
         (
             Argument("table", "the table, its first row holding column names"),
             Argument("target", "the name of the column to predict", kind="value"),
-            Argument("hidden", "hidden layer widths such as 8 or 8,4, 0 for none; blank: 4, or none where a small table's folds prefer it", True, "value"),
+            Argument("hidden", "hidden widths such as 8 or 8,4, 0 for none; blank: 4, or on a small table 4, 16 or none as its folds prefer", True, "value"),
             Argument("settings", "a two-column range of names and values, or a text like epochs=500; rate=0.3", True),
             Argument("split", "the column SHEETNET.SPLIT returned: holdout rows are left out of training", True),
         ),

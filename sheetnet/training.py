@@ -17,12 +17,14 @@ from 0.77 to 0.89 (tests/benchmarks/vs_reference.py).
 
 When ``hidden`` is also left at its default (None: `defaults.DEFAULT_HIDDEN`),
 the same cross-validation weighs the same preparation with no hidden layer
-(a linear, logistic or softmax regression, each decay of `DECAY_CHOICES`) and
-keeps it when its loss is within one standard error of the best network's
-(the one-standard-error rule). The model's settings then record the choice:
-``decay`` as used and ``hidden_chosen`` ("none" or the widths kept, like
-"4"), which the model card lists with the other settings (ABOUT shows the
-layer sizes). Hidden layers given explicitly are always kept.
+(a linear, logistic or softmax regression) and with the wider
+`defaults.WIDER_HIDDEN`, each with every decay of `DECAY_CHOICES`: the
+network with the lowest loss wins, and no hidden layer is kept instead when
+its loss is within one standard error of the winner's (the
+one-standard-error rule). The model's settings then record the
+choice: ``decay`` as used and ``hidden_chosen`` ("none" or the widths kept,
+like "4"), which the model card lists with the other settings (ABOUT shows
+the layer sizes). Hidden layers given explicitly are always kept.
 """
 
 from __future__ import annotations
@@ -51,6 +53,7 @@ from .defaults import (
     TUNING_MIN_ROWS,
     TUNING_ROW_LIMIT,
     VALIDATION_ROW_LIMIT,
+    WIDER_HIDDEN,
 )
 from .errors import LengthMismatchError, NotEnoughRowsError, SettingError, TrainingError
 from .limits import check_network_size
@@ -164,10 +167,11 @@ class CrossValidationChoice:
         return self.kept.decay
 
 
-def candidates_of(hidden: tuple[int, ...], linear: bool) -> tuple[Candidate, ...]:
-    """The networks the inner cross-validation weighs: ``hidden`` with each of `DECAY_CHOICES`, then with ``linear``
-    the same preparation with no hidden layer (a linear, logistic or softmax regression) with each decay."""
-    shapes = (hidden, ()) if linear and hidden else (hidden,)
+def candidates_of(hidden: tuple[int, ...], blank: bool) -> tuple[Candidate, ...]:
+    """The networks the inner cross-validation weighs: ``hidden`` with each of `DECAY_CHOICES`; when the hidden
+    layers were left ``blank``, also `WIDER_HIDDEN` and no hidden layer (a linear, logistic or softmax regression),
+    each with every decay."""
+    shapes = tuple(dict.fromkeys((hidden, WIDER_HIDDEN, ()))) if blank else (hidden,)
     return tuple(Candidate(shape, decay) for shape in shapes for decay in DECAY_CHOICES)
 
 
@@ -236,10 +240,10 @@ def choose_decay(
     Learning, section 7.10; both cited from memory). The folds are independent jobs, run where
     `sheetnet.parallel.run_jobs` finds them fastest.
     """
+    folds = _inner_folds(len(inputs), plan.folds, rng, labels)  # first: the folds do not depend on how many shapes
+    seed = int(rng.integers(2**32))
     shapes = dict.fromkeys(c.hidden for c in candidates)
     starts = {shape: network.initial_parameters((ends[0], *shape, ends[1]), activation, rng) for shape in shapes}
-    folds = _inner_folds(len(inputs), plan.folds, rng, labels)
-    seed = int(rng.integers(2**32))
     jobs = [
         (inputs, outputs, ends, activation, head, settings, plan, starts, candidates, train_rows, test_rows, seed)
         for train_rows, test_rows in folds
@@ -356,7 +360,7 @@ def fit(
     chose_shape = False
     if plan.decay is None:  # after the members' seeds, so choosing the decay leaves them as they were
         tuning = np.random.default_rng(root.spawn(1)[0])
-        candidates = candidates_of(layers, linear=hidden is None)
+        candidates = candidates_of(layers, blank=hidden is None)
         chose_shape = len({c.hidden for c in candidates}) > 1
         ends = (sizes[0], sizes[-1])
         choice = choose_decay(inputs, outputs, labels, ends, candidates, resolved["activation"], target.head, resolved, plan, tuning)
