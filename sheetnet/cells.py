@@ -657,7 +657,7 @@ HIDDEN_FIX = "write the widths of the hidden layers like 8 or 8,4 (0 or none for
 
 def parse_hidden(value: Any) -> tuple[int, ...] | None:
     """``8``, ``"8"``, ``"8,4"``, ``"8; 4"`` or ``"8 4"`` as hidden layer widths; blank is None, which `sheetnet.fit`
-    takes as its default (one layer of 4; on a small table 4, 16 or none, as cross-validation prefers).
+    takes as its default (one layer of 16; on a small table 16, 4 or none, as cross-validation prefers).
 
     An empty place (``8,,4``), a zero inside a list, a fraction or a negative width is refused
     rather than guessed: ``8,,4`` may be a typing slip for ``8,16,4``.

@@ -555,7 +555,7 @@ def build_parser() -> argparse.ArgumentParser:
     train.add_argument("--target", required=True, help="the column to predict")
     train.add_argument("--name", required=True, help="the model's name (a workbook-level defined name)")
     train.add_argument("--hidden", default=DEFAULT_HIDDEN, help="hidden layer widths, like 8 or 8,4, or 0 for none "
-                       "(default: one layer of 4; on a small table 4, 16 or none, as cross-validation prefers)")
+                       "(default: one layer of 16; on a small table 16, 4 or none, as cross-validation prefers)")
     train.add_argument("--holdout", type=float, default=DEFAULT_HOLDOUT, help=f"share of rows held out for checking (default {DEFAULT_HOLDOUT}; 0 for none)")
     train.add_argument(
         "--mode", default="auto", choices=list(HOLDOUT_MODES),

@@ -55,7 +55,7 @@ class _SheetnetEstimator(BaseEstimator):
 
     def __init__(
         self,
-        hidden: int | Sequence[int] | None = None,  # None: fit's default (4; 4, 16 or none as a small table's folds prefer)
+        hidden: int | Sequence[int] | None = None,  # None: fit's default (16; 16, 4 or none as a small table's folds prefer)
         *,
         seed: int = 0,
         categories: Sequence[str] = (),

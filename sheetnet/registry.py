@@ -59,7 +59,7 @@ REGISTRY: tuple[CellFunction, ...] = (
         (
             Argument("table", "the table, its first row holding column names"),
             Argument("target", "the name of the column to predict", kind="value"),
-            Argument("hidden", "hidden widths such as 8 or 8,4, 0 for none; blank: 4, or on a small table 4, 16 or none as its folds prefer", True, "value"),
+            Argument("hidden", "hidden widths such as 8 or 8,4, 0 for none; blank: 16, or on a small table 16, 4 or none as its folds prefer", True, "value"),
             Argument("settings", "a two-column range of names and values, or a text like epochs=500; rate=0.3", True),
             Argument("split", "the column SHEETNET.SPLIT returned: holdout rows are left out of training", True),
         ),
@@ -145,7 +145,7 @@ REGISTRY: tuple[CellFunction, ...] = (
         (
             Argument("table", "the table, its first row holding column names"),
             Argument("target", "the name of the column to predict", kind="value"),
-            Argument("candidates", "a range headed hidden, decay, algorithm (any of them), one candidate per row; 12 from none to 8,4 when blank", True),
+            Argument("candidates", "a range headed hidden, decay, algorithm (any of them), one candidate per row; 12 from none to 16,8 when blank", True),
             Argument("settings", "TRAIN's settings, plus metric=NAME to rank by (rmse or log_loss when blank)", True),
             Argument("folds", "5 when blank; a count, or ordered (time series), random, stratified or 'grouped COLUMN', then a count", True, "value"),
         ),

@@ -27,6 +27,7 @@ from typing import Any, Mapping, Sequence
 
 import numpy as np
 
+from . import defaults
 from .cell_text import cell_in_words
 from .errors import SettingError
 from .evaluation import check_rows, fit_and_score_fold, make_folds, read_once
@@ -34,7 +35,7 @@ from .parallel import run_jobs
 from .preparation import fit_target, planned_width, read_table, read_target
 from .settings import resolve_settings
 
-DEFAULT_HIDDEN: tuple[tuple[int, ...], ...] = ((), (4,), (8,), (8, 4))  # none (a linear or logistic model) up to two layers
+DEFAULT_HIDDEN: tuple[tuple[int, ...], ...] = ((), (4,), (16,), (16, 8))  # none (a linear or logistic model), fit's default, two layers
 DEFAULT_DECAYS: tuple[float, ...] = (1e-4, 1e-2, 1.0)  # the decay setting's default, then stronger by 100x steps
 # Which way is better for each metric the search can rank by.
 HIGHER_IS_BETTER: dict[str, bool] = {
@@ -176,7 +177,7 @@ def _as_candidate(given: Any) -> Candidate:
         unknown = set(given) - {"hidden", "decay", "algorithm"}
         if unknown:
             raise SettingError(f"a candidate has {', '.join(sorted(map(str, unknown)))}; a candidate has hidden, decay and algorithm only")
-        hidden = given.get("hidden", (4,))
+        hidden = given.get("hidden", defaults.DEFAULT_HIDDEN)
         return Candidate(tuple(hidden) if not isinstance(hidden, (int, np.integer)) else (int(hidden),), given.get("decay"), given.get("algorithm"))
     raise SettingError(f"a candidate is {cell_in_words(given)}; give Candidate(hidden, decay, algorithm) or a dict with those keys")
 

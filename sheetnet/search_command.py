@@ -24,7 +24,7 @@ def add_search_parser(commands: Any) -> None:
     search.add_argument("--table", required=True, help="the table with its header row, like 'Data!A1:F500'")
     search.add_argument("--target", required=True, help="the column to predict")
     search.add_argument("--hidden", action="append", default=[], metavar="WIDTHS",
-                        help="hidden layer widths of a candidate, like 8 or 8,4 (0: none); repeat for more. Default: a grid of 12 from none to 8,4")
+                        help="hidden layer widths of a candidate, like 8 or 8,4 (0: none); repeat for more. Default: a grid of 12 from none to 16,8")
     search.add_argument("--decay", action="append", default=[], type=float, metavar="DECAY", help="a weight decay to try with every --hidden; repeat for more")
     search.add_argument("--algorithm", action="append", default=[], metavar="NAME", help="an algorithm to try with every --hidden; repeat for more")
     search.add_argument("--folds", default="5", help="5, a count, or ordered (time series), random, stratified, 'grouped COLUMN', then a count (default 5)")

@@ -224,7 +224,7 @@ def native_formula_placements(
 # --- training from a range, and refreshing ------------------------------------------------
 
 HOLDOUT_MODES = ("auto", "random", "stratified", "ordered")
-DEFAULT_HIDDEN = ""  # blank at every door: fit's default, one layer of 4 (4, 16 or none as a small table's folds prefer)
+DEFAULT_HIDDEN = ""  # blank at every door: fit's default, one layer of 16 (16, 4 or none as a small table's folds prefer)
 DEFAULT_HOLDOUT = 0.2
 
 

@@ -17,8 +17,8 @@ from 0.77 to 0.89 (tests/benchmarks/vs_reference.py).
 
 When ``hidden`` is also left at its default (None: `defaults.DEFAULT_HIDDEN`),
 the same cross-validation weighs the same preparation with no hidden layer
-(a linear, logistic or softmax regression) and with the wider
-`defaults.WIDER_HIDDEN`, each with every decay of `DECAY_CHOICES`: the
+(a linear, logistic or softmax regression) and with the narrower
+`defaults.NARROW_HIDDEN`, each with every decay of `DECAY_CHOICES`: the
 network with the lowest loss wins, and no hidden layer is kept instead when
 its loss is within one standard error of the winner's (the
 one-standard-error rule). The model's settings then record the
@@ -48,12 +48,12 @@ from .defaults import (
     FLOAT32_ROW_LIMIT,
     LBFGS_ROW_LIMIT,
     MIN_ROWS,
+    NARROW_HIDDEN,
     TINY_TABLE_DECAY,
     TUNING_FOLDS,
     TUNING_MIN_ROWS,
     TUNING_ROW_LIMIT,
     VALIDATION_ROW_LIMIT,
-    WIDER_HIDDEN,
 )
 from .errors import LengthMismatchError, NotEnoughRowsError, SettingError, TrainingError
 from .limits import check_network_size
@@ -169,9 +169,9 @@ class CrossValidationChoice:
 
 def candidates_of(hidden: tuple[int, ...], blank: bool) -> tuple[Candidate, ...]:
     """The networks the inner cross-validation weighs: ``hidden`` with each of `DECAY_CHOICES`; when the hidden
-    layers were left ``blank``, also `WIDER_HIDDEN` and no hidden layer (a linear, logistic or softmax regression),
+    layers were left ``blank``, also `NARROW_HIDDEN` and no hidden layer (a linear, logistic or softmax regression),
     each with every decay."""
-    shapes = tuple(dict.fromkeys((hidden, WIDER_HIDDEN, ()))) if blank else (hidden,)
+    shapes = tuple(dict.fromkeys((hidden, NARROW_HIDDEN, ()))) if blank else (hidden,)
     return tuple(Candidate(shape, decay) for shape in shapes for decay in DECAY_CHOICES)
 
 

@@ -52,7 +52,7 @@ def test_network_weights_count_weights_and_biases():
 def test_the_default_grid_has_twelve_candidates_from_linear_to_two_layers():
     grid = default_candidates()
     assert len(grid) == 12 and len(set(grid)) == 12
-    assert {c.hidden for c in grid} == {(), (4,), (8,), (8, 4)} and {c.decay for c in grid} == {1e-4, 1e-2, 1.0}
+    assert {c.hidden for c in grid} == {(), (4,), (16,), (16, 8)} and {c.decay for c in grid} == {1e-4, 1e-2, 1.0}
 
 
 def _curved(rows=160, seed=0):
