@@ -32,7 +32,8 @@ from sheetnet.settings import SETTINGS
 QUICK = dict(epochs=200, decay=1e-4, validation_share=0)
 
 
-@parametrize_with_checks([SheetnetRegressor(hidden=(4,), **QUICK), SheetnetClassifier(hidden=(4,), **QUICK)])
+# the defaults as a user meets them, and quick fixed networks
+@parametrize_with_checks([SheetnetRegressor(), SheetnetClassifier(), SheetnetRegressor(hidden=(4,), **QUICK), SheetnetClassifier(hidden=(4,), **QUICK)])
 def test_scikit_learn_checks(estimator, check):
     if getattr(check, "func", check).__name__ == "check_array_api_input":
         pytest.skip("needs SCIPY_ARRAY_API=1 before SciPy loads: test_the_array_api_check_with_dispatch_enabled runs it in a process of its own")
