@@ -318,18 +318,26 @@ def train(table: Any, target: Any, hidden: Any = None, settings: Any = None, spl
 
 
 def cached_train_block(
-    table: Any, target: Any, hidden: Any = None, settings: Any = None, split: Any = None, progress: ProgressCallback | None = None
+    table: Any,
+    target: Any,
+    hidden: Any = None,
+    settings: Any = None,
+    split: Any = None,
+    progress: ProgressCallback | None = None,
+    source: tuple[str, float, str, int] | None = None,
 ) -> Cells:
-    """`train_block` through TRAIN's content cache (the cell and a server job share it): the same table and
-    arguments answer at once with a copy of the block trained before, with no progress reported."""
-    key = content_key(table, target, hidden, settings, split) or _cache_key(table, target, hidden, settings, split)
+    """`train_block` through TRAIN's content cache (the cell, server jobs and `service.train_model` share it): the
+    same table and arguments (and recorded source) answer at once with a copy of the block trained before, with no
+    progress reported."""
+    parts = (table, target, hidden, settings, split) if source is None else (table, target, hidden, settings, split, list(source))
+    key = content_key(*parts) or _cache_key(*parts)
     with _train_cache_lock:
         found = _train_cache.get(key)
         if found is not None:
             _train_cache.move_to_end(key)
     if found is not None:
         return [list(row) for row in found]
-    block = train_block(table, target, hidden, settings, split, progress=progress)
+    block = train_block(table, target, hidden, settings, split, progress=progress, source=source)
     with _train_cache_lock:  # cell calls and jobs train in threads of their own
         _train_cache[key] = block
         while len(_train_cache) > TRAIN_CACHE_SIZE:

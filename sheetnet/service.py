@@ -298,7 +298,8 @@ def split_mode(table: list[list[Any]], target: str, mode: str, settings: Any) ->
 
 
 def train_model(request: TrainRequest, progress: ProgressCallback | None = None) -> Trained:
-    """Split (when ``holdout`` > 0) and train, exactly as every door does it."""
+    """Split (when ``holdout`` > 0) and train, exactly as every door does it; a request trained before in this
+    process (the server's, for the task pane and Calc) answers from TRAIN's cache."""
     from . import functions
 
     seed, settings = _seeded(request.settings, request.seed)
@@ -307,7 +308,7 @@ def train_model(request: TrainRequest, progress: ProgressCallback | None = None)
         mode = split_mode(request.table, request.target, request.mode, settings)
         split = functions.raising(functions.split)(request.table, request.holdout, seed, mode)
     source = None if request.address is None else (request.address, float(request.holdout), request.mode, seed)
-    block = functions.train_block(request.table, request.target, request.hidden, settings, split, progress, source=source)
+    block = functions.cached_train_block(request.table, request.target, request.hidden, settings, split, progress, source=source)
     return Trained(block, split)
 
 

@@ -316,6 +316,21 @@ def test_a_repeated_train_job_answers_from_trains_cache_shared_with_the_cell(tab
     assert _finish(board.submit("cellmade", [table, "spoiled", "2", "epochs=30"]))["result"] == cell_first and len(counted_training) == 3
 
 
+def test_a_repeated_job_with_a_holdout_request_answers_from_trains_cache(table, counted_training):
+    # the task pane's and Calc's path: the server makes the split; the same request again trains nothing
+    from sheetnet.jobs import SplitRequest
+
+    board = JobBoard()
+    where = SplitRequest(0.25, "auto", 7, "'Shipments'!$A$1:$F$121")
+    first = _finish(board.submit("spoilage", [table, "spoiled", "3", "epochs=40"], split=where))
+    assert first["state"] == "done" and first["epoch"] == 40 and len(counted_training) == 1
+    again = _finish(board.submit("spoilage", [[list(row) for row in table], "spoiled", "3", "epochs=40"], split=where))
+    assert again["state"] == "done" and again["result"] == first["result"] and again["epoch"] == 0 and len(counted_training) == 1
+    elsewhere = SplitRequest(0.25, "auto", 7, "'Shipments'!$A$1:$F$122")  # another recorded source: trained anew
+    assert _finish(board.submit("spoilage", [table, "spoiled", "3", "epochs=40"], split=elsewhere))["epoch"] == 40
+    assert len(counted_training) == 2
+
+
 SEARCH_ARGS = [[["hidden"], [2], [4]], "epochs=30; decay=0.01; workers=1", 3]  # candidates, settings, folds
 
 
