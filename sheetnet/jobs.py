@@ -27,7 +27,8 @@ so a job with the table and arguments of one trained before, as a job or in a
 cell, is done at once with the same block. A SEARCH job (``function``
 ``SHEETNET.SEARCH``, SEARCH's arguments) answers the ranking the SEARCH cell
 shows, its progress one count per finished fold of a candidate (``stage``
-"search folds", ``done`` of ``total``); cancelling stops it at the next fold.
+"search folds", ``done`` of ``total``); cancelling stops it within an epoch
+(fits in worker processes or on a cluster: as they finish).
 
 >>> board = JobBoard()
 >>> job = board.submit("grades", [table, "grade"])       # doctest: +SKIP
@@ -50,7 +51,7 @@ from . import functions, service
 from .cells import Cells
 from .errors import SheetnetError
 from .limits import KEPT_JOB_CELLS, KEPT_JOBS, KEPT_MODELS, MAX_JOB_TABLE_CELLS, MAX_RUNNING_JOBS, MAX_WAITING_JOBS, range_shape
-from .progress import reporting_to
+from .progress import reporting_to, stopping_when
 from .registry import BY_NAME
 from .stopping import ProgressCallback
 
@@ -370,10 +371,14 @@ class JobBoard:
                 raise Cancelled(_cancelled(job))
             job.stage, job.done, job.total = what, done, total
 
+        def still_wanted() -> None:  # after every epoch of every network this job trains here
+            if job.cancel.is_set():
+                raise Cancelled(_cancelled(job))
+
         reporting: ProgressCallback = progress
         state, message, result, placements, about = "failed", None, None, None, None
         try:
-            with reporting_to(jobs_done):
+            with reporting_to(jobs_done), stopping_when(still_wanted):
                 if job.function == SEARCH.name:  # the ranking as SEARCH's cells: no model to describe or place
                     block = self.searcher(*args)
                 elif job.split is not None:

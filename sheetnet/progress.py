@@ -4,7 +4,10 @@ A door says who listens with `reporting_to`; `sheetnet.parallel` calls `report`
 as jobs finish. Only the outermost run reports: a fold that trains several
 repeats one after another does not interleave its own counts with the folds'.
 Listeners live in a context variable, so each thread (each server job) has its
-own and nothing is global.
+own and nothing is global. `stopping_when` does the same for a check that
+every epoch of every network trained in this thread calls (`check_stop`), so a
+cancelled job stops within an epoch, not at the next finished fold; jobs in
+worker processes or on a cluster only see it as they finish.
 
 >>> seen = []
 >>> with reporting_to(lambda what, done, total: seen.append((what, done, total))):
@@ -25,6 +28,8 @@ ProgressReport = Callable[[str, int, int], None]  # (what is being done, jobs do
 
 _listeners: ContextVar[tuple[ProgressReport, ...]] = ContextVar("sheetnet_progress_listeners", default=())
 _depth: ContextVar[int] = ContextVar("sheetnet_progress_depth", default=0)
+StopCheck = Callable[[], None]  # raises to stop the work under way (a cancelled server job)
+_stop_checks: ContextVar[tuple[StopCheck, ...]] = ContextVar("sheetnet_stop_checks", default=())
 
 
 @contextmanager
@@ -35,6 +40,30 @@ def reporting_to(listener: ProgressReport) -> Iterator[None]:
         yield
     finally:
         _listeners.reset(token)
+
+
+@contextmanager
+def stopping_when(check: StopCheck) -> Iterator[None]:
+    """Inside this block every training epoch in this thread calls ``check``, which raises to stop the work.
+
+    >>> def refuse():
+    ...     raise RuntimeError("stopped")
+    >>> with stopping_when(refuse):
+    ...     check_stop()
+    Traceback (most recent call last):
+    RuntimeError: stopped
+    """
+    token = _stop_checks.set((*_stop_checks.get(), check))
+    try:
+        yield
+    finally:
+        _stop_checks.reset(token)
+
+
+def check_stop() -> None:
+    """Call every check of `stopping_when` (after each epoch); nothing when there is none."""
+    for check in _stop_checks.get():
+        check()
 
 
 def report(what: str, done: int, total: int) -> None:

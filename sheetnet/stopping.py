@@ -26,6 +26,7 @@ from typing import Callable
 import numpy as np
 
 from . import defaults
+from .progress import check_stop
 
 STOP_REASONS = ("target_loss", "gradient", "validation", "stalled", "epochs")
 DIVERGED_FACTOR = 1e6  # a training loss this many times the first epoch's means the steps are too large
@@ -69,6 +70,7 @@ class Monitor:
 
     def end_epoch(self, theta: np.ndarray, training_loss: float, gradient_size: float) -> str | None:
         """Record one epoch; return the name of the rule that stops training, or None."""
+        check_stop()  # a cancelled server job stops here, whatever network it is training
         self.training_curve.append(float(training_loss))
         watched = float(training_loss)
         validation = None

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import threading
+import time
 
 import numpy as np
 import pytest
@@ -364,6 +365,24 @@ def test_a_running_search_job_can_be_cancelled(table):
     view = _finish(job)
     assert view["state"] == "cancelled" and view["message"] == "the search was cancelled" and view["result"] is None
     assert view["done"] < 60
+
+
+ENDLESS = "algorithm=gd; rate=0.0001; gradient_threshold=0; decay=0; patience=100000; epochs=1000000; workers=1"
+
+
+@pytest.mark.parametrize("function, args", [
+    ("SHEETNET.SEARCH", [None, ENDLESS, 3]),  # its first fit alone would run for hours
+    ("SHEETNET.TRAIN", ["3", f"{ENDLESS}; repeats=2"]),  # repeats report no epochs of their own
+])
+def test_a_cancel_stops_the_fit_under_way_not_only_at_the_next_finished_one(table, function, args):
+    board = JobBoard()
+    job = board.submit("endless", [table, "spoiled", *args], function=function)
+    assert not job.finished.wait(0.5) and job.state == "running" and job.done == 0  # no fit has finished
+    started = time.monotonic()
+    assert board.cancel(job.id) == "cancelling"
+    view = _finish(job)
+    assert view["state"] == "cancelled" and view["result"] is None and view["done"] == 0
+    assert time.monotonic() - started < 5  # within an epoch, not hours
 
 
 def test_a_search_job_that_fails_says_what_the_search_cell_says_and_bad_requests_leave_nothing(table):
