@@ -68,6 +68,7 @@ class _SheetnetEstimator(BaseEstimator):
         patience: int = _DEFAULT["patience"],
         validation_share: float | None = _DEFAULT["validation_share"],
         decay: float | None = _DEFAULT["decay"],
+        inner_folds: str = _DEFAULT["inner_folds"],
         rate: float | None = _DEFAULT["rate"],
         momentum: float = _DEFAULT["momentum"],
         batch: int | None = _DEFAULT["batch"],
@@ -98,6 +99,7 @@ class _SheetnetEstimator(BaseEstimator):
         self.patience = patience
         self.validation_share = validation_share
         self.decay = decay
+        self.inner_folds = inner_folds
         self.rate = rate
         self.momentum = momentum
         self.batch = batch

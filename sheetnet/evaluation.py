@@ -238,6 +238,8 @@ def cross_validate(
     check_rows(X, y, settings.get("task", "auto"), settings.get("categories", ()))
     used, folds = make_folds(y, k, seed, mode, groups, settings.get("task", "auto"))
     inner = dict(settings, workers=1)  # the cores go to the folds, not to repeats inside them
+    if used == "ordered":  # time series: the folds that tune each fold's network keep the order too
+        inner.setdefault("inner_folds", "ordered")
     X, y = read_once(X, y)
     jobs = [(X, y, train_rows, test_rows, hidden, seed, inner) for train_rows, test_rows in folds]
     scores = run_jobs(fit_and_score_fold, jobs, workers, "folds")

@@ -373,6 +373,8 @@ def train_block(
     used = _rows_used(sheet, [*inputs, target_name], skip)
     held = _read_split(split, sheet) if split is not None and not is_blank(split) else np.zeros(len(sheet.frame), dtype=bool)
     training = used & ~held
+    if "inner_folds" not in engine_settings and held_out_last(training, used & held):
+        engine_settings["inner_folds"] = "ordered"  # a time-ordered holdout: the folds that tune the network keep the order too
     seed = _whole_number(options.get("seed", 0), "seed")
     layers = parse_hidden(hidden)
     categories = _name_list(options.get("categories"))
@@ -483,6 +485,19 @@ def _numbers_for_training(
     if str(engine_settings.get("task", "auto")).strip().lower() in ("binary", "multiclass"):
         return readable
     return read_numbers_in_text(readable, [target], mode, f"{TRAIN_NUMBER_TEXT_FIX}; if the column holds classes, add the setting task=multiclass")
+
+
+def held_out_last(training: np.ndarray, holdout: np.ndarray) -> bool:
+    """Whether the holdout rows are the table's last rows, after every training row (an ordered split).
+
+    >>> held_out_last(np.array([True, True, False, False]), np.array([False, False, True, True]))
+    True
+    >>> held_out_last(np.array([True, False, True, False]), np.array([False, True, False, True]))
+    False
+    """
+    if not training.any() or not holdout.any():
+        return False
+    return int(np.flatnonzero(training)[-1]) < int(np.flatnonzero(holdout)[0])
 
 
 def _check_sizes(

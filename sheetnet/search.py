@@ -235,6 +235,8 @@ def search(
     used, folds = make_folds(y, k, seed, mode, groups, resolved[0]["task"])
     width = planned_width(table, categories)
     X, y = read_once(X, y)
+    if used == "ordered":  # time series: the folds that tune each candidate's network keep the order too
+        settings.setdefault("inner_folds", "ordered")
     own = [dict(c.settings(settings), workers=1, categories=categories) for c in chosen_candidates]  # the cores go to the folds
     order = run_order([network_weights(width, c.hidden, learned.outputs) for c in chosen_candidates], len(folds))
     jobs = [(X, y, *folds[f], chosen_candidates[c].hidden, seed, own[c]) for c, f in order]

@@ -22,6 +22,7 @@ ALGORITHMS = ("auto", *OPTIMIZERS)  # the optimizer table's names, in its order
 ACTIVATIONS = ("tanh", "logistic", "relu")
 TASKS = ("auto", "regression", "binary", "multiclass")
 PRECISIONS = ("auto", "float64", "float32")
+INNER_FOLD_ORDERS = ("shuffled", "ordered")
 
 
 @dataclass(frozen=True)
@@ -51,6 +52,9 @@ SETTINGS: tuple[Setting, ...] = (
         f"none: {d.TINY_TABLE_DECAY:g} below {d.TUNING_MIN_ROWS} training rows, then below {d.TUNING_ROW_LIMIT:,} the one of "
         f"{', '.join(f'{c:g}' for c in d.DECAY_CHOICES)} that {d.TUNING_FOLDS}-fold cross-validation on the training rows prefers, "
         f"else {d.DEFAULT_DECAY:g}", low=0.0, allow_none=True),
+    Setting("inner_folds", str, "shuffled", "how that cross-validation cuts the training rows: shuffled, or ordered for rows in time order "
+        "(each fold checks on rows after the ones it trains on); TRAIN takes ordered when its holdout is the table's last rows",
+        choices=INNER_FOLD_ORDERS),
     Setting("rate", float, None, f"learning rate; none: {d.GD_RATE:g} for gd, {d.ADAM_RATE:g} for adam "
         f"(the paper suggests {d.ADAM_PAPER_RATE:g}; {d.ADAM_RATE:g} converged about 3x sooner on large tables)", low=0.0, allow_none=True),
     Setting("momentum", float, 0.9, "momentum of gradient descent", low=0.0, high=0.999),

@@ -61,7 +61,7 @@ from .model import Member, Model
 from .parallel import run_jobs
 from .preparation import fit_preparation, fit_target, read_table, read_target
 from .settings import resolve_settings
-from .splits import holdout_mask, k_folds
+from .splits import holdout_mask, k_folds, ordered_folds
 from .stopping import Monitor, ProgressCallback, StoppingRules
 
 
@@ -128,9 +128,14 @@ def _validation_rows(n_rows: int, share: float, rng: np.random.Generator, labels
     return holdout_mask(n_rows, share, seed, "random")
 
 
-def _inner_folds(n_rows: int, folds: int, rng: np.random.Generator, labels: np.ndarray | None) -> list[tuple[np.ndarray, np.ndarray]]:
-    """The folds of the inner cross-validation (stratified for classes when every class fills every fold)."""
-    seed = int(rng.integers(2**32))
+def _inner_folds(
+    n_rows: int, folds: int, rng: np.random.Generator, labels: np.ndarray | None, order: str = "shuffled"
+) -> list[tuple[np.ndarray, np.ndarray]]:
+    """The folds of the inner cross-validation: shuffled (stratified for classes when every class fills every fold),
+    or ``ordered``, expanding windows over rows in time order (`splits.ordered_folds`)."""
+    seed = int(rng.integers(2**32))  # drawn either way, so what follows draws the same
+    if order == "ordered":
+        return ordered_folds(n_rows, folds)
     if labels is not None and np.unique(labels, return_counts=True)[1].min() >= folds:
         return k_folds(n_rows, folds, seed, labels)
     return k_folds(n_rows, folds, seed)
@@ -240,7 +245,7 @@ def choose_decay(
     Learning, section 7.10; both cited from memory). The folds are independent jobs, run where
     `sheetnet.parallel.run_jobs` finds them fastest.
     """
-    folds = _inner_folds(len(inputs), plan.folds, rng, labels)  # first: the folds do not depend on how many shapes
+    folds = _inner_folds(len(inputs), plan.folds, rng, labels, settings["inner_folds"])  # first: they do not depend on the shapes
     seed = int(rng.integers(2**32))
     shapes = dict.fromkeys(c.hidden for c in candidates)
     starts = {shape: network.initial_parameters((ends[0], *shape, ends[1]), activation, rng) for shape in shapes}

@@ -277,6 +277,20 @@ def test_sunspot_forecast_with_lags_beats_the_naive_forecast():
     assert model_rmse < 0.9 * naive_rmse, (model_rmse, naive_rmse)
 
 
+def test_a_holdout_of_the_last_rows_makes_train_tune_on_folds_in_time_order():
+    # reference data: statsmodels' bundled yearly sunspot numbers; SPLIT's ordered mode holds out the last years
+    from statsmodels.datasets import sunspots
+
+    series = sunspots.load_pandas().data["SUNACTIVITY"].tolist()
+    lagged = cellfn.lags([["sunspots"]] + [[v] for v in series], 9)
+    table = [lagged[0] + ["sunspots"]] + [row + [v] for row, v in zip(lagged[1:], series)]
+    ordered, _ = decode_block(cellfn.train(table, "sunspots", None, "blank_rows=skip; seed=0", cellfn.split(table, 0.2, 0, "ordered")))
+    shuffled, _ = decode_block(cellfn.train(table, "sunspots", None, "blank_rows=skip; seed=0", cellfn.split(table, 0.2, 0, "random")))
+    assert (ordered.settings["inner_folds"], shuffled.settings["inner_folds"]) == ("ordered", "shuffled")
+    given, info = decode_block(cellfn.train(table, "sunspots", None, "blank_rows=skip; seed=0; inner_folds=shuffled", cellfn.split(table, 0.2, 0, "ordered")))
+    assert given.settings["inner_folds"] == "shuffled" and info.given["inner_folds"] == "shuffled"  # a setting given wins
+
+
 def test_dates_in_a_numeric_column_get_advice(shipments):
     import datetime
 

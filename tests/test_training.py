@@ -390,6 +390,24 @@ def test_the_blank_default_keeps_a_layer_of_16_and_beats_scikit_learns_mlp_on_fr
     assert sheetnet.metrics.r2(y_test, model.predict(X_test)) > max(references)
 
 
+def test_ordered_inner_folds_let_the_sunspot_lags_reach_least_squares():
+    # source: statsmodels' bundled yearly sunspot numbers (1700-2008) as nine lagged years, the last quarter held out
+    # in time order, against sklearn.linear_model.LinearRegression (holdout R^2 0.8652). Shuffled inner folds train on
+    # later years to check earlier ones and keep a hidden layer (0.812); folds in time order keep the linear model
+    from sklearn.linear_model import LinearRegression
+    from statsmodels.datasets import sunspots
+
+    series = sunspots.load_pandas().data["SUNACTIVITY"].to_numpy(float)
+    X = np.column_stack([series[8 - k: len(series) - k - 1] for k in range(9)])
+    y = series[9:]
+    cut = int(round(0.75 * len(y)))
+    least_squares = sheetnet.metrics.r2(y[cut:], LinearRegression().fit(X[:cut], y[:cut]).predict(X[cut:]))
+    ordered = sheetnet.fit(X[:cut], y[:cut], seed=0, inner_folds="ordered")
+    assert ordered.settings["inner_folds"] == "ordered" and ordered.settings["hidden_chosen"] == "none"
+    assert sheetnet.metrics.r2(y[cut:], ordered.predict(X[cut:])) >= least_squares - 0.001
+    assert sheetnet.fit(X[:cut], y[:cut], seed=0, epochs=5).settings["inner_folds"] == "shuffled"  # the default
+
+
 def test_the_engel_default_reaches_ordinary_least_squares():
     # source: statsmodels' bundled engel data (food spending from income), split by
     # sklearn.model_selection.train_test_split (test_size=0.25, random_state=0), against

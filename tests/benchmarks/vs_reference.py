@@ -7,7 +7,8 @@ For each table and seed: a 75/25 holdout split (stratified for classes, the last
 quarter for the sunspot lags), the same standardised training rows for every
 model (scikit-learn through a StandardScaler fitted on the training rows, and
 for regression a scaled target, so nobody has a preparation advantage), the
-same hidden layer. sheetnet runs with its default settings twice: with the
+same hidden layer. sheetnet runs with its default settings (and, on the table split in time
+order, inner_folds=ordered, as TRAIN takes it for a holdout of the last rows) twice: with the
 table's hidden layer given (like for like with the MLPs), and, on tables below
 `defaults.TUNING_ROW_LIMIT` training rows, with the hidden layers left blank,
 where cross-validation also weighs a wider layer and no hidden layer (column
@@ -123,12 +124,13 @@ def one_seed(X, y, kind, hidden, mode, seed) -> dict[str, tuple[float, float, ob
         model = reference_model(kind, hidden, solver, seed)
         seconds = median_time(lambda: model.fit(Xt, yt), 1)
         found[solver] = (quality(kind, model.predict(Xh), yh), seconds, model)
+    order = {"inner_folds": "ordered"} if mode == "ordered" else {}  # as TRAIN does when its holdout is the last rows
     contenders = {"sheetnet": hidden}
     if len(yt) < sheetnet.defaults.TUNING_ROW_LIMIT:
         contenders["blank"] = None  # the hidden layers left at their default
     for who, layers in contenders.items():
         box = {}
-        seconds = median_time(lambda: box.setdefault("m", sheetnet.fit(Xt, yt, hidden=layers, seed=seed)), 1)
+        seconds = median_time(lambda: box.setdefault("m", sheetnet.fit(Xt, yt, hidden=layers, seed=seed, **order)), 1)
         found[who] = (quality(kind, box["m"].predict(Xh), yh), seconds, box["m"])
     return found
 
